@@ -1,0 +1,323 @@
+"""The ``pesflow`` command.
+
+Verbs: ``check``, ``plan``, ``run``, ``status``, ``export``.  Exit codes: 0 success,
+1 the computation finished with failed points (or a batch job failed), 2 invalid
+input or a refused run (nothing computed or written), 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+from rich.console import Console
+from rich.markup import escape
+from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
+from rich.table import Table
+
+from pesflow import __version__
+from pesflow.errors import PesflowError, RunError, SpecError
+
+EXIT_OK, EXIT_FAILED, EXIT_INVALID, EXIT_INTERRUPTED = 0, 1, 2, 130
+
+console = Console(highlight=False)
+err_console = Console(stderr=True, highlight=False)
+
+
+def _load(spec):
+    from pesflow.spec import load_campaign
+
+    return load_campaign(spec)
+
+
+def _store(campaign):
+    from pesflow.store import PointStore
+
+    return PointStore(campaign.store_path)
+
+
+def _plan(campaign):
+    from pesflow.plan import expand
+
+    return expand(campaign)
+
+
+def _done_keys(store, retry_failed=False) -> set[str]:
+    if not store.exists():
+        return set()
+    keys = store.keys()
+    if retry_failed:
+        table = store.status_table(columns=("key", "converged"))
+        failed = {k for k, c in zip(table.column("key").to_pylist(),
+                                    table.column("converged").to_pylist()) if not c}
+        keys -= failed
+    return keys
+
+
+# ---------------------------------------------------------------------------
+# verbs
+# ---------------------------------------------------------------------------
+
+
+def cmd_check(args) -> int:
+    campaign = _load(args.spec)
+    plan = _plan(campaign)
+    table = Table(title=f"campaign {campaign.name}: spec is valid", title_justify="left")
+    for col in ("molecule", "atoms", "charge", "multiplicity", "scans"):
+        table.add_column(col)
+    for name, mol in campaign.molecules.items():
+        scans = [s.name for s in campaign.scans.values() if name in s.molecules]
+        table.add_row(name, mol.atoms.get_chemical_formula(), str(mol.charge),
+                      str(mol.multiplicity), ", ".join(scans) or "-")
+    console.print(table)
+    scans = Table(show_header=True)
+    for col in ("scan", "coordinates", "points per molecule"):
+        scans.add_column(col)
+    for scan in campaign.scans.values():
+        coords = "; ".join(
+            f"{c.label} {c.values[0]:g}..{c.values[-1]:g} {c.unit} ({len(c.values)})"
+            for c in scan.coordinates)
+        scans.add_row(scan.name, coords, str(len(scan.grid())))
+    console.print(scans)
+    console.print("levels: " + ", ".join(lvl.label for lvl in campaign.levels))
+    console.print(f"{len(plan.points)} points in all; nothing was computed.")
+    return EXIT_OK
+
+
+def cmd_plan(args) -> int:
+    from pesflow.plan import make_batches
+
+    campaign = _load(args.spec)
+    plan = _plan(campaign)
+    store = _store(campaign)
+    done = _done_keys(store)
+    batches = make_batches(plan, done, cores=args.cores or _cpu_count())
+    pts = plan.points
+    table = Table(title=f"campaign {campaign.name}: plan", title_justify="left")
+    for col in ("level", "points", "cached", "to compute"):
+        table.add_column(col, justify="right" if col != "level" else "left")
+    cached = pts["key"].isin(done)
+    for level, sub in pts.groupby("level", sort=False):
+        c = int(cached[sub.index].sum())
+        table.add_row(level, str(len(sub)), str(c), str(len(sub) - c))
+    console.print(table)
+    console.print(f"{len(pts)} points, {int(cached.sum())} cached, {int((~cached).sum())} to "
+                  f"compute in {len(batches)} batches; store: {campaign.store_path}")
+    return EXIT_OK
+
+
+def _cpu_count():
+    import os
+
+    return os.cpu_count() or 1
+
+
+def _print_status(campaign, plan, store, show_failed=10) -> tuple[int, int, int]:
+    from pesflow.results import STATUS_COLUMNS, failed_points, points_table, status_counts
+
+    table = points_table(plan, store, columns=STATUS_COLUMNS)
+    counts = status_counts(table)
+    out = Table(title=f"campaign {campaign.name}: status", title_justify="left")
+    for col in ("molecule", "level", "done", "failed", "pending"):
+        out.add_column(col, justify="left" if col in ("molecule", "level") else "right")
+    for row in counts.itertuples(index=False):
+        out.add_row(row.molecule, row.level, str(row.done),
+                    f"[red]{row.failed}[/red]" if row.failed else "0", str(row.pending))
+    console.print(out)
+    failed = failed_points(table)
+    for row in failed.head(show_failed).itertuples(index=False):
+        where = ", ".join(f"{c}={getattr(row, c):g}" for c in table.columns
+                          if c.endswith(("_angstrom", "_degree")) and c != "positions_angstrom"
+                          and c in row._fields and getattr(row, c) == getattr(row, c))
+        console.print(f"[red]failed[/red] {escape(row.molecule)} {escape(row.scan)} "
+                      f"{escape(row.level)} {where}: {escape(str(row.error))}", soft_wrap=True)
+    if len(failed) > show_failed:
+        console.print(f"... and {len(failed) - show_failed} more failed points "
+                      "(pesflow export lists them all)")
+    n = table["status"].value_counts()
+    return int(n.get("done", 0)), int(n.get("failed", 0)), int(n.get("pending", 0))
+
+
+def cmd_status(args) -> int:
+    campaign = _load(args.spec)
+    plan = _plan(campaign)
+    done, failed, pending = _print_status(campaign, plan, _store(campaign))
+    console.print(f"{done} done, {failed} failed, {pending} pending")
+    return EXIT_FAILED if failed else EXIT_OK
+
+
+def cmd_run(args) -> int:
+    from pesflow import run as runner
+    from pesflow.plan import make_batches
+
+    campaign = _load(args.spec)
+    plan = _plan(campaign)
+    store = _store(campaign)
+    options = runner.RunOptions(cores=args.cores, profile=args.profile,
+                                threads_per_batch=args.threads_per_batch,
+                                retry_failed=args.retry_failed)
+    lock = runner.RunLock(campaign.results_path / ".pesflow" / "run.lock").acquire()
+    try:
+        done = _done_keys(store, retry_failed=args.retry_failed)
+        recompute = set()
+        if args.retry_failed and store.exists():
+            recompute = store.keys() - done
+        batches = make_batches(plan, done, cores=args.cores or _cpu_count(),
+                               batches_per_core=options.batches_per_core)
+        pending = set(plan.points["key"]) - done
+        if not batches:
+            console.print("nothing to compute: every point is in the store")
+        else:
+            console.print(f"{len(pending)} points to compute in {len(batches)} batches "
+                          f"({len(plan.points) - len(pending)} cached); store: "
+                          f"{campaign.store_path}")
+            wd = runner.workdir(campaign)
+            config = runner.write_tasks(plan, batches, campaign.store_path, wd, options,
+                                        recompute=recompute)
+            outcome = _run_with_progress(runner, wd, config, options, lock, store, pending)
+            if outcome.interrupted:
+                console.print("[yellow]interrupted[/yellow]: every finished point is stored; "
+                              "run the same command again to continue")
+                return EXIT_INTERRUPTED
+            if outcome.returncode != 0:
+                err_console.print(f"some batch jobs failed; Snakemake's log: {outcome.log_path}")
+        stats = store.compact() if store.exists() else None
+        del stats
+    finally:
+        lock.release()
+    done_n, failed, pending_n = _print_status(campaign, plan, store)
+    console.print(f"{done_n} done, {failed} failed, {pending_n} pending")
+    if failed or pending_n:
+        return EXIT_FAILED
+    return EXIT_OK
+
+
+def _run_with_progress(runner, wd, config, options, lock, store, pending):
+    seen: dict[str, bool] = {}
+    total = len(pending)
+    start = time.monotonic()
+    progress = Progress(
+        TextColumn("[bold]points"), BarColumn(),
+        TextColumn("{task.fields[done]} done, {task.fields[failed]} failed, "
+                   "{task.fields[left]} left"),
+        TimeElapsedColumn(), console=console, transient=False,
+    )
+    task = progress.add_task("run", total=total, done=0, failed=0, left=total)
+    last_print = [start]
+
+    def poll():
+        if store.exists():
+            new = (store.keys() & pending) - seen.keys()
+            for key in new:
+                record = store.get(key)
+                seen[key] = bool(record and record.get("converged"))
+        failed = sum(1 for ok in seen.values() if not ok)
+        progress.update(task, completed=len(seen), done=len(seen) - failed, failed=failed,
+                        left=total - len(seen))
+        if not console.is_terminal and time.monotonic() - last_print[0] > 30:
+            last_print[0] = time.monotonic()
+            console.print(f"  {len(seen)}/{total} points, {failed} failed, "
+                          f"{time.monotonic() - start:.0f} s")
+
+    with progress:
+        outcome = runner.run_snakemake(wd, config, options, lock, on_poll=poll)
+    return outcome
+
+
+def cmd_export(args) -> int:
+    from pesflow.results import points_table
+
+    campaign = _load(args.spec)
+    plan = _plan(campaign)
+    store = _store(campaign)
+    out = Path(args.output)
+    fmt = args.format or ("csv" if out.suffix.lower() == ".csv" else "parquet")
+    if args.what == "points":
+        table = points_table(plan, store)
+    else:
+        from pesflow.summary import summary_table
+
+        table = summary_table(campaign, points_table(plan, store))
+    tmp = out.with_name(f".{out.name}.tmp")
+    out.parent.mkdir(parents=True, exist_ok=True)
+    if fmt == "csv":
+        if "positions_angstrom" in table.columns:
+            table = table.assign(positions_angstrom=table["positions_angstrom"].map(
+                lambda p: " ".join(f"{x:.8f}" for x in p) if p is not None and len(p) else ""))
+        table.to_csv(tmp, index=False)
+    else:
+        table.to_parquet(tmp, index=False)
+    tmp.replace(out)
+    console.print(f"wrote {len(table)} rows ({args.what}) to {out}")
+    return EXIT_OK
+
+
+# ---------------------------------------------------------------------------
+# entry point
+# ---------------------------------------------------------------------------
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="pesflow",
+        description="Potential-energy-surface scans for sets of molecules at several levels "
+                    "of theory, run through Snakemake and PySCF, cached per point.")
+    parser.add_argument("--version", action="version", version=f"pesflow {__version__}")
+    sub = parser.add_subparsers(dest="verb", required=True, metavar="VERB")
+
+    def add(name, func, help_):
+        p = sub.add_parser(name, help=help_, description=help_)
+        p.add_argument("spec", help="campaign spec (YAML)")
+        p.set_defaults(func=func)
+        return p
+
+    add("check", cmd_check, "validate a campaign spec; nothing is computed")
+    p = add("plan", cmd_plan, "show points, batches and what is already cached")
+    p.add_argument("--cores", type=int, default=None, help="cores to plan batches for")
+    p = add("run", cmd_run, "compute what is missing (resumable)")
+    p.add_argument("--cores", type=int, default=None,
+                   help="cores for local execution (default: all)")
+    p.add_argument("--profile", default=None,
+                   help="Snakemake profile folder (e.g. configs/profiles/slurm)")
+    p.add_argument("--threads-per-batch", type=int, default=1,
+                   help="PySCF threads of each batch job (default 1: parallel batches beat "
+                        "threads on small molecules)")
+    p.add_argument("--retry-failed", action="store_true",
+                   help="recompute points stored as failed")
+    add("status", cmd_status, "done / failed / pending points per molecule and level")
+    p = add("export", cmd_export, "write the points (or per-curve summaries) as Parquet or CSV")
+    p.add_argument("-o", "--output", required=True, help="output file (.parquet or .csv)")
+    p.add_argument("--what", choices=("points", "summary"), default="points")
+    p.add_argument("--format", choices=("parquet", "csv"), default=None,
+                   help="default: from the file suffix")
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    for name in ("cores", "threads_per_batch"):
+        value = getattr(args, name, None)
+        if value is not None and value < 1:
+            err_console.print(f"error: --{name.replace('_', '-')} must be at least 1")
+            return EXIT_INVALID
+    try:
+        return args.func(args)
+    except SpecError as exc:
+        err_console.print(f"error: {exc}", markup=False, soft_wrap=True)
+        return EXIT_INVALID
+    except RunError as exc:
+        err_console.print(f"error: {exc}", markup=False, soft_wrap=True)
+        return EXIT_INVALID
+    except PesflowError as exc:
+        err_console.print(f"error: {exc}", markup=False, soft_wrap=True)
+        return EXIT_FAILED
+    except KeyboardInterrupt:
+        err_console.print("interrupted")
+        return EXIT_INTERRUPTED
+
+
+if __name__ == "__main__":
+    sys.exit(main())

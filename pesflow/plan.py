@@ -1,0 +1,250 @@
+"""Pure expansion of a campaign into points and batches (no I/O, no Snakemake).
+
+A *point* is one geometry at one level of theory; its key is a content hash
+(:mod:`pesflow.keys`).  A *geometry set* is the walk of one scan for one
+molecule (or a molecule's fragments for dissociation energies).  A *batch* is
+the unit of one Snakemake job: an ordered walk along part of one geometry set at
+one basis set and one SCF family (all wavefunction methods share one SCF per
+geometry; each DFT functional has its own), so that each point can start from
+its neighbour's converged density.
+
+>>> # plan = expand(campaign)
+>>> # batches = make_batches(plan, done=set(), cores=2)
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from importlib.metadata import version as _dist_version
+
+import numpy as np
+import pandas as pd
+
+from pesflow import coordinates, keys
+from pesflow.engine import scf_family
+
+#: Methods whose points are made from one shared SCF, in the order they are computed.
+_METHOD_ORDER = {"hf": 0, "mp2": 1, "ccsd": 2, "ccsd(t)": 3}
+#: Rough cost of a method relative to its SCF, for chunking only (common practice:
+#: correlated steps cost several SCFs on small molecules).
+_METHOD_WEIGHT = {"hf": 1.0, "mp2": 1.5, "ccsd": 6.0, "ccsd(t)": 9.0}
+
+
+def engine_version(name: str = "pyscf") -> str:
+    """Version of the engine's package, read from its metadata (no import)."""
+    return _dist_version(name)
+
+
+@dataclass
+class GeometrySet:
+    """The geometries of one walk, in walk order."""
+
+    set_id: int
+    molecule: str
+    scan: str
+    role: str  # "scan" or "fragment"
+    symbols: tuple[str, ...]
+    charge: int
+    multiplicity: int
+    coordinate_kinds: tuple[str, ...]
+    coordinate_atoms: tuple[tuple[int, ...], ...]
+    values: np.ndarray  # (m, k) scan values, angstrom / degree
+    grid_indices: np.ndarray  # (m, k)
+    positions: np.ndarray  # (m, n, 3) canonical, angstrom
+    digests: list[bytes] = field(repr=False, default_factory=list)
+
+
+@dataclass
+class Plan:
+    """Every point of a campaign and the geometry sets they come from."""
+
+    campaign: str
+    engine: str
+    engine_version: str
+    settings_key: dict
+    geometry_sets: list[GeometrySet]
+    #: one row per point: set_id, walk, molecule, scan, role, method, basis, level, family, key
+    points: pd.DataFrame
+
+    def geometry(self, set_id: int, walk: int):
+        gs = self.geometry_sets[set_id]
+        return gs.symbols, gs.positions[walk], gs.charge, gs.multiplicity
+
+
+@dataclass
+class Batch:
+    """One Snakemake job: an ordered walk at one basis and SCF family."""
+
+    batch_id: str
+    set_id: int
+    basis: str
+    family: str
+    #: (walk index, {method: key}) in walk order
+    entries: list[tuple[int, dict[str, str]]]
+    weight: float = 1.0
+
+
+def _coordinate_columns(kinds) -> list[str]:
+    """Column names of a scan's coordinates, unit in the name (r_angstrom, angle_degree, ...)."""
+    base = {"distance": "r", "angle": "angle", "dihedral": "dihedral"}
+    unit = {"distance": "angstrom", "angle": "degree", "dihedral": "degree"}
+    names, seen = [], {}
+    for kind in kinds:
+        seen[kind] = seen.get(kind, 0) + 1
+        suffix = "" if seen[kind] == 1 else str(seen[kind])
+        names.append(f"{base[kind]}{suffix}_{unit[kind]}")
+    return names
+
+
+coordinate_columns = _coordinate_columns
+
+
+def _scan_sets(campaign, start_id):
+    sets = []
+    for scan in campaign.scans.values():
+        grid = scan.grid()
+        idx = scan.grid_indices()
+        for mname in scan.molecules:
+            mol = campaign.molecules[mname]
+            spec = [(c.kind, c.atoms, mv) for c, mv in zip(scan.coordinates, scan.moving[mname])]
+            positions = coordinates.apply_grid(mol.atoms.get_positions(), spec, grid)
+            sets.append(GeometrySet(
+                set_id=start_id + len(sets), molecule=mname, scan=scan.name, role="scan",
+                symbols=mol.symbols, charge=mol.charge, multiplicity=mol.multiplicity,
+                coordinate_kinds=tuple(c.kind for c in scan.coordinates),
+                coordinate_atoms=tuple(c.atoms for c in scan.coordinates),
+                values=grid, grid_indices=idx, positions=keys.canonical_positions(positions),
+            ))
+    return sets
+
+
+def _fragment_sets(campaign, start_id):
+    sets = []
+    for mol in campaign.molecules.values():
+        positions = mol.atoms.get_positions()
+        for f, frag in enumerate(mol.fragments):
+            atoms = list(frag["atoms"])
+            sets.append(GeometrySet(
+                set_id=start_id + len(sets), molecule=mol.name, scan=f"fragment-{f + 1}",
+                role="fragment", symbols=tuple(mol.symbols[a] for a in atoms),
+                charge=frag["charge"], multiplicity=frag["multiplicity"],
+                coordinate_kinds=(), coordinate_atoms=(), values=np.zeros((1, 0)),
+                grid_indices=np.zeros((1, 0), dtype=int),
+                positions=keys.canonical_positions(positions[atoms][None]),
+            ))
+    return sets
+
+
+def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
+    """Expand a validated :class:`~pesflow.spec.Campaign` into every point.
+
+    Returns a :class:`Plan`; geometries are computed with vectorised rigid
+    displacements and rounded to the key precision.
+    """
+    version = version or engine_version(engine)
+    settings_key = campaign.engine_settings().key_dict()
+    sets = _scan_sets(campaign, 0)
+    sets += _fragment_sets(campaign, len(sets))
+    columns = {k: [] for k in ("set_id", "walk", "method", "basis", "key")}
+    for gs in sets:
+        gs.digests = keys.geometry_digests(gs.symbols, gs.positions)
+        walks = np.arange(len(gs.digests))
+        for level in campaign.levels:
+            prefix = keys.level_prefix(gs.charge, gs.multiplicity, level.method, level.basis,
+                                       settings_key, engine, version)
+            columns["key"].extend(keys.combine(prefix, d) for d in gs.digests)
+            columns["set_id"].append(np.full(len(walks), gs.set_id))
+            columns["walk"].append(walks)
+            columns["method"].extend([level.method] * len(walks))
+            columns["basis"].extend([level.basis] * len(walks))
+    set_id = np.concatenate(columns["set_id"]) if columns["set_id"] else np.zeros(0, int)
+    points = pd.DataFrame({
+        "set_id": set_id,
+        "walk": np.concatenate(columns["walk"]) if columns["walk"] else np.zeros(0, int),
+        "method": columns["method"],
+        "basis": columns["basis"],
+        "key": columns["key"],
+    })
+    meta = pd.DataFrame({
+        "set_id": [gs.set_id for gs in sets],
+        "molecule": [gs.molecule for gs in sets],
+        "scan": [gs.scan for gs in sets],
+        "role": [gs.role for gs in sets],
+    })
+    points = points.merge(meta, on="set_id", how="left")
+    points["level"] = points["method"] + "/" + points["basis"]
+    families = {m: scf_family(m) for m in points["method"].unique()}
+    points["family"] = points["method"].map(families)
+    return Plan(campaign=campaign.name, engine=engine, engine_version=version,
+                settings_key=settings_key, geometry_sets=sets, points=points)
+
+
+def points_frame(plan: Plan) -> pd.DataFrame:
+    """The points table with the coordinate values as columns (unit in each name)."""
+    frames = []
+    for gs in plan.geometry_sets:
+        sub = plan.points[plan.points["set_id"] == gs.set_id]
+        cols = _coordinate_columns(gs.coordinate_kinds)
+        sub = sub.copy()
+        for j, name in enumerate(cols):
+            sub[name] = gs.values[sub["walk"].to_numpy(), j]
+        frames.append(sub)
+    if not frames:
+        return plan.points.copy()
+    return pd.concat(frames, ignore_index=True)
+
+
+def _safe(text: str) -> str:
+    return re.sub(r"[^A-Za-z0-9]+", "_", text).strip("_").lower() or "x"
+
+
+def make_batches(plan: Plan, done: set[str], cores: int = 2, *, batches_per_core: int = 3,
+                 min_points_per_batch: int = 4) -> list[Batch]:
+    """Group the points not in ``done`` into batches.
+
+    Each batch is an ordered walk (walk order of its geometry set) at one basis
+    and SCF family, holding every pending method for each of its geometries.
+    Long walks are cut into chunks so that about ``batches_per_core * cores``
+    batches exist in all (a few per core keeps both cores busy while each job's
+    start-up stays a small share), never below ``min_points_per_batch``
+    geometries per chunk.
+    """
+    pts = plan.points
+    if done:
+        pending = pts[~pts["key"].isin(done)]
+    else:
+        pending = pts
+    if pending.empty:
+        return []
+    groups = []
+    for (set_id, basis, family), sub in pending.groupby(["set_id", "basis", "family"],
+                                                         sort=True):
+        entries = {}
+        for walk, method, key in zip(sub["walk"].to_numpy(), sub["method"], sub["key"]):
+            entries.setdefault(int(walk), {})[method] = key
+        ordered = []
+        for walk in sorted(entries):
+            methods = dict(sorted(entries[walk].items(),
+                                  key=lambda mk: _METHOD_ORDER.get(mk[0], 0)))
+            ordered.append((walk, methods))
+        weight = sum(max(_METHOD_WEIGHT.get(m, 1.0) for m in methods) for _, methods in ordered)
+        groups.append((int(set_id), basis, family, ordered, weight))
+    total_weight = sum(g[4] for g in groups)
+    target = max(len(groups), batches_per_core * max(1, cores))
+    batches = []
+    for set_id, basis, family, ordered, weight in groups:
+        gs = plan.geometry_sets[set_id]
+        n_chunks = max(1, int(round(target * weight / total_weight)))
+        n_chunks = min(n_chunks, max(1, len(ordered) // min_points_per_batch))
+        bounds = np.linspace(0, len(ordered), n_chunks + 1).round().astype(int)
+        stem = _safe(f"{gs.molecule}-{gs.scan}-{basis}-{family}")
+        for c in range(n_chunks):
+            chunk = ordered[bounds[c]:bounds[c + 1]]
+            if not chunk:
+                continue
+            first_key = next(iter(chunk[0][1].values()))
+            bid = f"{stem}-{c + 1:03d}-{first_key[:8]}"
+            batches.append(Batch(batch_id=bid, set_id=set_id, basis=basis, family=family,
+                                 entries=chunk, weight=weight * len(chunk) / len(ordered)))
+    return batches

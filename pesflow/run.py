@@ -1,0 +1,270 @@
+"""Drive a campaign through Snakemake: write batch tasks, run, watch, recover.
+
+``pesflow run`` plans what is missing, writes one task file per batch, and runs
+the workflow in ``workflows/`` with Snakemake's command line (local ``--cores N``
+by default, or any executor through ``--profile``).  While it runs, the store is
+watched for finished points to drive the progress display.
+
+Recovery: a run lock (``fcntl.flock`` on a file in the campaign's results
+folder, inherited by the Snakemake process) tells whether another run of the
+campaign is alive.  If none is, Snakemake's own stale locks and incomplete
+markers (left by a kill) are cleared before the run; if one is, the run is
+refused.  Signals: SIGINT, SIGTERM and SIGHUP to the driver are passed to
+Snakemake as SIGINT (which stops its jobs cleanly); if Snakemake has not ended
+after a grace period it is killed.  Every finished point is already durable.
+"""
+
+from __future__ import annotations
+
+import fcntl
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from pesflow.errors import RunError
+
+GRACE_S = 20.0
+
+
+def workflow_dir() -> Path:
+    """Folder of the Snakefile (the repository's ``workflows/``, or the installed copy)."""
+    here = Path(__file__).resolve().parent
+    for candidate in (here.parent / "workflows", here / "workflows"):
+        if (candidate / "Snakefile").exists():
+            return candidate
+    raise RunError("cannot find the pesflow workflow (workflows/Snakefile); reinstall pesflow")
+
+
+@dataclass
+class RunOptions:
+    """Execution settings (never science settings: those live in the spec)."""
+
+    cores: int | None = None
+    profile: str | None = None
+    threads_per_batch: int = 1
+    mem_mb_per_batch: int = 4000
+    runtime_min_per_batch: int = 600
+    retry_failed: bool = False
+    batches_per_core: int = 3
+    extra_args: list[str] = field(default_factory=list)
+
+
+def workdir(campaign) -> Path:
+    """Snakemake's working folder of a campaign (tasks, done markers, logs, .snakemake)."""
+    return campaign.results_path / ".pesflow" / "workflow"
+
+
+def _atomic_write_text(path: Path, text: str) -> None:
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    with open(tmp, "w") as fh:
+        fh.write(text)
+        fh.flush()
+        os.fsync(fh.fileno())
+    os.replace(tmp, path)
+
+
+def task_dict(plan, batch, store_root, recompute=()) -> dict:
+    """The task file content of one batch (everything the worker needs)."""
+    from pesflow.batch import TASK_FORMAT, TASK_VERSION
+
+    gs = plan.geometry_sets[batch.set_id]
+    keys = {k for _, methods in batch.entries for k in methods.values()}
+    return {
+        "format": TASK_FORMAT,
+        "version": TASK_VERSION,
+        "batch_id": batch.batch_id,
+        "campaign": plan.campaign,
+        "molecule": gs.molecule,
+        "scan": gs.scan,
+        "store": str(store_root),
+        "engine": plan.engine,
+        "engine_version": plan.engine_version,
+        "settings": plan.settings_key,
+        "basis": batch.basis,
+        "family": batch.family,
+        "symbols": list(gs.symbols),
+        "charge": gs.charge,
+        "multiplicity": gs.multiplicity,
+        "recompute": sorted(keys & set(recompute)),
+        "points": [
+            {"walk": walk, "positions": gs.positions[walk].tolist(), "keys": methods}
+            for walk, methods in batch.entries
+        ],
+    }
+
+
+def write_tasks(plan, batches, store_root, wd: Path, options: RunOptions, recompute=()):
+    """Write the task files and the Snakemake config; clear stale done markers."""
+    (wd / "tasks").mkdir(parents=True, exist_ok=True)
+    (wd / "done").mkdir(parents=True, exist_ok=True)
+    for batch in batches:
+        _atomic_write_text(wd / "tasks" / f"{batch.batch_id}.json",
+                           json.dumps(task_dict(plan, batch, store_root, recompute)))
+        marker = wd / "done" / f"{batch.batch_id}.json"
+        if marker.exists():
+            marker.unlink()
+    config = {
+        "campaign": plan.campaign,
+        "python": sys.executable,
+        "batches": [b.batch_id for b in batches],
+        "threads_per_batch": options.threads_per_batch,
+        "mem_mb_per_batch": options.mem_mb_per_batch,
+        "runtime_min_per_batch": options.runtime_min_per_batch,
+    }
+    path = wd / "config.json"
+    _atomic_write_text(path, json.dumps(config, indent=1))
+    return path
+
+
+class RunLock:
+    """An exclusive lock on a campaign's results folder, alive while any process holds it."""
+
+    def __init__(self, path: Path):
+        self.path = path
+        self.fd = None
+
+    def acquire(self):
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            try:
+                holder = os.read(fd, 64).decode().strip() or "unknown"
+            finally:
+                os.close(fd)
+            raise RunError(
+                f"another pesflow run of this campaign is alive (pid {holder}); nothing was "
+                f"started. Wait for it, or stop it, then run again ({self.path})"
+            ) from None
+        os.ftruncate(fd, 0)
+        os.write(fd, str(os.getpid()).encode())
+        self.fd = fd
+        return self
+
+    def release(self):
+        if self.fd is not None:
+            os.close(self.fd)
+            self.fd = None
+
+
+def snakemake_command(wd: Path, config_path: Path, options: RunOptions) -> list[str]:
+    """The Snakemake command line for a run."""
+    wf = workflow_dir()
+    cmd = [
+        sys.executable, "-m", "snakemake",
+        "--snakefile", str(wf / "Snakefile"),
+        "--directory", str(wd),
+        "--configfile", str(config_path),
+        "--rerun-incomplete",
+        "--rerun-triggers", "mtime",
+        "--keep-going",
+        "--scheduler", "greedy",
+        "--show-failed-logs",
+    ]
+    if options.profile:
+        cmd += ["--profile", str(Path(options.profile).resolve())]
+    if options.cores is not None or not options.profile:
+        cmd += ["--cores", str(options.cores or os.cpu_count() or 1)]
+    return cmd + list(options.extra_args)
+
+
+def _clear_stale_snakemake_locks(wd: Path, config_path: Path, log) -> None:
+    locks = wd / ".snakemake" / "locks"
+    if locks.exists() and any(locks.iterdir()):
+        cmd = [sys.executable, "-m", "snakemake", "--snakefile",
+               str(workflow_dir() / "Snakefile"), "--directory", str(wd), "--configfile",
+               str(config_path), "--unlock", "--cores", "1"]
+        subprocess.run(cmd, stdout=log, stderr=subprocess.STDOUT, check=False)
+
+
+def _descendants(pid: int) -> list[int]:
+    """Process ids below ``pid`` (from /proc; empty where /proc is absent)."""
+    children: dict[int, list[int]] = {}
+    proc = Path("/proc")
+    if not proc.exists():
+        return []
+    for entry in proc.iterdir():
+        if not entry.name.isdigit():
+            continue
+        try:
+            stat = (entry / "stat").read_text()
+        except OSError:
+            continue
+        ppid = int(stat.rsplit(")", 1)[1].split()[1])
+        children.setdefault(ppid, []).append(int(entry.name))
+    out, todo = [], [pid]
+    while todo:
+        for child in children.get(todo.pop(), []):
+            out.append(child)
+            todo.append(child)
+    return out
+
+
+def kill_tree(pid: int) -> None:
+    """SIGKILL a process and everything it started (a last resort after the grace period)."""
+    for p in [pid, *_descendants(pid)]:
+        try:
+            os.kill(p, signal.SIGKILL)
+        except ProcessLookupError:
+            pass
+
+
+@dataclass
+class RunOutcome:
+    returncode: int  # Snakemake's exit code
+    interrupted: bool
+    log_path: Path
+
+
+def run_snakemake(wd: Path, config_path: Path, options: RunOptions, lock: RunLock,
+                  on_poll=None, poll_s: float = 0.5) -> RunOutcome:
+    """Run Snakemake to the end, calling ``on_poll()`` every ``poll_s`` seconds.
+
+    Signals to this process are forwarded to Snakemake as SIGINT.
+    """
+    logs = wd / "logs"
+    logs.mkdir(parents=True, exist_ok=True)
+    log_path = logs / f"snakemake-{time.strftime('%Y%m%dT%H%M%S')}-{os.getpid()}.log"
+    interrupted = {"flag": False, "at": None}
+    with open(log_path, "w") as log:
+        _clear_stale_snakemake_locks(wd, config_path, log)
+        log.flush()
+        env = dict(os.environ)
+        env.setdefault("OMP_NUM_THREADS", str(options.threads_per_batch))
+        proc = subprocess.Popen(
+            snakemake_command(wd, config_path, options), stdout=log, stderr=subprocess.STDOUT,
+            stdin=subprocess.DEVNULL, env=env, pass_fds=(lock.fd,),
+        )
+
+        def forward(signum, frame):
+            interrupted["flag"] = True
+            if interrupted["at"] is None:
+                interrupted["at"] = time.monotonic()
+            if proc.poll() is None:
+                proc.send_signal(signal.SIGINT)
+
+        previous = {s: signal.signal(s, forward)
+                    for s in (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)}
+        try:
+            while True:
+                try:
+                    rc = proc.wait(timeout=poll_s)
+                    break
+                except subprocess.TimeoutExpired:
+                    pass
+                if on_poll is not None:
+                    on_poll()
+                if interrupted["at"] is not None and time.monotonic() - interrupted["at"] > GRACE_S:
+                    kill_tree(proc.pid)
+        finally:
+            for s, handler in previous.items():
+                signal.signal(s, handler)
+    if on_poll is not None:
+        on_poll()
+    return RunOutcome(returncode=rc, interrupted=interrupted["flag"], log_path=log_path)

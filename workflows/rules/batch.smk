@@ -1,0 +1,19 @@
+# One batch = an ordered walk of single points at one basis and SCF family.
+# Each finished point is written to the store by pesflow.batch; the done marker
+# only tells Snakemake that the job ended.
+
+
+rule batch:
+    input:
+        task="tasks/{batch}.json",
+    output:
+        done="done/{batch}.json",
+    log:
+        "logs/{batch}.log",
+    threads: get_threads()
+    resources:
+        mem_mb=get_mem_mb(),
+        runtime=get_runtime_min(),
+    shell:
+        'OMP_NUM_THREADS={threads} "{PYTHON}" -m pesflow.batch {input.task} {output.done} '
+        "--threads {threads} > {log} 2>&1"
