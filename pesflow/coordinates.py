@@ -190,7 +190,9 @@ def moving_atoms(atoms, kind, indices, move=None):
     cut = indices[:2] if kind == "distance" else indices[1:3]
     graph[cut[0], cut[1]] = 0
     graph[cut[1], cut[0]] = 0
-    _, labels = csgraph.connected_components(graph.tocsr(), directed=False)
+    graph = graph.tocsr()
+    graph.eliminate_zeros()  # an explicitly stored zero would still count as an edge
+    _, labels = csgraph.connected_components(graph, directed=False)
     sides = {labels[indices[-1]]}
     if kind == "dihedral":
         sides.add(labels[indices[2]])
