@@ -532,7 +532,10 @@ def _resolve_molecule(name, spec: MoleculeSpec, base: Path, err) -> Molecule:
     problem = None
     multiplicity = spec.multiplicity
     if multiplicity is None:
-        multiplicity = mol.default_multiplicity(atoms, spec.charge)
+        try:
+            multiplicity = mol.default_multiplicity(atoms, spec.charge)
+        except ValueError as exc:
+            raise err(loc + ("charge",), str(exc)) from None
         problem = mol.multiplicity_problem(atoms, spec.charge, multiplicity)
         if problem is not None:
             raise err(loc + ("charge",), problem)

@@ -1,0 +1,7 @@
+"""``python -m pesflow`` runs the command line."""
+
+import sys
+
+from pesflow.cli import main
+
+sys.exit(main())
