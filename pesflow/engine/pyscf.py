@@ -268,7 +268,7 @@ class PySCFEngine:
     >>> geometry = Geometry(("H", "H"), [[0, 0, 0], [0, 0, 0.74]])
     >>> records, density = engine.compute(geometry, "sto-3g", ["hf"], EngineSettings())
     >>> round(records["hf"].energy_hartree, 4)
-    -1.1167
+    -1.1168
     """
 
     name = "pyscf"

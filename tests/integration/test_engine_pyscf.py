@@ -1,0 +1,314 @@
+"""The PySCF backend against published energies and against plain PySCF runs.
+
+Reference values quoted from PySCF's own test suite (repository pyscf/pyscf, file
+named beside each value) are same-code values at the same geometry and basis, so
+they are asserted to 1e-8 hartree; the other tolerances say why they are wider.
+Each test is a small molecule in a small basis (a second or two at most).
+"""
+
+import math
+import os
+
+import numpy as np
+import pytest
+from pyscf import cc, dft, gto, mp, scf
+
+import pesflow.engine.pyscf as engine_module
+from pesflow.engine import EngineSettings, Geometry, get_engine
+from pesflow.errors import EngineSetupError
+from pesflow.units import BOHR_ANGSTROM
+
+pytestmark = pytest.mark.integration
+
+#: Water at the geometry of PySCF's test suite (angstrom): O at the origin,
+#: H at (0, -+0.757, 0.587).
+WATER_SYMBOLS = ("O", "H", "H")
+WATER_ANGSTROM = [[0.0, 0.0, 0.0], [0.0, -0.757, 0.587], [0.0, 0.757, 0.587]]
+#: Tight SCF so that correlated energies can be compared with references to 1e-8.
+TIGHT = EngineSettings(conv_tol=1e-12)
+
+
+@pytest.fixture(scope="module")
+def engine():
+    return get_engine("pyscf")
+
+
+def water(charge=0, multiplicity=1):
+    return Geometry(WATER_SYMBOLS, WATER_ANGSTROM, charge=charge, multiplicity=multiplicity)
+
+
+def plain_mole(geometry, basis):
+    atom = [
+        (s, tuple(x)) for s, x in zip(geometry.symbols, geometry.positions_angstrom, strict=True)
+    ]
+    return gto.M(
+        atom=atom,
+        basis=basis,
+        charge=geometry.charge,
+        spin=geometry.spin,
+        unit="Angstrom",
+        verbose=0,
+    )
+
+
+# --- published values -------------------------------------------------------------
+
+
+def test_water_rhf_631g_matches_pyscf_test_suite(engine):
+    records, _ = engine.compute(water(), "6-31g", ["hf"], TIGHT)
+    hf = records["hf"]
+    # pyscf/pyscf, pyscf/scf/test/test_h2o.py (test_nr_rhf): RHF/6-31G = -75.98394849812
+    assert hf.energy_hartree == pytest.approx(-75.98394849812, abs=1e-8)
+    assert hf.converged and hf.error is None
+    assert hf.reference == "RHF" and math.isnan(hf.s2)
+
+
+def test_water_ccsd_t_ccpvdz_matches_pyscf_test_suite(engine):
+    records, _ = engine.compute(water(), "cc-pvdz", ["hf", "mp2", "ccsd(t)"], TIGHT)
+    e_hf = records["hf"].energy_hartree
+    # pyscf/pyscf, pyscf/scf/test/test_uhf.py (test_scf): HF/cc-pVDZ = -76.026765673119627
+    assert e_hf == pytest.approx(-76.026765673119627, abs=1e-8)
+    # pyscf/pyscf, pyscf/mp/test/test_mp2.py (test_mp2): E_corr(MP2) = -0.204019967288338
+    assert records["mp2"].energy_hartree - e_hf == pytest.approx(-0.204019967288338, abs=1e-8)
+    # pyscf/pyscf, pyscf/cc/test/test_h2o.py (test_ccsd): E_corr(CCSD) = -0.2133432312951
+    e_ccsd = records["ccsd"].energy_hartree
+    assert e_ccsd - e_hf == pytest.approx(-0.2133432312951, abs=1e-8)
+    # pyscf/pyscf, pyscf/cc/test/test_ccsd_t.py (test_ccsd_t_symm): (T) = -0.003060022611584471
+    e_triples = records["ccsd(t)"].energy_hartree - e_ccsd
+    assert e_triples == pytest.approx(-0.003060022611584471, abs=1e-8)
+
+
+def test_water_frozen_core_matches_pyscf_test_suite(engine):
+    settings = EngineSettings(conv_tol=1e-12, frozen_core=True)
+    records, _ = engine.compute(water(), "cc-pvdz", ["hf", "mp2", "ccsd"], settings)
+    e_hf = records["hf"].energy_hartree
+    # Frozen core of water = the O 1s orbital (PySCF's chemcore gives 1).
+    # pyscf/pyscf, pyscf/mp/test/test_mp2.py (test_mp2_frozen, frozen=[0]): -0.20168270592254167
+    assert records["mp2"].energy_hartree - e_hf == pytest.approx(-0.20168270592254167, abs=1e-8)
+    # pyscf/pyscf, pyscf/cc/test/test_h2o.py (test_ccsd_frozen, frozen=1): -0.21124878189922872
+    assert records["ccsd"].energy_hartree - e_hf == pytest.approx(-0.21124878189922872, abs=1e-8)
+
+
+def test_water_cation_rohf_when_asked(engine):
+    settings = EngineSettings(conv_tol=1e-12, reference="restricted-open")
+    records, _ = engine.compute(water(charge=1, multiplicity=2), "6-31g", ["hf"], settings)
+    hf = records["hf"]
+    # pyscf/pyscf, pyscf/scf/test/test_h2o.py (test_nr_rohf):
+    # ROHF/6-31G of H2O+ (charge 1, spin 1) = -75.578396379589748
+    assert hf.energy_hartree == pytest.approx(-75.578396379589748, abs=1e-8)
+    assert hf.reference == "ROHF"
+    # A restricted-open doublet is a pure spin state: <S^2> = S(S+1) = 3/4 exactly.
+    assert hf.s2 == pytest.approx(0.75, abs=1e-10)
+
+
+def test_triplet_water_unrestricted_mp2_and_triples_match_pyscf_test_suite(engine):
+    triplet = water(multiplicity=3)
+    records, _ = engine.compute(triplet, "cc-pvdz", ["hf", "mp2"], TIGHT)
+    assert records["hf"].reference == "UHF"
+    # pyscf/pyscf, pyscf/mp/test/test_ump2.py (test_ump2):
+    # E_corr(UMP2/cc-pVDZ), spin=2 = -0.16575150552336643
+    e_corr = records["mp2"].energy_hartree - records["hf"].energy_hartree
+    assert e_corr == pytest.approx(-0.16575150552336643, abs=1e-8)
+
+    records, _ = engine.compute(triplet, "3-21g", ["ccsd(t)"], EngineSettings(conv_tol=1e-14))
+    e_triples = records["ccsd(t)"].energy_hartree - records["ccsd"].energy_hartree
+    # pyscf/pyscf, pyscf/cc/test/test_uccsd_t.py (test_uccsd_t):
+    # UCCSD (T) correction/3-21G, spin=2 = -0.0009857042572475674
+    assert e_triples == pytest.approx(-0.0009857042572475674, abs=1e-8)
+    # A UHF triplet carries a little contamination above S(S+1) = 2.
+    assert 2.0 < records["ccsd"].s2 < 2.01
+
+
+def test_hydrogen_atom_sto3g_and_near_the_exact_limit(engine):
+    h = Geometry(("H",), [[0.0, 0.0, 0.0]], multiplicity=2)
+    records, _ = engine.compute(h, "sto-3g", ["hf"], TIGHT)
+    # pyscf/pyscf, pyscf/scf/test/test_uhf.py (test_1e): UHF of H in STO-3G = -0.46658184955727555
+    assert records["hf"].energy_hartree == pytest.approx(-0.46658184955727555, abs=1e-8)
+    assert records["hf"].reference == "UHF"
+    # One electron: UHF is exact within the basis and <S^2> = 3/4 exactly.
+    assert records["hf"].s2 == pytest.approx(0.75, abs=1e-12)
+
+    records, _ = engine.compute(h, "cc-pv5z", ["hf"], TIGHT)
+    # Exact non-relativistic H atom: E = -1/2 hartree (Schroedinger's analytic solution).
+    # The variational principle puts a finite basis above it; cc-pV5Z's s,p,d,f,g set
+    # misses the cusp by a few microhartree, hence the one-sided 1e-5 window.
+    assert 0.0 < records["hf"].energy_hartree + 0.5 < 1e-5
+
+
+def test_h2_cation_near_the_exact_energy(engine):
+    h2_plus = Geometry(("H", "H"), [[0, 0, 0], [0, 0, 2.0 * BOHR_ANGSTROM]], 1, 2)
+    records, _ = engine.compute(h2_plus, "cc-pvqz", ["hf"], TIGHT)
+    # Exact Born-Oppenheimer energy of H2+ at R = 2.0 bohr, including 1/R nuclear
+    # repulsion: -0.6026342144949 hartree (Bates, Ledsham & Stewart 1953; value from
+    # memory).  One electron, so UHF is exact in its basis; cc-pVQZ stays ~0.1 mEh above.
+    assert 0.0 < records["hf"].energy_hartree + 0.6026342144949 < 2e-4
+
+
+# --- reference choice --------------------------------------------------------------
+
+
+def test_auto_reference_rhf_for_water_uhf_for_hydroxyl(engine):
+    settings = EngineSettings()
+    records, density = engine.compute(water(), "6-31g", ["hf"], settings)
+    assert records["hf"].reference == "RHF" and math.isnan(records["hf"].s2)
+    assert density.shape == (13, 13)
+
+    oh = Geometry(("O", "H"), [[0, 0, 0], [0, 0, 0.97]], multiplicity=2)
+    records, density = engine.compute(oh, "6-31g", ["hf"], settings)
+    hf = records["hf"]
+    assert hf.reference == "UHF" and density.shape == (2, 11, 11)
+    # Doublet: S(S+1) = 0.75; UHF's spin contamination for OH is a few thousandths.
+    assert 0.75 < hf.s2 < 0.76
+    plain = scf.UHF(plain_mole(oh, "6-31g")).run(conv_tol=1e-10)
+    assert hf.energy_hartree == pytest.approx(plain.e_tot, abs=1e-8)
+    assert hf.s2 == pytest.approx(plain.spin_square()[0], abs=1e-6)
+
+
+# --- one SCF serves every method ----------------------------------------------------
+
+
+def test_shared_scf_equals_plain_pyscf_step_by_step(engine):
+    geometry = Geometry(("F", "H"), [[0, 0, 0], [0, 0, 0.92]])
+    settings = EngineSettings()
+    records, _ = engine.compute(geometry, "cc-pvdz", ["hf", "mp2", "ccsd(t)"], settings)
+    assert list(records) == ["hf", "mp2", "ccsd", "ccsd(t)"]
+
+    mf = scf.RHF(plain_mole(geometry, "cc-pvdz")).run(conv_tol=1e-10)
+    e_mp2 = mp.MP2(mf).run().e_tot
+    mycc = cc.CCSD(mf).set(conv_tol=1e-10).run()
+    e_ccsd_t = mycc.e_tot + mycc.ccsd_t()
+    assert records["hf"].energy_hartree == pytest.approx(mf.e_tot, abs=1e-8)
+    assert records["mp2"].energy_hartree == pytest.approx(e_mp2, abs=1e-8)
+    assert records["ccsd"].energy_hartree == pytest.approx(mycc.e_tot, abs=1e-8)
+    assert records["ccsd(t)"].energy_hartree == pytest.approx(e_ccsd_t, abs=1e-8)
+
+    cycles = {r.scf_cycles for r in records.values()}
+    assert len(cycles) == 1 and cycles.pop() > 0  # one SCF, reported on every record
+    hf, ccsd, ccsd_t = records["hf"], records["ccsd"], records["ccsd(t)"]
+    assert hf.wall_s == hf.step_wall_s
+    assert ccsd_t.wall_s == pytest.approx(hf.wall_s + ccsd_t.step_wall_s)
+    assert ccsd_t.step_wall_s >= ccsd.step_wall_s > 0
+
+
+def test_ccsd_failure_is_recorded_on_its_records_only(engine, monkeypatch):
+    # Two CCSD iterations cannot reach 1e-10: the failure belongs to ccsd and ccsd(t).
+    monkeypatch.setattr(engine_module, "CCSD_MAX_CYCLE", 2)
+    geometry = Geometry(("F", "H"), [[0, 0, 0], [0, 0, 0.92]])
+    records, density = engine.compute(geometry, "6-31g", ["hf", "mp2", "ccsd(t)"], TIGHT)
+    assert records["hf"].converged and records["mp2"].converged
+    for name in ("ccsd", "ccsd(t)"):
+        assert not records[name].converged and math.isnan(records[name].energy_hartree)
+        assert records[name].error == "ConvergenceError: CCSD did not converge in 2 iterations"
+    assert density is not None  # the SCF itself converged and still serves the walk
+
+
+# --- SCF ladder ---------------------------------------------------------------------
+
+#: Water with both O-H bonds at 2.0 angstrom: plain DIIS needs about 12 iterations.
+STRETCHED_WATER_ANGSTROM = [[0, 0, 0], [0, -1.6, 1.2], [0, 1.6, 1.2]]
+
+
+def test_scf_failure_is_recorded_not_raised(engine):
+    geometry = Geometry(WATER_SYMBOLS, STRETCHED_WATER_ANGSTROM)
+    settings = EngineSettings(max_cycle=3, scf_ladder=("default",))
+    records, density = engine.compute(geometry, "6-31g", ["hf", "mp2"], settings)
+    assert density is None
+    for record in records.values():
+        assert not record.converged and math.isnan(record.energy_hartree)
+        assert record.error == "SCF did not converge after rungs: default"
+        assert [a["rung"] for a in record.attempts] == ["default"]
+        assert record.attempts[0]["cycles"] == 3 and not record.attempts[0]["converged"]
+
+
+def test_later_rung_converges_and_attempts_are_in_order(engine):
+    geometry = Geometry(WATER_SYMBOLS, STRETCHED_WATER_ANGSTROM)
+    # Three iterations per rung: DIIS, damping and level shifting all run out; the
+    # second-order (Newton) solver converges quadratically within its three.
+    settings = EngineSettings(max_cycle=3)
+    records, density = engine.compute(geometry, "6-31g", ["hf"], settings)
+    hf = records["hf"]
+    rungs = [a["rung"] for a in hf.attempts]
+    assert rungs == ["default", "damped", "level-shift", "second-order"]
+    assert [a["converged"] for a in hf.attempts] == [False, False, False, True]
+    assert hf.converged and hf.error is None and density is not None
+    assert hf.scf_cycles == sum(a["cycles"] for a in hf.attempts)
+    plain = scf.RHF(plain_mole(geometry, "6-31g")).run(conv_tol=1e-10)
+    assert plain.converged
+    assert hf.energy_hartree == pytest.approx(plain.e_tot, abs=1e-8)
+
+
+# --- the scanner idea: start from the neighbour ---------------------------------------
+
+
+def test_neighbour_density_saves_cycles_and_gives_the_same_energy(engine):
+    settings = EngineSettings()
+    first = Geometry(WATER_SYMBOLS, [[0, 0, 0], [0, -0.757, 0.587], [0, 0.757, 0.587]])
+    second = Geometry(WATER_SYMBOLS, [[0, 0, 0], [0, -0.767, 0.597], [0, 0.767, 0.597]])
+    _, density = engine.compute(first, "cc-pvdz", ["hf"], settings)
+    from_scratch, _ = engine.compute(second, "cc-pvdz", ["hf"], settings)
+    from_neighbour, _ = engine.compute(second, "cc-pvdz", ["hf"], settings, guess=density)
+    scratch, neighbour = from_scratch["hf"], from_neighbour["hf"]
+    assert neighbour.scf_cycles < scratch.scf_cycles
+    assert neighbour.energy_hartree == pytest.approx(scratch.energy_hartree, abs=1e-8)
+
+
+def test_guess_of_another_shape_is_converted_or_ignored(engine):
+    settings = EngineSettings()
+    records, rhf_density = engine.compute(water(), "6-31g", ["hf"], settings)
+    e_rhf = records["hf"].energy_hartree
+    # A restricted density handed to an unrestricted SCF is split into alpha and beta.
+    unrestricted = EngineSettings(reference="unrestricted")
+    records, uhf_density = engine.compute(water(), "6-31g", ["hf"], unrestricted, rhf_density)
+    assert records["hf"].reference == "UHF" and records["hf"].converged
+    assert records["hf"].energy_hartree == pytest.approx(e_rhf, abs=1e-8)
+    # And back: the alpha and beta densities are summed for a restricted SCF.
+    records, _ = engine.compute(water(), "6-31g", ["hf"], settings, guess=uhf_density)
+    assert records["hf"].energy_hartree == pytest.approx(e_rhf, abs=1e-8)
+    # A density of another basis cannot be used; it is ignored.
+    records, _ = engine.compute(water(), "6-31g", ["hf"], settings, guess=np.eye(3))
+    assert records["hf"].energy_hartree == pytest.approx(e_rhf, abs=1e-8)
+
+
+# --- DFT --------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("grid_level", [1, 3])
+def test_b3lyp_equals_plain_pyscf_rks_at_the_same_grid(engine, grid_level):
+    settings = EngineSettings(grid_level=grid_level)
+    records, _ = engine.compute(water(), "6-31g", ["B3LYP"], settings)
+    record = records["b3lyp"]
+    assert record.reference == "RKS" and record.converged
+    mf = dft.RKS(plain_mole(water(), "6-31g"))
+    mf.xc = "b3lyp"
+    mf.grids.level = grid_level
+    mf.conv_tol = 1e-10
+    mf.kernel()
+    assert record.energy_hartree == pytest.approx(mf.e_tot, abs=1e-8)
+
+
+def test_grid_level_reaches_the_functional(engine):
+    coarse, _ = engine.compute(water(), "6-31g", ["b3lyp"], EngineSettings(grid_level=0))
+    fine, _ = engine.compute(water(), "6-31g", ["b3lyp"], EngineSettings(grid_level=3))
+    # The grid error of level 0 is far above the SCF tolerance (common practice: levels
+    # 0-1 are for tests only); equal energies would mean the setting was not applied.
+    assert abs(coarse["b3lyp"].energy_hartree - fine["b3lyp"].energy_hartree) > 1e-6
+
+
+# --- setup errors are raised before computing; no stray files -------------------------
+
+
+def test_setup_errors_are_raised_before_computing(engine):
+    settings = EngineSettings()
+    with pytest.raises(EngineSetupError, match="cannot have multiplicity 2"):
+        engine.compute(water(multiplicity=2), "6-31g", ["hf"], settings)  # 10 electrons
+    with pytest.raises(EngineSetupError, match="element Kr"):
+        engine.compute(Geometry(("Kr",), [[0, 0, 0]]), "6-31g", ["hf"], settings)
+    with pytest.raises(EngineSetupError, match="share one SCF"):
+        engine.compute(water(), "6-31g", ["hf", "b3lyp"], settings)
+    with pytest.raises(EngineSetupError, match="unknown method"):
+        engine.compute(water(), "6-31g", ["rhf"], settings)
+
+
+def test_no_stray_files(engine, tmp_path):
+    engine.compute(water(), "sto-3g", ["hf", "ccsd"], EngineSettings())
+    assert os.listdir(tmp_path) == []
