@@ -77,6 +77,7 @@ class Geometry:
             )
         if not np.all(np.isfinite(positions)):
             raise EngineSetupError("positions_angstrom contains a non-finite coordinate")
+        _check_distinct_positions(positions)
         if int(self.multiplicity) < 1:
             raise EngineSetupError(f"multiplicity must be 1 or more, got {self.multiplicity}")
         positions.flags.writeable = False
@@ -89,6 +90,19 @@ class Geometry:
     def spin(self) -> int:
         """Number of unpaired electrons, 2S = multiplicity - 1 (PySCF's ``spin``)."""
         return self.multiplicity - 1
+
+
+def _check_distinct_positions(positions, tolerance_angstrom=1e-5):
+    # Two nuclei at one point have infinite repulsion; PySCF would fail in every SCF.
+    from scipy.spatial.distance import pdist, squareform
+
+    if len(positions) < 2:
+        return
+    distances = squareform(pdist(positions))
+    np.fill_diagonal(distances, np.inf)
+    i, j = np.unravel_index(np.argmin(distances), distances.shape)
+    if distances[i, j] < tolerance_angstrom:
+        raise EngineSetupError(f"atoms {min(i, j) + 1} and {max(i, j) + 1} have the same position")
 
 
 @dataclass(frozen=True)

@@ -183,6 +183,8 @@ def test_geometry_checks_its_shape_and_keeps_angstrom_arrays():
     assert g.positions_angstrom.dtype == np.float64 and g.spin == 1
     with pytest.raises(EngineSetupError, match="shape"):
         Geometry(("O", "H"), [[0, 0, 0]])
+    with pytest.raises(EngineSetupError, match="atoms 1 and 3 have the same position"):
+        Geometry(("O", "H", "H"), [[0, 0, 0], [0, 0, 0.97], [0, 0, 0]])
 
 
 def test_get_engine():
