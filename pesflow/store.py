@@ -452,7 +452,7 @@ class PointStore:
         marker = self.root / "STORE.json"
         try:
             text = marker.read_text(encoding="utf-8")
-        except FileNotFoundError:
+        except (FileNotFoundError, NotADirectoryError):
             if self.root.is_dir():
                 # Dot-names are temp files of a process creating this store right now.
                 foreign = {p.name for p in self.root.iterdir() if p.name[0] != "."} - {
