@@ -44,10 +44,17 @@ def _plan(campaign):
     return expand(campaign)
 
 
+def _report_quarantined(store) -> None:
+    for path, reason in store.last_quarantined:
+        err_console.print(f"warning: corrupt store file {path} set aside ({reason}); its points "
+                          "will be computed again", markup=False, soft_wrap=True)
+
+
 def _done_keys(store, retry_failed=False) -> set[str]:
     if not store.exists():
         return set()
     keys = store.keys()
+    _report_quarantined(store)
     if retry_failed:
         table = store.status_table(columns=("key", "converged"))
         failed = {k for k, c in zip(table.column("key").to_pylist(),

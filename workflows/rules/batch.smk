@@ -11,9 +11,11 @@ rule batch:
     log:
         "logs/{batch}.log",
     threads: get_threads()
+    params:
+        python=PYTHON,
     resources:
         mem_mb=get_mem_mb(),
         runtime=get_runtime_min(),
     shell:
-        'OMP_NUM_THREADS={threads} "{PYTHON}" -m pesflow.batch {input.task} {output.done} '
+        'OMP_NUM_THREADS={threads} "{params.python}" -m pesflow.batch {input.task} {output.done} '
         "--threads {threads} > {log} 2>&1"

@@ -1,0 +1,119 @@
+"""Planning: expansion into points, stable content keys, batches."""
+
+import textwrap
+from pathlib import Path
+
+import numpy as np
+
+from pesflow import coordinates, keys
+from pesflow.plan import expand, make_batches, points_frame
+from pesflow.spec import load_campaign
+
+SPEC = """\
+campaign: plan-test
+molecules:
+  hf_molecule: {builtin: HF}
+  water: {builtin: H2O}
+scans:
+  stretch:
+    molecules: [hf_molecule]
+    coordinates:
+      - {type: distance, atoms: [1, 2], from: 0.8, to: 1.2, points: 9}
+  grid:
+    molecules: [water]
+    coordinates:
+      - {type: distance, atoms: [1, 2], values: [0.9, 1.0, 1.1]}
+      - {type: distance, atoms: [1, 3], values: [0.9, 1.0]}
+levels:
+  - {method: [hf, mp2], basis: sto-3g}
+  - {method: b3lyp, basis: sto-3g}
+"""
+
+
+def campaign(text=SPEC, name="c.yaml"):
+    Path(name).write_text(textwrap.dedent(text))
+    return load_campaign(name)
+
+
+def test_expansion_counts_and_columns():
+    plan = expand(campaign(), version="test")
+    # (9 stretch + 6 grid points) x 3 levels
+    assert len(plan.points) == (9 + 6) * 3
+    assert plan.points["key"].is_unique
+    frame = points_frame(plan)
+    stretch = frame[(frame.scan == "stretch") & (frame.level == "hf/sto-3g")]
+    np.testing.assert_allclose(stretch["r_angstrom"], np.linspace(0.8, 1.2, 9))
+    grid = frame[(frame.scan == "grid") & (frame.level == "hf/sto-3g")]
+    assert set(zip(grid["r_angstrom"], grid["r2_angstrom"])) == {
+        (a, b) for a in (0.9, 1.0, 1.1) for b in (0.9, 1.0)}
+
+
+def test_geometries_hold_their_scan_values():
+    plan = expand(campaign(), version="test")
+    for gs in plan.geometry_sets:
+        for j, (kind, atoms) in enumerate(zip(gs.coordinate_kinds, gs.coordinate_atoms)):
+            measured = coordinates.measure_many(gs.positions, kind, atoms)
+            np.testing.assert_allclose(measured, gs.values[:, j], atol=1e-7)
+
+
+def test_grid_walk_is_serpentine():
+    plan = expand(campaign(), version="test")
+    grid = next(gs for gs in plan.geometry_sets if gs.scan == "grid")
+    steps = np.abs(np.diff(grid.grid_indices, axis=0)).sum(axis=1)
+    assert np.all(steps == 1), "consecutive grid points must be neighbours"
+
+
+def test_keys_are_stable_and_content_addressed():
+    a = expand(campaign(), version="test")
+    b = expand(campaign(name="other.yaml"), version="test")
+    assert list(a.points["key"]) == list(b.points["key"])
+    # another campaign name or scan name does not change the key of the same geometry
+    renamed = SPEC.replace("plan-test", "renamed").replace("stretch:", "hf_curve:")
+    c = expand(campaign(renamed, "r.yaml"), version="test")
+    assert set(a.points["key"]) == set(c.points["key"])
+    # the engine version and every result-changing setting are part of the key
+    assert set(expand(campaign(), version="other").points["key"]).isdisjoint(a.points["key"])
+    tighter = SPEC + "engine: {conv_tol: 1.0e-9}\n"
+    assert set(expand(campaign(tighter, "t.yaml"), version="test").points["key"]).isdisjoint(
+        a.points["key"])
+
+
+def test_key_matches_single_point_function():
+    plan = expand(campaign(), version="test")
+    row = plan.points.iloc[3]
+    symbols, positions, charge, mult = plan.geometry(row.set_id, row.walk)
+    key = keys.point_key(symbols, positions, charge, mult, row.method, row.basis,
+                         plan.settings_key, "pyscf", "test")
+    assert key == row.key
+
+
+def test_batches_share_scf_and_cover_every_point_once():
+    plan = expand(campaign(), version="test")
+    batches = make_batches(plan, done=set(), cores=2)
+    seen = [k for b in batches for _, methods in b.entries for k in methods.values()]
+    assert sorted(seen) == sorted(plan.points["key"])
+    for b in batches:
+        methods = {m for _, ms in b.entries for m in ms}
+        assert methods in ({"hf", "mp2"}, {"b3lyp"}), methods
+        walks = [w for w, _ in b.entries]
+        assert walks == sorted(walks)
+
+
+def test_batches_skip_done_points():
+    plan = expand(campaign(), version="test")
+    done = set(plan.points["key"][::2])
+    batches = make_batches(plan, done=done, cores=2)
+    seen = {k for b in batches for _, methods in b.entries for k in methods.values()}
+    assert seen == set(plan.points["key"]) - done
+    assert make_batches(plan, done=set(plan.points["key"]), cores=2) == []
+
+
+def test_long_scans_are_chunked_for_the_cores():
+    long_scan = SPEC.replace("points: 9", "points: 120")
+    plan = expand(campaign(long_scan), version="test")
+    batches = make_batches(plan, done=set(), cores=2, batches_per_core=3)
+    hf_stretch = [b for b in batches if plan.geometry_sets[b.set_id].scan == "stretch"
+                  and b.family == "hf"]
+    assert len(hf_stretch) >= 2
+    sizes = [len(b.entries) for b in hf_stretch]
+    assert sum(sizes) == 120 and min(sizes) >= 4

@@ -1,0 +1,228 @@
+"""Real ``pesflow run`` through real Snakemake and real PySCF.
+
+Reference for every energy: a direct PySCF calculation at the stored geometry
+(pyscf.scf.RHF / UHF / mp.MP2 with the same basis and convergence threshold).
+"""
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import textwrap
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from pesflow.store import PointStore
+
+pytestmark = [pytest.mark.workflow, pytest.mark.integration]
+
+SMALL = """\
+campaign: wf-small
+molecules:
+  dihydrogen: {builtin: H2}
+  hydroxyl: {xyz: "O 0 0 0\\nH 0 0 0.97", multiplicity: 2}
+scans:
+  stretch:
+    molecules: [dihydrogen, hydroxyl]
+    coordinates:
+      - {type: distance, atoms: [1, 2], from: 0.6, to: 1.2, points: 5}
+levels:
+  - {method: [hf, mp2], basis: sto-3g}
+store: store
+"""
+
+
+def pesflow(*args, check=None, timeout=600):
+    env = dict(os.environ, OMP_NUM_THREADS="1")
+    proc = subprocess.run([sys.executable, "-m", "pesflow", *args], capture_output=True,
+                          text=True, env=env, timeout=timeout)
+    if check is not None:
+        assert proc.returncode == check, proc.stdout + proc.stderr
+    return proc
+
+
+def direct_energy(row):
+    """The same point computed directly with PySCF."""
+    from pyscf import gto, mp, scf
+
+    symbols = row["symbols"].split()
+    xyz = np.asarray(row["positions_angstrom"]).reshape(-1, 3)
+    mol = gto.M(atom=list(zip(symbols, xyz.tolist())), basis=row["basis"], unit="Angstrom",
+                spin=int(row["multiplicity"]) - 1, charge=int(row["charge"]), verbose=0)
+    mf = (scf.RHF if mol.spin == 0 else scf.UHF)(mol)
+    mf.conv_tol = 1e-10
+    e = mf.kernel()
+    if row["method"] == "mp2":
+        e = mp.MP2(mf).run().e_tot
+    return e
+
+
+def test_run_rerun_export(tmp_path):
+    spec = tmp_path / "small.yaml"
+    spec.write_text(SMALL)
+    out = pesflow("run", str(spec), "--cores", "2", check=0)
+    assert "20 done, 0 failed, 0 pending" in out.stdout
+    store = PointStore(tmp_path / "store")
+    assert len(store.keys()) >= 20
+    files = sorted((p.name, p.stat().st_mtime_ns) for p in (tmp_path / "store").rglob("*.parquet"))
+
+    again = pesflow("run", str(spec), "--cores", "2", check=0)
+    assert "nothing to compute" in again.stdout
+    assert sorted((p.name, p.stat().st_mtime_ns)
+                  for p in (tmp_path / "store").rglob("*.parquet")) == files
+
+    status = pesflow("status", str(spec), check=0)
+    assert "20 done, 0 failed, 0 pending" in status.stdout
+
+    pesflow("export", str(spec), "-o", str(tmp_path / "points.parquet"), check=0)
+    pesflow("export", str(spec), "-o", str(tmp_path / "points.csv"), check=0)
+    table = pd.read_parquet(tmp_path / "points.parquet")
+    csv = pd.read_csv(tmp_path / "points.csv")
+    assert len(table) == len(csv) == 20
+    assert set(table["status"]) == {"done"}
+    for col in ("campaign", "molecule", "scan", "method", "basis", "r_angstrom",
+                "energy_hartree", "converged", "scf_cycles", "wall_s", "key", "engine",
+                "engine_version", "error", "positions_angstrom"):
+        assert col in table.columns
+    np.testing.assert_allclose(np.sort(table["r_angstrom"].unique()),
+                               np.linspace(0.6, 1.2, 5))
+    np.testing.assert_allclose(table["energy_hartree"], csv["energy_hartree"], rtol=0,
+                               atol=1e-12)
+    for _, row in table.iloc[::3].iterrows():
+        assert row["energy_hartree"] == pytest.approx(direct_energy(row), abs=1e-7)
+    oh = table[(table.molecule == "hydroxyl") & (table.method == "hf")]
+    assert set(oh["reference"]) == {"UHF"}
+    # A doublet: <S^2> = 0.75 near equilibrium; UHF spin contamination only raises it
+    # (it grows as the bond stretches, a known UHF property).
+    assert np.all(np.abs(oh[oh.r_angstrom <= 1.0]["s2"] - 0.75) < 0.01)
+    assert np.all(oh["s2"] >= 0.75 - 1e-8)
+
+
+KILL = """\
+campaign: wf-kill
+molecules:
+  hydrogen_fluoride: {builtin: HF}
+  water: {builtin: H2O}
+scans:
+  stretch:
+    molecules: [hydrogen_fluoride]
+    coordinates:
+      - {type: distance, atoms: [1, 2], from: 0.7, to: 1.5, points: 24}
+  bend:
+    molecules: [water]
+    coordinates:
+      - {type: angle, atoms: [2, 1, 3], from: 90, to: 126, points: 24}
+levels:
+  - {method: [hf, mp2], basis: 6-31g}
+store: store
+"""
+
+
+def test_sigkill_midrun_then_rerun_gives_every_point_once(tmp_path):
+    spec = tmp_path / "kill.yaml"
+    spec.write_text(KILL)
+    env = dict(os.environ, OMP_NUM_THREADS="1")
+    proc = subprocess.Popen([sys.executable, "-m", "pesflow", "run", str(spec), "--cores", "2"],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env,
+                            start_new_session=True)
+    fragments = tmp_path / "store" / "fragments"
+    deadline = time.monotonic() + 300
+    while time.monotonic() < deadline:
+        done = len(list(fragments.glob("*.parquet"))) if fragments.exists() else 0
+        if done >= 12:
+            break
+        assert proc.poll() is None, "the run ended before it could be killed"
+        time.sleep(0.05)
+    os.killpg(proc.pid, signal.SIGKILL)
+    proc.wait()
+    time.sleep(0.5)
+    survivors = sorted(fragments.glob("*.parquet"))
+    assert 12 <= len(survivors) < 96, "kill should land mid-run"
+    # A crash that tore a file: the damaged point must be set aside and computed again.
+    torn = survivors[0]
+    os.truncate(torn, torn.stat().st_size // 2)
+
+    rerun = pesflow("run", str(spec), "--cores", "2", check=0)
+    assert "96 done, 0 failed, 0 pending" in rerun.stdout
+    assert "corrupt store file" in rerun.stderr and torn.name in rerun.stderr
+    assert any(torn.stem in p.name for p in (tmp_path / "store" / "quarantine").iterdir())
+
+    table = PointStore(tmp_path / "store").load().to_pandas()
+    assert table["key"].is_unique
+    pesflow("export", str(spec), "-o", str(tmp_path / "points.parquet"), check=0)
+    points = pd.read_parquet(tmp_path / "points.parquet")
+    assert len(points) == 96 and points["key"].is_unique
+    assert set(points["status"]) == {"done"}
+    sample = points.iloc[::7]
+    for _, row in sample.iterrows():
+        assert row["energy_hartree"] == pytest.approx(direct_energy(row), abs=1e-7)
+    # the torn point was recomputed, not read as data
+    assert torn.stem in set(points["key"])
+
+
+def test_failed_point_is_recorded_and_exit_code_is_1(tmp_path):
+    spec = tmp_path / "fail.yaml"
+    spec.write_text(textwrap.dedent("""\
+        campaign: wf-fail
+        molecules:
+          hydroxyl: {xyz: "O 0 0 0\\nH 0 0 0.97", multiplicity: 2}
+        scans:
+          stretch:
+            molecules: [hydroxyl]
+            coordinates:
+              - {type: distance, atoms: [1, 2], values: [0.97, 3.5]}
+        levels:
+          - {method: hf, basis: 6-31g}
+        engine: {max_cycle: 1, scf_ladder: [default]}
+        store: store
+        """))
+    out = pesflow("run", str(spec), "--cores", "1", check=1)
+    assert "failed" in out.stdout
+    assert "did not converge" in out.stdout
+    status = pesflow("status", str(spec), check=1)
+    assert "2 failed" in status.stdout or "1 failed" in status.stdout
+
+
+def test_second_run_of_same_campaign_is_refused(tmp_path):
+    from pesflow.errors import RunError
+    from pesflow.run import RunLock
+
+    spec = tmp_path / "small.yaml"
+    spec.write_text(SMALL)
+    lock = RunLock(tmp_path / "results" / "wf-small" / ".pesflow" / "run.lock").acquire()
+    try:
+        out = pesflow("run", str(spec), "--cores", "1", check=2)
+        assert "another pesflow run of this campaign is alive" in out.stderr
+        assert not (tmp_path / "store").exists()
+        with pytest.raises(RunError):
+            RunLock(lock.path).acquire()
+    finally:
+        lock.release()
+
+
+def test_snakemake_lint_and_dry_run(tmp_path):
+    """The shipped workflow passes `snakemake --lint` and a dry run with a real config."""
+    from pesflow.run import workflow_dir
+
+    wd = tmp_path / "wd"
+    (wd / "tasks").mkdir(parents=True)
+    (wd / "tasks" / "b-001.json").write_text("{}")
+    config = wd / "config.json"
+    config.write_text(json.dumps({"campaign": "x", "batches": ["b-001"], "threads_per_batch": 1,
+                                  "mem_mb_per_batch": 1000, "runtime_min_per_batch": 10}))
+    base = [sys.executable, "-m", "snakemake", "--snakefile", str(workflow_dir() / "Snakefile"),
+            "--directory", str(wd), "--configfile", str(config), "--cores", "1"]
+    dry = subprocess.run(base + ["--dry-run"], capture_output=True, text=True)
+    assert dry.returncode == 0, dry.stdout + dry.stderr
+    assert "batch" in dry.stdout
+    lint = subprocess.run(base + ["--lint"], capture_output=True, text=True)
+    text = lint.stdout + lint.stderr
+    # The one lint we keep on purpose: batches run in pesflow's own environment (the
+    # engine version is part of every point key), not in a per-rule conda env or container.
+    findings = [line.strip() for line in text.splitlines() if line.strip().startswith("*")]
+    assert findings == ["* Specify a conda environment or container for each rule.:"], text
