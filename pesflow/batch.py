@@ -58,7 +58,7 @@ def _record(task, point, result, engine):
         reference=result.reference,
         engine=engine.name,
         engine_version=engine.version,
-        settings_json=json.dumps(task["settings"], sort_keys=True),
+        settings_json=json.dumps(point["settings"].key_dict(result.method), sort_keys=True),
         attempts_json=json.dumps(result.attempts) if result.attempts else None,
         extra_json=None,
         error=result.error,
@@ -131,12 +131,13 @@ def run_batch(task_path, done_path, threads: int = 1) -> dict:
             guess = None
         previous_walk = point["walk"]
         point["keys_all"] = dict(wanted)
+        point["settings"] = settings
         for method, result in results.items():
             if method not in point["keys_all"]:
                 # e.g. the CCSD part of a CCSD(T) calculation: keep it, it is free
                 point["keys_all"][method] = keys.point_key(
                     symbols, positions, task["charge"], task["multiplicity"], method,
-                    task["basis"], task["settings"], engine.name, engine.version)
+                    task["basis"], settings.key_dict(method), engine.name, engine.version)
             elif method not in missing:
                 continue
             store.write(_record(task, point, result, engine))

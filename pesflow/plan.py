@@ -62,10 +62,16 @@ class Plan:
     campaign: str
     engine: str
     engine_version: str
-    settings_key: dict
+    settings_key: dict  # every result-changing setting (what a batch's engine is built from)
     geometry_sets: list[GeometrySet]
     #: one row per point: set_id, walk, molecule, scan, role, method, basis, level, family, key
     points: pd.DataFrame
+
+    def method_key(self, method: str) -> dict:
+        """The settings that enter the key of ``method``'s points."""
+        from pesflow.engine import EngineSettings
+
+        return EngineSettings(**self.settings_key).key_dict(method)
 
     def geometry(self, set_id: int, walk: int):
         gs = self.geometry_sets[set_id]
@@ -143,7 +149,8 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
     displacements and rounded to the key precision.
     """
     version = version or engine_version(engine)
-    settings_key = campaign.engine_settings().key_dict()
+    settings = campaign.engine_settings()
+    settings_key = settings.key_dict()
     sets = _scan_sets(campaign, 0)
     sets += _fragment_sets(campaign, len(sets))
     columns = {k: [] for k in ("set_id", "walk", "method", "basis", "key")}
@@ -152,7 +159,7 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
         walks = np.arange(len(gs.digests))
         for level in campaign.levels:
             prefix = keys.level_prefix(gs.charge, gs.multiplicity, level.method, level.basis,
-                                       settings_key, engine, version)
+                                       settings.key_dict(level.method), engine, version)
             columns["key"].extend(keys.combine(prefix, d) for d in gs.digests)
             columns["set_id"].append(np.full(len(walks), gs.set_id))
             columns["walk"].append(walks)

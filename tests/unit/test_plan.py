@@ -83,8 +83,16 @@ def test_key_matches_single_point_function():
     row = plan.points.iloc[3]
     symbols, positions, charge, mult = plan.geometry(row.set_id, row.walk)
     key = keys.point_key(symbols, positions, charge, mult, row.method, row.basis,
-                         plan.settings_key, "pyscf", "test")
+                         plan.method_key(row.method), "pyscf", "test")
     assert key == row.key
+
+
+def test_settings_that_cannot_change_a_method_do_not_split_its_cache():
+    a = expand(campaign(), version="test")
+    finer_grid = expand(campaign(SPEC + "engine: {grid_level: 5}\n", "g.yaml"), version="test")
+    hf = a.points["method"] != "b3lyp"
+    assert list(a.points[hf]["key"]) == list(finer_grid.points[hf]["key"])
+    assert set(a.points[~hf]["key"]).isdisjoint(finer_grid.points[~hf]["key"])
 
 
 def test_batches_share_scf_and_cover_every_point_once():
