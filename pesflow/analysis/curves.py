@@ -149,8 +149,8 @@ def wrap_degrees(values_degree, period=360.0):
     [300.0, 0.0, 10.0]
     """
     wrapped = np.mod(np.asarray(values_degree, dtype=float), period)
-    # np.mod can return exactly `period` for tiny negative inputs.
-    return np.where(wrapped >= period, wrapped - period, wrapped)
+    # np.mod returns (nearly) `period` for tiny negative inputs: fold those onto 0.
+    return np.where(wrapped >= period * (1.0 - 1e-12), wrapped - period, wrapped).clip(0.0)
 
 
 def covers_full_circle(values_degree, period=360.0):
@@ -197,7 +197,9 @@ def prepare_curve(values, energies_hartree, *, periodic=False, period=360.0, uni
     failed_q = tuple(float(x) for x in np.sort(q[failed]))
     if failed_q:
         where = ", ".join(f"{x:g}" for x in failed_q)
-        notes.append(f"{len(failed_q)} failed point(s) excluded (at {where} {_UNIT_LABEL.get(unit, unit)})")
+        notes.append(
+            f"{len(failed_q)} failed point(s) excluded (at {where} {_UNIT_LABEL.get(unit, unit)})"
+        )
     q, e = q[~failed], e[~failed]
     if periodic:
         q = wrap_degrees(q, period)
@@ -413,8 +415,12 @@ def grid_quality(
                 reasons.append(f"only {n_side} scanned point on one side")
         if not reasons:
             continue
-        step = min(p.q - left, right - p.q) if not curve.periodic else min(
-            abs(_periodic_delta(p.q, left, curve)), abs(_periodic_delta(right, p.q, curve))
+        step = (
+            min(p.q - left, right - p.q)
+            if not curve.periodic
+            else min(
+                abs(_periodic_delta(p.q, left, curve)), abs(_periodic_delta(right, p.q, curve))
+            )
         )
         new_step = max(0.7 * step / max(ratios) ** (1.0 / power), step / 8.0)
         flags.append(
@@ -557,8 +563,9 @@ def analyze_curve(
         if i_low in (0, len(e) - 1):
             bracketed = False
             side = "below" if i_low == 0 else "above"
+            where_low = "start" if i_low == 0 else "end"
             flags.append(
-                f"minimum not bracketed: the lowest energy is at the {'start' if i_low == 0 else 'end'}"
+                f"minimum not bracketed: the lowest energy is at the {where_low}"
                 f" of the scan ({_fmt(q[i_low])} {label}); extend the scan {side} "
                 f"{_fmt(q[i_low])} {label}"
                 + (

@@ -1,0 +1,281 @@
+"""One flat row of derived quantities per curve (or surface), for the campaign's summary table.
+
+Every column name carries its unit; what does not apply to a curve is NaN, so that every row
+has the same columns (:data:`SUMMARY_COLUMNS`).  ``flags`` joins the warnings and advice with
+``"; "``.
+
+>>> import numpy as np
+>>> r = np.linspace(0.72, 1.12, 15)
+>>> e = 0.225 * (1 - np.exp(-2.2266 * (r - 0.9168))) ** 2 - 100.0
+>>> row = summarize_curve("distance", r, e, reduced_mass_amu=0.957055, diatomic=True)
+>>> round(row["r_e_angstrom"], 5), round(row["omega_e_cm-1"])
+(0.9168, 4139)
+"""
+
+import numpy as np
+
+from pesflow.analysis.barriers import dissociation_energy, torsion_barrier
+from pesflow.analysis.curves import analyze_curve, covers_full_circle
+from pesflow.analysis.surface import connecting_barrier, find_minima, find_saddles, prepare_surface
+from pesflow.analysis.vibration import analyze_stretch, bend_force_constants
+from pesflow.units import HARTREE_TO_CM1, HARTREE_TO_EV, convert_energy
+
+#: Columns of a curve's summary row, in order.
+SUMMARY_COLUMNS = (
+    "n_points",
+    "n_failed",
+    "minimum_bracketed",
+    "r_e_angstrom",
+    "angle_e_degree",
+    "dihedral_e_degree",
+    "e_min_hartree",
+    "k_hartree_bohr-2",
+    "k_mdyn_angstrom-1",
+    "k_hartree_rad-2",
+    "k_aj_rad-2",
+    "omega_e_cm-1",
+    "omega_1d_cm-1",
+    "omega_e_x_e_cm-1",
+    "morse_d_e_ev",
+    "morse_a_angstrom-1",
+    "morse_r_e_angstrom",
+    "morse_omega_e_cm-1",
+    "morse_omega_e_x_e_cm-1",
+    "morse_rms_cm-1",
+    "nu_01_cm-1",
+    "zpe_cm-1",
+    "d_e_ev",
+    "d_0_ev",
+    "b_e_cm-1",
+    "n_levels_trusted",
+    "barrier_kcal_mol",
+    "barrier_kj_mol",
+    "barrier_cm-1",
+    "barrier_ev",
+    "flags",
+)
+
+_BARRIER_UNITS = {
+    "barrier_kcal_mol": "kcal_mol",
+    "barrier_kj_mol": "kj_mol",
+    "barrier_cm-1": "cm-1",
+    "barrier_ev": "ev",
+}
+_Q_E_COLUMN = {
+    "distance": "r_e_angstrom",
+    "angle": "angle_e_degree",
+    "dihedral": "dihedral_e_degree",
+}
+_UNIT = {"distance": "angstrom", "angle": "degree", "dihedral": "degree"}
+
+ONE_D_FLAG = "1-D wavenumber along the scan coordinate, not a normal-mode frequency"
+RESTRICTED_FLAG = (
+    "a restricted closed-shell reference cannot describe homolytic dissociation: the curve "
+    "rises too steeply at long range and D_e from it is wrong (use an unrestricted or "
+    "multireference method)"
+)
+
+
+def _empty_row():
+    row = {c: float("nan") for c in SUMMARY_COLUMNS}
+    row.update(n_points=0, n_failed=0, minimum_bracketed=False, flags="")
+    return row
+
+
+def summarize_curve(
+    kind,
+    values,
+    energies_hartree,
+    *,
+    reduced_mass_amu=None,
+    diatomic=False,
+    fragment_energies_hartree=None,
+    restricted_closed_shell_reference=False,
+    bond_breaking=False,
+    periodic=None,
+):
+    """Summary row of one scanned curve.
+
+    Args:
+        kind: ``"distance"``, ``"angle"`` or ``"dihedral"``.
+        values: scanned coordinates, A (distance) or degree (angle, dihedral).
+        energies_hartree: energies; NaN for failed points (excluded, counted in ``n_failed``).
+        reduced_mass_amu: reduced mass along a distance, dalton; None (the default) unless the
+            stretch is a true diatomic or the caller supplies a fragment reduced mass.
+        diatomic: True for the bond of a diatomic molecule.  If False, the wavenumber from a
+            reduced mass is a 1-D quantity: it goes to ``omega_1d_cm-1`` with a flag, and no
+            levels, ZPE or B_e are given.
+        fragment_energies_hartree: optional energies of the two fragments; then
+            D_e = E(A) + E(B) - E_min.  Without them D_e is taken from the last point only for
+            a bond-breaking scan (``bond_breaking`` or reaching beyond 2 r_e).
+        restricted_closed_shell_reference: True when the energies come from a restricted
+            closed-shell reference (RHF, RKS, or methods built on them); adds a warning for a
+            bond-breaking scan.
+        bond_breaking: the caller says the scan breaks the bond.
+        periodic: join the ends of a dihedral; default: when it covers the full circle.
+
+    Returns a dict with the keys of :data:`SUMMARY_COLUMNS`.
+    """
+    if kind not in _UNIT:
+        raise ValueError(f"unknown kind {kind!r}; allowed: distance, angle, dihedral")
+    row = _empty_row()
+    values = np.asarray(values, dtype=float)
+    energies = np.asarray(energies_hartree, dtype=float)
+    finite = np.isfinite(energies)
+    row["n_points"] = int(finite.sum())
+    row["n_failed"] = int((~finite).sum())
+    if kind == "dihedral" and periodic is None:
+        periodic = covers_full_circle(values[finite])
+    periodic = bool(periodic) if kind == "dihedral" else False
+    flags = []
+    try:
+        analysis = analyze_curve(values, energies, periodic=periodic, unit=_UNIT[kind])
+    except ValueError as err:
+        row["flags"] = str(err)
+        return row
+    flags.extend(analysis.flags)
+    row["minimum_bracketed"] = bool(analysis.minimum_bracketed)
+    p = analysis.minimum
+    if p is not None and analysis.minimum_bracketed:
+        row[_Q_E_COLUMN[kind]] = p.q
+        row["e_min_hartree"] = p.energy_hartree
+    if kind == "distance":
+        _stretch_columns(
+            row,
+            flags,
+            analysis,
+            reduced_mass_amu,
+            diatomic,
+            fragment_energies_hartree,
+            restricted_closed_shell_reference,
+            bond_breaking,
+        )
+    else:
+        row["k_hartree_rad-2"], row["k_aj_rad-2"] = bend_force_constants(analysis)
+    barrier = torsion_barrier(analysis)
+    if barrier is not None:
+        for col, unit in _BARRIER_UNITS.items():
+            row[col] = barrier.height(unit)
+    row["flags"] = "; ".join(dict.fromkeys(flags))
+    return row
+
+
+def _stretch_columns(row, flags, analysis, mass, diatomic, fragments, restricted, bond_breaking):
+    stretch = analyze_stretch(analysis, mass)
+    if stretch is None:
+        return
+    flags.extend(stretch.flags)
+    row["k_hartree_bohr-2"] = stretch.k_hartree_bohr2
+    row["k_mdyn_angstrom-1"] = stretch.k_mdyn_angstrom
+    m = stretch.morse
+    if m is not None:
+        row["morse_d_e_ev"] = m.d_e_ev
+        row["morse_a_angstrom-1"] = m.a_per_angstrom
+        row["morse_r_e_angstrom"] = m.r_e_angstrom
+        row["morse_rms_cm-1"] = m.rms_cm1
+    if mass is not None:
+        if diatomic:
+            row["omega_e_cm-1"] = stretch.omega_cm1
+            row["omega_e_x_e_cm-1"] = stretch.omega_e_x_e_cm1
+            row["b_e_cm-1"] = stretch.b_e_cm1
+            levels = stretch.levels
+            row["n_levels_trusted"] = levels.n_trusted
+            row["nu_01_cm-1"] = levels.nu_01_cm1
+            row["zpe_cm-1"] = levels.zpe_cm1
+            if m is not None:
+                row["morse_omega_e_cm-1"] = m.omega_e_cm1(mass)
+                row["morse_omega_e_x_e_cm-1"] = m.omega_e_x_e_cm1(mass)
+        else:
+            row["omega_1d_cm-1"] = stretch.omega_cm1
+            flags.append(ONE_D_FLAG)
+            flags[:] = [f for f in flags if "vibrational level" not in f and "omega_e x_e" not in f]
+    r_end = float(analysis.curve.q[-1])
+    breaking = bond_breaking or r_end > 2.0 * stretch.r_e_angstrom
+    if fragments is not None or breaking:
+        dis = dissociation_energy(analysis, fragments)
+        if dis is not None:
+            flags.extend(dis.flags)
+            row["d_e_ev"] = dis.d_e_ev
+            zpe = row["zpe_cm-1"]
+            if np.isfinite(zpe):
+                row["d_0_ev"] = dis.d_e_ev - zpe / HARTREE_TO_CM1 * HARTREE_TO_EV
+    if restricted and breaking:
+        flags.append(RESTRICTED_FLAG)
+
+
+def summarize_surface(
+    q1,
+    q2,
+    energies_hartree,
+    *,
+    kinds=("distance", "distance"),
+    periodic=(None, None),
+):
+    """Summary row of one 2-D scan E(q1, q2) on a regular grid.
+
+    Args:
+        q1, q2: axis values, A or degree according to ``kinds``.
+        energies_hartree: array (len(q1), len(q2)); NaN for failed points.
+        kinds: per axis ``"distance"``, ``"angle"`` or ``"dihedral"``.
+        periodic: per axis True / False, or None (a dihedral axis covering the full circle).
+
+    Returns a dict: ``n_points``, ``n_failed``, ``minimum_bracketed``, ``n_minima``,
+    ``n_saddles``, ``q1_e_<unit>``, ``q2_e_<unit>``, ``e_min_hartree``, ``barrier_kcal_mol``,
+    ``barrier_kj_mol``, ``barrier_cm-1``, ``barrier_ev`` (the highest saddle on the lowest
+    minimum-energy paths connecting all minima, above the global minimum) and ``flags``.
+    """
+    units = tuple(_UNIT[k] for k in kinds)
+    per = tuple(p if k == "dihedral" else False for p, k in zip(periodic, kinds, strict=True))
+    e = np.asarray(energies_hartree, dtype=float)
+    row = {
+        "n_points": int(np.isfinite(e).sum()),
+        "n_failed": int((~np.isfinite(e)).sum()),
+        "minimum_bracketed": False,
+        "n_minima": 0,
+        "n_saddles": 0,
+        f"q1_e_{units[0]}": float("nan"),
+        f"q2_e_{units[1]}": float("nan"),
+        "e_min_hartree": float("nan"),
+        **{c: float("nan") for c in _BARRIER_UNITS},
+        "flags": "",
+    }
+    flags = []
+    try:
+        surface = prepare_surface(q1, q2, e, units=units, periodic=per)
+    except ValueError as err:
+        row["flags"] = str(err)
+        return row
+    flags.extend(surface.notes)
+    minima = find_minima(surface)
+    saddles = find_saddles(surface)
+    row["n_minima"], row["n_saddles"] = len(minima), len(saddles)
+    grid = surface.energy_hartree
+    i, j = np.unravel_index(int(np.argmin(grid)), grid.shape)
+    on_edge = (not surface.periodic[0] and i in (0, grid.shape[0] - 1)) or (
+        not surface.periodic[1] and j in (0, grid.shape[1] - 1)
+    )
+    if on_edge:
+        flags.append(
+            f"minimum not bracketed: the lowest grid energy is on the edge of the grid at "
+            f"({surface.q1[i]:.4g}, {surface.q2[j]:.4g}); extend the grid there"
+        )
+    if minima:
+        row["minimum_bracketed"] = not on_edge
+        row[f"q1_e_{units[0]}"], row[f"q2_e_{units[1]}"] = minima[0].q
+        row["e_min_hartree"] = minima[0].energy_hartree
+    else:
+        flags.append("no bracketed minimum on the surface")
+    height, paths = connecting_barrier(surface, minima)
+    if np.isfinite(height):
+        for col, unit in _BARRIER_UNITS.items():
+            row[col] = float(convert_energy(height, unit))
+        for path in paths:
+            if path.saddle.kind != "saddle":
+                flags.append(
+                    f"the highest point of a minimum-energy path near {path.saddle.q} is not a "
+                    "first-order saddle; refine the grid there"
+                )
+            if not path.converged:
+                flags.append("a minimum-energy path did not converge")
+    row["flags"] = "; ".join(dict.fromkeys(flags))
+    return row
