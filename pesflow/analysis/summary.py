@@ -9,7 +9,7 @@ has the same columns (:data:`SUMMARY_COLUMNS`).  ``flags`` joins the warnings an
 >>> e = 0.225 * (1 - np.exp(-2.2266 * (r - 0.9168))) ** 2 - 100.0
 >>> row = summarize_curve("distance", r, e, reduced_mass_amu=0.957055, diatomic=True)
 >>> round(row["r_e_angstrom"], 5), round(row["omega_e_cm-1"])
-(0.9168, 4139)
+(0.9168, 4153)
 """
 
 import numpy as np

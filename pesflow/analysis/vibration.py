@@ -22,7 +22,7 @@ hydride typically traps even v = 0 by ~100 cm-1: no level is then reported.
 >>> e = 0.225 * (1 - np.exp(-2.2266 * (r - 0.9168))) ** 2 - 100.0
 >>> s = analyze_stretch(analyze_curve(r, e), reduced_mass_amu=0.957055)
 >>> round(s.omega_cm1, 1), round(s.morse.r_e_angstrom, 4)
-(4139.1, 0.9168)
+(4153.2, 0.9168)
 """
 
 from dataclasses import dataclass, field
