@@ -94,24 +94,36 @@ def cmd_check(args) -> int:
 
 
 def cmd_plan(args) -> int:
+    from pesflow import cost
     from pesflow.plan import make_batches
+    from pesflow.results import points_table
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
     store = _store(campaign)
     done = _done_keys(store)
     batches = make_batches(plan, done, cores=args.cores or _cpu_count())
-    pts = plan.points
-    table = Table(title=f"campaign {campaign.name}: plan", title_justify="left")
-    for col in ("level", "points", "cached", "to compute"):
-        table.add_column(col, justify="right" if col != "level" else "left")
-    cached = pts["key"].isin(done)
-    for level, sub in pts.groupby("level", sort=False):
-        c = int(cached[sub.index].sum())
-        table.add_row(level, str(len(sub)), str(c), str(len(sub) - c))
-    console.print(table)
-    console.print(f"{len(pts)} points, {int(cached.sum())} cached, {int((~cached).sum())} to "
-                  f"compute in {len(batches)} batches; store: {campaign.store_path}")
+    table = points_table(plan, store, columns=("key", "converged", "wall_s"))
+    estimate = cost.estimate(table, cost.basis_function_counts(campaign)).set_index("level")
+    out = Table(title=f"campaign {campaign.name}: plan", title_justify="left")
+    for col in ("level", "points", "cached", "to compute", "estimate (core-h)", "from"):
+        out.add_column(col, justify="left" if col in ("level", "from") else "right")
+    for level, sub in table.groupby("level", sort=False):
+        cached = int((sub["status"] != "pending").sum())
+        est = estimate.loc[level] if level in estimate.index else None
+        out.add_row(level, str(len(sub)), str(cached), str(len(sub) - cached),
+                    "-" if est is None else f"{est['estimate_core_h']:.3g}",
+                    "-" if est is None else est["source"])
+    console.print(out)
+    n_cached = int((table["status"] != "pending").sum())
+    total_h = float(estimate["estimate_core_h"].sum()) if len(estimate) else 0.0
+    console.print(f"{len(table)} points, {n_cached} cached, {len(table) - n_cached} to compute "
+                  f"in {len(batches)} batches; about {total_h:.3g} core-hours left; store: "
+                  f"{campaign.store_path}", soft_wrap=True)
+    for level in cost.dominant_levels(estimate.reset_index()):
+        share = estimate.loc[level, "share"]
+        console.print(f"[yellow]warning[/yellow]: {escape(level)} is about {share:.0%} of the "
+                      "remaining cost", soft_wrap=True)
     return EXIT_OK
 
 

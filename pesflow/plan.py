@@ -207,7 +207,7 @@ def _safe(text: str) -> str:
 
 
 def make_batches(plan: Plan, done: set[str], cores: int = 2, *, batches_per_core: int = 3,
-                 min_points_per_batch: int = 4) -> list[Batch]:
+                 min_points_per_batch: int = 4, max_points_per_batch: int = 250) -> list[Batch]:
     """Group the points not in ``done`` into batches.
 
     Each batch is an ordered walk (walk order of its geometry set) at one basis
@@ -215,7 +215,8 @@ def make_batches(plan: Plan, done: set[str], cores: int = 2, *, batches_per_core
     Long walks are cut into chunks so that about ``batches_per_core * cores``
     batches exist in all (a few per core keeps both cores busy while each job's
     start-up stays a small share), never below ``min_points_per_batch``
-    geometries per chunk.
+    geometries per chunk and never above ``max_points_per_batch`` (so that a job
+    stays well inside a cluster's time limit and a long walk is spread over nodes).
     """
     pts = plan.points
     if done:
@@ -244,6 +245,7 @@ def make_batches(plan: Plan, done: set[str], cores: int = 2, *, batches_per_core
         gs = plan.geometry_sets[set_id]
         n_chunks = max(1, int(round(target * weight / total_weight)))
         n_chunks = min(n_chunks, max(1, len(ordered) // min_points_per_batch))
+        n_chunks = max(n_chunks, -(-len(ordered) // max_points_per_batch))
         bounds = np.linspace(0, len(ordered), n_chunks + 1).round().astype(int)
         stem = _safe(f"{gs.molecule}-{gs.scan}-{basis}-{family}")
         for c in range(n_chunks):

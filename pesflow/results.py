@@ -44,6 +44,9 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
         frame = frame.merge(rec, on="key", how="left")
     else:
         frame["converged"] = pd.Series([pd.NA] * len(frame), dtype="object")
+    for col in wanted or ():
+        if col not in frame.columns:
+            frame[col] = np.nan
     frame["status"] = _status_of(frame["converged"])
     frame.insert(0, "campaign", plan.campaign)
     coord = [c for c in frame.columns if c.endswith(("_angstrom", "_degree"))
