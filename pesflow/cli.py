@@ -258,7 +258,7 @@ def cmd_export(args) -> int:
     else:
         from pesflow.summary import summary_table
 
-        table = summary_table(campaign, points_table(plan, store))
+        table = summary_table(campaign, plan, points_table(plan, store))
     tmp = out.with_name(f".{out.name}.tmp")
     out.parent.mkdir(parents=True, exist_ok=True)
     if fmt == "csv":
