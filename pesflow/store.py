@@ -454,8 +454,10 @@ class PointStore:
             text = marker.read_text(encoding="utf-8")
         except (FileNotFoundError, NotADirectoryError):
             if self.root.is_dir():
-                # Dot-names are temp files of a process creating this store right now.
+                # Dot-names are temp files of a process creating this store right now, and
+                # STORE.json may have appeared since we looked: both belong to a store.
                 foreign = {p.name for p in self.root.iterdir() if p.name[0] != "."} - {
+                    "STORE.json",
                     "fragments",
                     "parts",
                     "quarantine",
