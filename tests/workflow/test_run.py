@@ -226,3 +226,35 @@ def test_snakemake_lint_and_dry_run(tmp_path):
     # engine version is part of every point key), not in a per-rule conda env or container.
     findings = [line.strip() for line in text.splitlines() if line.strip().startswith("*")]
     assert findings == ["* Specify a conda environment or container for each rule.:"], text
+
+
+@pytest.mark.parametrize("how", ["sigint-group", "sigterm-driver"])
+def test_interrupt_stops_cleanly_and_rerun_finishes(tmp_path, how):
+    """Ctrl-C (SIGINT to the whole group) or a SIGTERM to the driver alone stops the run
+    within seconds, exits 130, leaves no live job behind and loses no finished point."""
+    spec = tmp_path / "kill.yaml"
+    spec.write_text(KILL.replace("points: 24", "points: 12"))
+    env = dict(os.environ, OMP_NUM_THREADS="1")
+    proc = subprocess.Popen([sys.executable, "-m", "pesflow", "run", str(spec), "--cores", "2"],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env,
+                            start_new_session=True)
+    fragments = tmp_path / "store" / "fragments"
+    deadline = time.monotonic() + 300
+    while time.monotonic() < deadline:
+        if fragments.exists() and len(list(fragments.glob("*.parquet"))) >= 4:
+            break
+        assert proc.poll() is None
+        time.sleep(0.05)
+    if how == "sigint-group":
+        os.killpg(proc.pid, signal.SIGINT)
+    else:
+        os.kill(proc.pid, signal.SIGTERM)
+    out, err = proc.communicate(timeout=60)
+    assert proc.returncode == 130, out + err
+    assert "interrupted" in out
+    time.sleep(1.0)
+    before = {p.name for p in fragments.glob("*.parquet")}
+    time.sleep(1.0)
+    assert {p.name for p in fragments.glob("*.parquet")} == before, "a job outlived the run"
+    rerun = pesflow("run", str(spec), "--cores", "2", check=0)
+    assert "48 done, 0 failed, 0 pending" in rerun.stdout
