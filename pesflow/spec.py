@@ -200,10 +200,21 @@ class EngineSpec(_Strict):
     )
 
 
+class ReferenceValueSpec(_Strict):
+    """A value the user supplies to compare against (e.g. an experimental constant)."""
+
+    molecule: str
+    scan: str
+    quantity: str
+    value: float
+    source: str = Field(min_length=1)
+
+
 class CompareSpec(_Strict):
     """What the report compares against."""
 
     reference_level: str | None = None
+    reference_values: list[ReferenceValueSpec] = Field(default_factory=list)
 
 
 class CampaignSpec(_Strict):
@@ -685,6 +696,7 @@ def _resolve_levels(spec: CampaignSpec, molecules, used, err) -> list[Level]:
             if level in levels:
                 raise err(("levels", i), f"level {level.label} is listed twice")
             levels.append(level)
+    _check_reference_values(spec, err)
     ref = spec.compare.reference_level
     if ref is not None:
         labels = [lvl.label for lvl in levels]
@@ -692,6 +704,26 @@ def _resolve_levels(spec: CampaignSpec, molecules, used, err) -> list[Level]:
             raise err(("compare", "reference_level"), f"'{ref}' is not one of the levels; "
                                                       f"allowed: {', '.join(labels)}")
     return levels
+
+
+def _check_reference_values(spec: CampaignSpec, err) -> None:
+    from pesflow.summary import DEVIATION_COLUMNS
+
+    for i, ref in enumerate(spec.compare.reference_values):
+        loc = ("compare", "reference_values", i)
+        if ref.molecule not in spec.molecules:
+            raise err(loc + ("molecule",), f"molecule '{ref.molecule}' is not defined; "
+                                           f"defined: {', '.join(sorted(spec.molecules))}")
+        scan = spec.scans.get(ref.scan)
+        if scan is None:
+            raise err(loc + ("scan",), f"scan '{ref.scan}' is not defined; defined: "
+                                       f"{', '.join(sorted(spec.scans))}")
+        if ref.molecule not in scan.molecules:
+            raise err(loc + ("scan",), f"scan '{ref.scan}' does not include molecule "
+                                       f"'{ref.molecule}'")
+        if ref.quantity not in DEVIATION_COLUMNS:
+            raise err(loc + ("quantity",), f"unknown quantity '{ref.quantity}'; allowed: "
+                                           f"{', '.join(DEVIATION_COLUMNS)}")
 
 
 def load_campaign(path) -> Campaign:
