@@ -318,6 +318,8 @@ def vibrational_levels(
         n_grid = int(np.clip(np.ceil((x1 - x0) / (np.pi / (4.0 * p))) + 1, 64, 1500))
     x, energies, _ = sinc_dvr(v, x0, x1, mu, n_grid=n_grid, n_levels=max_levels)
     energies = energies[energies < edge]
+    if len(energies) == 0:
+        return VibrationalLevels(empty, empty, np.array([], dtype=bool), edge * HARTREE_TO_CM1)
     # Narrow the box by a few grid points at each end and watch the levels move.
     shift = max(3, n_grid // 50)
     delta = shift * (x[1] - x[0])
