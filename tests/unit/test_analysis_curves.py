@@ -21,9 +21,9 @@ from pesflow.units import AMU_TO_ME, ANGSTROM_BOHR, HARTREE_TO_CM1, isotope_mass
 OMEGA_E_CM1, OMEGA_E_X_E_CM1, R_E_ANGSTROM = 4138.32, 89.88, 0.9168
 MU_HF_AMU = isotope_mass("H") * isotope_mass("F") / (isotope_mass("H") + isotope_mass("F"))
 D_E_HARTREE = OMEGA_E_CM1**2 / (4 * OMEGA_E_X_E_CM1) / HARTREE_TO_CM1
-A_PER_ANGSTROM = (
-    OMEGA_E_CM1 / HARTREE_TO_CM1 * np.sqrt(MU_HF_AMU * AMU_TO_ME / (2 * D_E_HARTREE)) * ANGSTROM_BOHR
-)
+OMEGA_E_HARTREE = OMEGA_E_CM1 / HARTREE_TO_CM1
+MU_HF_ME = MU_HF_AMU * AMU_TO_ME
+A_PER_ANGSTROM = OMEGA_E_HARTREE * np.sqrt(MU_HF_ME / (2 * D_E_HARTREE)) * ANGSTROM_BOHR
 K_HARTREE_ANGSTROM2 = 2 * D_E_HARTREE * A_PER_ANGSTROM**2
 E_OFFSET = -100.07  # a typical absolute SCF energy; the analysis must not depend on it
 
