@@ -69,9 +69,18 @@ def _record(task, point, result, engine):
 def _failure(method, reference, message):
     from pesflow.engine import PointResult
 
-    return PointResult(method=method, energy_hartree=float("nan"), converged=False,
-                       scf_cycles=0, wall_s=0.0, step_wall_s=0.0, s2=float("nan"),
-                       reference=reference, attempts=[], error=message)
+    return PointResult(
+        method=method,
+        energy_hartree=float("nan"),
+        converged=False,
+        scf_cycles=0,
+        wall_s=0.0,
+        step_wall_s=0.0,
+        s2=float("nan"),
+        reference=reference,
+        attempts=[],
+        error=message,
+    )
 
 
 def run_batch(task_path, done_path, threads: int = 1) -> dict:
@@ -96,8 +105,9 @@ def run_batch(task_path, done_path, threads: int = 1) -> dict:
             f"this batch was planned for {task['engine']} {task['engine_version']} but "
             f"{engine.version} is installed here; use the same environment everywhere"
         )
-    settings = EngineSettings(**task["settings"], threads=threads,
-                              max_memory_mb=int(task.get("max_memory_mb", 4000)))
+    settings = EngineSettings(
+        **task["settings"], threads=threads, max_memory_mb=int(task.get("max_memory_mb", 4000))
+    )
     store = PointStore(task["store"])
     symbols = tuple(task["symbols"])
     counts = {"computed": 0, "skipped": 0, "failed": 0}
@@ -120,11 +130,14 @@ def run_batch(task_path, done_path, threads: int = 1) -> dict:
         positions = np.asarray(point["positions"], dtype=float)
         from pesflow.engine import Geometry
 
-        geometry = Geometry(symbols=symbols, positions_angstrom=positions,
-                            charge=task["charge"], multiplicity=task["multiplicity"])
+        geometry = Geometry(
+            symbols=symbols,
+            positions_angstrom=positions,
+            charge=task["charge"],
+            multiplicity=task["multiplicity"],
+        )
         try:
-            results, guess = engine.compute(geometry, task["basis"], missing, settings,
-                                            guess=guess)
+            results, guess = engine.compute(geometry, task["basis"], missing, settings, guess=guess)
         except Exception as exc:  # recorded, never allowed to stop the batch
             message = f"{type(exc).__name__}: {exc}".splitlines()[0]
             results = {m: _failure(m, "", message) for m in missing}
@@ -136,8 +149,16 @@ def run_batch(task_path, done_path, threads: int = 1) -> dict:
             if method not in point["keys_all"]:
                 # e.g. the CCSD part of a CCSD(T) calculation: keep it, it is free
                 point["keys_all"][method] = keys.point_key(
-                    symbols, positions, task["charge"], task["multiplicity"], method,
-                    task["basis"], settings.key_dict(method), engine.name, engine.version)
+                    symbols,
+                    positions,
+                    task["charge"],
+                    task["multiplicity"],
+                    method,
+                    task["basis"],
+                    settings.key_dict(method),
+                    engine.name,
+                    engine.version,
+                )
             elif method not in missing:
                 continue
             store.write(_record(task, point, result, engine))
@@ -146,10 +167,14 @@ def run_batch(task_path, done_path, threads: int = 1) -> dict:
                 status[wanted[method]] = "done" if result.converged else "failed"
                 if not result.converged:
                     counts["failed"] += 1
-                    log.warning("point %s (%s, walk %d) failed: %s", wanted[method], method,
-                                point["walk"], result.error)
-    marker = {"batch_id": task["batch_id"], "wall_s": time.time() - t0, **counts,
-              "points": status}
+                    log.warning(
+                        "point %s (%s, walk %d) failed: %s",
+                        wanted[method],
+                        method,
+                        point["walk"],
+                        result.error,
+                    )
+    marker = {"batch_id": task["batch_id"], "wall_s": time.time() - t0, **counts, "points": status}
     done_path = Path(done_path)
     done_path.parent.mkdir(parents=True, exist_ok=True)
     tmp = done_path.with_name("." + done_path.name + ".tmp")
@@ -159,8 +184,9 @@ def run_batch(task_path, done_path, threads: int = 1) -> dict:
 
 
 def main(argv=None) -> int:
-    parser = argparse.ArgumentParser(prog="python -m pesflow.batch",
-                                     description="Run one pesflow batch (used by Snakemake).")
+    parser = argparse.ArgumentParser(
+        prog="python -m pesflow.batch", description="Run one pesflow batch (used by Snakemake)."
+    )
     parser.add_argument("task", help="batch task JSON")
     parser.add_argument("done", help="done marker to write")
     parser.add_argument("--threads", type=int, default=1)
@@ -168,8 +194,14 @@ def main(argv=None) -> int:
     logging.basicConfig(level=logging.INFO, format="%(asctime)s %(levelname)s %(message)s")
     os.environ.setdefault("OMP_NUM_THREADS", str(args.threads))
     marker = run_batch(args.task, args.done, threads=args.threads)
-    log.info("batch %s: %d computed, %d failed, %d cached, %.1f s", marker["batch_id"],
-             marker["computed"], marker["failed"], marker["skipped"], marker["wall_s"])
+    log.info(
+        "batch %s: %d computed, %d failed, %d cached, %.1f s",
+        marker["batch_id"],
+        marker["computed"],
+        marker["failed"],
+        marker["skipped"],
+        marker["wall_s"],
+    )
     return 0
 
 

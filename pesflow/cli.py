@@ -21,6 +21,8 @@ from pesflow import __version__
 from pesflow.errors import PesflowError, RunError, SpecError
 
 EXIT_OK, EXIT_FAILED, EXIT_INVALID, EXIT_INTERRUPTED = 0, 1, 2, 130
+#: During a run, fragments are compacted into a part after this many new points.
+COMPACT_EVERY_POINTS = 2000
 
 console = Console(highlight=False)
 err_console = Console(stderr=True, highlight=False)
@@ -46,8 +48,12 @@ def _plan(campaign):
 
 def _report_quarantined(store) -> None:
     for path, reason in store.last_quarantined:
-        err_console.print(f"warning: corrupt store file {path} set aside ({reason}); its points "
-                          "will be computed again", markup=False, soft_wrap=True)
+        err_console.print(
+            f"warning: corrupt store file {path} set aside ({reason}); its points "
+            "will be computed again",
+            markup=False,
+            soft_wrap=True,
+        )
 
 
 def _done_keys(store, retry_failed=False) -> set[str]:
@@ -57,8 +63,11 @@ def _done_keys(store, retry_failed=False) -> set[str]:
     _report_quarantined(store)
     if retry_failed:
         table = store.status_table(columns=("key", "converged"))
-        failed = {k for k, c in zip(table.column("key").to_pylist(),
-                                    table.column("converged").to_pylist()) if not c}
+        failed = {
+            k
+            for k, c in zip(table.column("key").to_pylist(), table.column("converged").to_pylist())
+            if not c
+        }
         keys -= failed
     return keys
 
@@ -76,8 +85,13 @@ def cmd_check(args) -> int:
         table.add_column(col)
     for name, mol in campaign.molecules.items():
         scans = [s.name for s in campaign.scans.values() if name in s.molecules]
-        table.add_row(name, mol.atoms.get_chemical_formula(), str(mol.charge),
-                      str(mol.multiplicity), ", ".join(scans) or "-")
+        table.add_row(
+            name,
+            mol.atoms.get_chemical_formula(),
+            str(mol.charge),
+            str(mol.multiplicity),
+            ", ".join(scans) or "-",
+        )
     console.print(table)
     scans = Table(show_header=True)
     for col in ("scan", "coordinates", "points per molecule"):
@@ -85,7 +99,8 @@ def cmd_check(args) -> int:
     for scan in campaign.scans.values():
         coords = "; ".join(
             f"{c.label} {c.values[0]:g}..{c.values[-1]:g} {c.unit} ({len(c.values)})"
-            for c in scan.coordinates)
+            for c in scan.coordinates
+        )
         scans.add_row(scan.name, coords, str(len(scan.grid())))
     console.print(scans)
     console.print("levels: " + ", ".join(lvl.label for lvl in campaign.levels))
@@ -111,19 +126,29 @@ def cmd_plan(args) -> int:
     for level, sub in table.groupby("level", sort=False):
         cached = int((sub["status"] != "pending").sum())
         est = estimate.loc[level] if level in estimate.index else None
-        out.add_row(level, str(len(sub)), str(cached), str(len(sub) - cached),
-                    "-" if est is None else f"{est['estimate_core_h']:.3g}",
-                    "-" if est is None else est["source"])
+        out.add_row(
+            level,
+            str(len(sub)),
+            str(cached),
+            str(len(sub) - cached),
+            "-" if est is None else f"{est['estimate_core_h']:.3g}",
+            "-" if est is None else est["source"],
+        )
     console.print(out)
     n_cached = int((table["status"] != "pending").sum())
     total_h = float(estimate["estimate_core_h"].sum()) if len(estimate) else 0.0
-    console.print(f"{len(table)} points, {n_cached} cached, {len(table) - n_cached} to compute "
-                  f"in {len(batches)} batches; about {total_h:.3g} core-hours left; store: "
-                  f"{campaign.store_path}", soft_wrap=True)
+    console.print(
+        f"{len(table)} points, {n_cached} cached, {len(table) - n_cached} to compute "
+        f"in {len(batches)} batches; about {total_h:.3g} core-hours left; store: "
+        f"{campaign.store_path}",
+        soft_wrap=True,
+    )
     for level in cost.dominant_levels(estimate.reset_index()):
         share = estimate.loc[level, "share"]
-        console.print(f"[yellow]warning[/yellow]: {escape(level)} is about {share:.0%} of the "
-                      "remaining cost", soft_wrap=True)
+        console.print(
+            f"[yellow]warning[/yellow]: {escape(level)} is about {share:.0%} of the remaining cost",
+            soft_wrap=True,
+        )
     return EXIT_OK
 
 
@@ -142,19 +167,34 @@ def _print_status(campaign, plan, store, show_failed=10) -> tuple[int, int, int]
     for col in ("molecule", "level", "done", "failed", "pending"):
         out.add_column(col, justify="left" if col in ("molecule", "level") else "right")
     for row in counts.itertuples(index=False):
-        out.add_row(row.molecule, row.level, str(row.done),
-                    f"[red]{row.failed}[/red]" if row.failed else "0", str(row.pending))
+        out.add_row(
+            row.molecule,
+            row.level,
+            str(row.done),
+            f"[red]{row.failed}[/red]" if row.failed else "0",
+            str(row.pending),
+        )
     console.print(out)
     failed = failed_points(table)
     for row in failed.head(show_failed).itertuples(index=False):
-        where = ", ".join(f"{c}={getattr(row, c):g}" for c in table.columns
-                          if c.endswith(("_angstrom", "_degree")) and c != "positions_angstrom"
-                          and c in row._fields and getattr(row, c) == getattr(row, c))
-        console.print(f"[red]failed[/red] {escape(row.molecule)} {escape(row.scan)} "
-                      f"{escape(row.level)} {where}: {escape(str(row.error))}", soft_wrap=True)
+        where = ", ".join(
+            f"{c}={getattr(row, c):g}"
+            for c in table.columns
+            if c.endswith(("_angstrom", "_degree"))
+            and c != "positions_angstrom"
+            and c in row._fields
+            and getattr(row, c) == getattr(row, c)
+        )
+        console.print(
+            f"[red]failed[/red] {escape(row.molecule)} {escape(row.scan)} "
+            f"{escape(row.level)} {where}: {escape(str(row.error))}",
+            soft_wrap=True,
+        )
     if len(failed) > show_failed:
-        console.print(f"... and {len(failed) - show_failed} more failed points "
-                      "(pesflow export lists them all)")
+        console.print(
+            f"... and {len(failed) - show_failed} more failed points "
+            "(pesflow export lists them all)"
+        )
     n = table["status"].value_counts()
     return int(n.get("done", 0)), int(n.get("failed", 0)), int(n.get("pending", 0))
 
@@ -174,31 +214,40 @@ def cmd_run(args) -> int:
     campaign = _load(args.spec)
     plan = _plan(campaign)
     store = _store(campaign)
-    options = runner.RunOptions(cores=args.cores, profile=args.profile,
-                                threads_per_batch=args.threads_per_batch,
-                                retry_failed=args.retry_failed)
+    options = runner.RunOptions(
+        cores=args.cores,
+        profile=args.profile,
+        threads_per_batch=args.threads_per_batch,
+        retry_failed=args.retry_failed,
+    )
     lock = runner.RunLock(campaign.results_path / ".pesflow" / "run.lock").acquire()
     try:
         done = _done_keys(store, retry_failed=args.retry_failed)
         recompute = set()
         if args.retry_failed and store.exists():
             recompute = store.keys() - done
-        batches = make_batches(plan, done, cores=args.cores or _cpu_count(),
-                               batches_per_core=options.batches_per_core)
+        batches = make_batches(
+            plan, done, cores=args.cores or _cpu_count(), batches_per_core=options.batches_per_core
+        )
         pending = set(plan.points["key"]) - done
         if not batches:
             console.print("nothing to compute: every point is in the store")
         else:
-            console.print(f"{len(pending)} points to compute in {len(batches)} batches "
-                          f"({len(plan.points) - len(pending)} cached); store: "
-                          f"{campaign.store_path}")
+            console.print(
+                f"{len(pending)} points to compute in {len(batches)} batches "
+                f"({len(plan.points) - len(pending)} cached); store: "
+                f"{campaign.store_path}"
+            )
             wd = runner.workdir(campaign)
-            config = runner.write_tasks(plan, batches, campaign.store_path, wd, options,
-                                        recompute=recompute)
+            config = runner.write_tasks(
+                plan, batches, campaign.store_path, wd, options, recompute=recompute
+            )
             outcome = _run_with_progress(runner, wd, config, options, lock, store, pending)
             if outcome.interrupted:
-                console.print("[yellow]interrupted[/yellow]: every finished point is stored; "
-                              "run the same command again to continue")
+                console.print(
+                    "[yellow]interrupted[/yellow]: every finished point is stored; "
+                    "run the same command again to continue"
+                )
                 return EXIT_INTERRUPTED
             if outcome.returncode != 0:
                 err_console.print(f"some batch jobs failed; Snakemake's log: {outcome.log_path}")
@@ -218,30 +267,54 @@ def _run_with_progress(runner, wd, config, options, lock, store, pending):
     total = len(pending)
     start = time.monotonic()
     progress = Progress(
-        TextColumn("[bold]points"), BarColumn(),
-        TextColumn("{task.fields[done]} done, {task.fields[failed]} failed, "
-                   "{task.fields[left]} left"),
-        TimeElapsedColumn(), console=console, transient=False,
+        TextColumn("[bold]points"),
+        BarColumn(),
+        TextColumn(
+            "{task.fields[done]} done, {task.fields[failed]} failed, {task.fields[left]} left"
+        ),
+        TimeElapsedColumn(),
+        console=console,
+        transient=False,
     )
     task = progress.add_task("run", total=total, done=0, failed=0, left=total)
     last_print = [start]
 
-    def poll():
+    timing = {"next": 0.0, "compacted_at": 0}
+
+    def poll(force=False):
+        now = time.monotonic()
+        if not force and now < timing["next"]:
+            return
         if store.exists():
-            new = (store.keys() & pending) - seen.keys()
+            keys = store.keys()
+            new = (keys & pending) - seen.keys()
             for key in new:
                 record = store.get(key)
                 seen[key] = bool(record and record.get("converged"))
         failed = sum(1 for ok in seen.values() if not ok)
-        progress.update(task, completed=len(seen), done=len(seen) - failed, failed=failed,
-                        left=total - len(seen))
+        progress.update(
+            task,
+            completed=len(seen),
+            done=len(seen) - failed,
+            failed=failed,
+            left=total - len(seen),
+        )
         if not console.is_terminal and time.monotonic() - last_print[0] > 30:
             last_print[0] = time.monotonic()
-            console.print(f"  {len(seen)}/{total} points, {failed} failed, "
-                          f"{time.monotonic() - start:.0f} s")
+            console.print(
+                f"  {len(seen)}/{total} points, {failed} failed, {time.monotonic() - start:.0f} s"
+            )
+        # Keep the fragment folder small during long runs so that listing it stays cheap;
+        # compaction is safe while batches write (see pesflow.store).
+        if len(seen) - timing["compacted_at"] >= COMPACT_EVERY_POINTS:
+            timing["compacted_at"] = len(seen)
+            store.compact(merge_parts=False)
+        # Watching must stay a small share of one core, however large the store.
+        timing["next"] = time.monotonic() + max(0.5, 10 * (time.monotonic() - now))
 
     with progress:
         outcome = runner.run_snakemake(wd, config, options, lock, on_poll=poll)
+        poll(force=True)
     return outcome
 
 
@@ -263,8 +336,11 @@ def cmd_export(args) -> int:
     out.parent.mkdir(parents=True, exist_ok=True)
     if fmt == "csv":
         if "positions_angstrom" in table.columns:
-            table = table.assign(positions_angstrom=table["positions_angstrom"].map(
-                lambda p: " ".join(f"{x:.8f}" for x in p) if p is not None and len(p) else ""))
+            table = table.assign(
+                positions_angstrom=table["positions_angstrom"].map(
+                    lambda p: " ".join(f"{x:.8f}" for x in p) if p is not None and len(p) else ""
+                )
+            )
         table.to_csv(tmp, index=False)
     else:
         table.to_parquet(tmp, index=False)
@@ -282,7 +358,8 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="pesflow",
         description="Potential-energy-surface scans for sets of molecules at several levels "
-                    "of theory, run through Snakemake and PySCF, cached per point.")
+        "of theory, run through Snakemake and PySCF, cached per point.",
+    )
     parser.add_argument("--version", action="version", version=f"pesflow {__version__}")
     sub = parser.add_subparsers(dest="verb", required=True, metavar="VERB")
 
@@ -296,21 +373,27 @@ def build_parser() -> argparse.ArgumentParser:
     p = add("plan", cmd_plan, "show points, batches and what is already cached")
     p.add_argument("--cores", type=int, default=None, help="cores to plan batches for")
     p = add("run", cmd_run, "compute what is missing (resumable)")
-    p.add_argument("--cores", type=int, default=None,
-                   help="cores for local execution (default: all)")
-    p.add_argument("--profile", default=None,
-                   help="Snakemake profile folder (e.g. configs/profiles/slurm)")
-    p.add_argument("--threads-per-batch", type=int, default=1,
-                   help="PySCF threads of each batch job (default 1: parallel batches beat "
-                        "threads on small molecules)")
-    p.add_argument("--retry-failed", action="store_true",
-                   help="recompute points stored as failed")
+    p.add_argument(
+        "--cores", type=int, default=None, help="cores for local execution (default: all)"
+    )
+    p.add_argument(
+        "--profile", default=None, help="Snakemake profile folder (e.g. configs/profiles/slurm)"
+    )
+    p.add_argument(
+        "--threads-per-batch",
+        type=int,
+        default=1,
+        help="PySCF threads of each batch job (default 1: parallel batches beat "
+        "threads on small molecules)",
+    )
+    p.add_argument("--retry-failed", action="store_true", help="recompute points stored as failed")
     add("status", cmd_status, "done / failed / pending points per molecule and level")
     p = add("export", cmd_export, "write the points (or per-curve summaries) as Parquet or CSV")
     p.add_argument("-o", "--output", required=True, help="output file (.parquet or .csv)")
     p.add_argument("--what", choices=("points", "summary"), default="points")
-    p.add_argument("--format", choices=("parquet", "csv"), default=None,
-                   help="default: from the file suffix")
+    p.add_argument(
+        "--format", choices=("parquet", "csv"), default=None, help="default: from the file suffix"
+    )
     return parser
 
 

@@ -1,12 +1,12 @@
 """Cost estimates of what is left to compute (pure functions on tables).
 
-Where the store already holds timings of the same molecule at the same level,
-the median of those is used.  Otherwise a scaling model t = a * (nbf / 50)^p
-plus a fixed per-point overhead, with the textbook formal scaling exponent p of the method (HF and DFT 4, MP2 5,
-CCSD 6, CCSD(T) 7) is calibrated on whatever timings of that method exist, and
-falls back to default prefactors measured on a 2-core laptop-class CPU (PySCF
-2.14, one thread) when there are none.  Estimates are rough by nature: they say
-which level will dominate the night, not when it ends.
+Where the store already holds timings of the same molecule at the same level, the median
+of those is used. Otherwise a scaling model t = a * (nbf / 50)^p plus a fixed per-point
+overhead, with the textbook formal scaling exponent p of the method (HF and DFT 4, MP2
+5, CCSD 6, CCSD(T) 7), is calibrated on whatever timings of that method exist, and falls
+back to default prefactors measured on a 2-core laptop-class CPU (PySCF 2.14, one
+thread) when there are none. Estimates are rough by nature: they say which level will
+dominate the night, not when it ends.
 """
 
 from __future__ import annotations
@@ -37,8 +37,14 @@ def basis_function_counts(campaign) -> dict[tuple[str, str], int]:
     for mname, mol in campaign.molecules.items():
         atoms = list(zip(mol.symbols, mol.atoms.get_positions().tolist()))
         for basis in sorted({lvl.basis for lvl in campaign.levels}):
-            m = gto.M(atom=atoms, basis=basis, charge=mol.charge, spin=mol.multiplicity - 1,
-                      unit="Angstrom", verbose=0)
+            m = gto.M(
+                atom=atoms,
+                basis=basis,
+                charge=mol.charge,
+                spin=mol.multiplicity - 1,
+                unit="Angstrom",
+                verbose=0,
+            )
             out[(mname, basis)] = int(m.nao)
     return out
 
@@ -70,8 +76,14 @@ def estimate(points: pd.DataFrame, nbf: dict[tuple[str, str], int]) -> pd.DataFr
             else:
                 seconds += len(grp) * (OVERHEAD_S + prefactor[cls] * (nb / 50.0) ** EXPONENT[cls])
                 sources.add("scaling model")
-        rows.append({"level": level, "pending": len(sub), "estimate_core_h": seconds / 3600.0,
-                     "source": " + ".join(sorted(sources))})
+        rows.append(
+            {
+                "level": level,
+                "pending": len(sub),
+                "estimate_core_h": seconds / 3600.0,
+                "source": " + ".join(sorted(sources)),
+            }
+        )
     table = pd.DataFrame(rows, columns=["level", "pending", "estimate_core_h", "source"])
     total = table["estimate_core_h"].sum()
     table["share"] = table["estimate_core_h"] / total if total > 0 else 0.0

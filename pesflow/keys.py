@@ -66,8 +66,9 @@ def combine(prefix: bytes, digest: bytes) -> str:
     return hashlib.blake2b(prefix + digest, digest_size=16).hexdigest()
 
 
-def point_key(symbols, positions_angstrom, charge, multiplicity, method, basis, settings_key,
-              engine, version) -> str:
+def point_key(
+    symbols, positions_angstrom, charge, multiplicity, method, basis, settings_key, engine, version
+) -> str:
     """Key of a single point (see the module docstring)."""
     (digest,) = geometry_digests(symbols, positions_angstrom)
     prefix = level_prefix(charge, multiplicity, method, basis, settings_key, engine, version)

@@ -115,13 +115,22 @@ def _scan_sets(campaign, start_id):
             mol = campaign.molecules[mname]
             spec = [(c.kind, c.atoms, mv) for c, mv in zip(scan.coordinates, scan.moving[mname])]
             positions = coordinates.apply_grid(mol.atoms.get_positions(), spec, grid)
-            sets.append(GeometrySet(
-                set_id=start_id + len(sets), molecule=mname, scan=scan.name, role="scan",
-                symbols=mol.symbols, charge=mol.charge, multiplicity=mol.multiplicity,
-                coordinate_kinds=tuple(c.kind for c in scan.coordinates),
-                coordinate_atoms=tuple(c.atoms for c in scan.coordinates),
-                values=grid, grid_indices=idx, positions=keys.canonical_positions(positions),
-            ))
+            sets.append(
+                GeometrySet(
+                    set_id=start_id + len(sets),
+                    molecule=mname,
+                    scan=scan.name,
+                    role="scan",
+                    symbols=mol.symbols,
+                    charge=mol.charge,
+                    multiplicity=mol.multiplicity,
+                    coordinate_kinds=tuple(c.kind for c in scan.coordinates),
+                    coordinate_atoms=tuple(c.atoms for c in scan.coordinates),
+                    values=grid,
+                    grid_indices=idx,
+                    positions=keys.canonical_positions(positions),
+                )
+            )
     return sets
 
 
@@ -131,14 +140,22 @@ def _fragment_sets(campaign, start_id):
         positions = mol.atoms.get_positions()
         for f, frag in enumerate(mol.fragments):
             atoms = list(frag["atoms"])
-            sets.append(GeometrySet(
-                set_id=start_id + len(sets), molecule=mol.name, scan=f"fragment-{f + 1}",
-                role="fragment", symbols=tuple(mol.symbols[a] for a in atoms),
-                charge=frag["charge"], multiplicity=frag["multiplicity"],
-                coordinate_kinds=(), coordinate_atoms=(), values=np.zeros((1, 0)),
-                grid_indices=np.zeros((1, 0), dtype=int),
-                positions=keys.canonical_positions(positions[atoms][None]),
-            ))
+            sets.append(
+                GeometrySet(
+                    set_id=start_id + len(sets),
+                    molecule=mol.name,
+                    scan=f"fragment-{f + 1}",
+                    role="fragment",
+                    symbols=tuple(mol.symbols[a] for a in atoms),
+                    charge=frag["charge"],
+                    multiplicity=frag["multiplicity"],
+                    coordinate_kinds=(),
+                    coordinate_atoms=(),
+                    values=np.zeros((1, 0)),
+                    grid_indices=np.zeros((1, 0), dtype=int),
+                    positions=keys.canonical_positions(positions[atoms][None]),
+                )
+            )
     return sets
 
 
@@ -158,33 +175,50 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
         gs.digests = keys.geometry_digests(gs.symbols, gs.positions)
         walks = np.arange(len(gs.digests))
         for level in campaign.levels:
-            prefix = keys.level_prefix(gs.charge, gs.multiplicity, level.method, level.basis,
-                                       settings.key_dict(level.method), engine, version)
+            prefix = keys.level_prefix(
+                gs.charge,
+                gs.multiplicity,
+                level.method,
+                level.basis,
+                settings.key_dict(level.method),
+                engine,
+                version,
+            )
             columns["key"].extend(keys.combine(prefix, d) for d in gs.digests)
             columns["set_id"].append(np.full(len(walks), gs.set_id))
             columns["walk"].append(walks)
             columns["method"].extend([level.method] * len(walks))
             columns["basis"].extend([level.basis] * len(walks))
     set_id = np.concatenate(columns["set_id"]) if columns["set_id"] else np.zeros(0, int)
-    points = pd.DataFrame({
-        "set_id": set_id,
-        "walk": np.concatenate(columns["walk"]) if columns["walk"] else np.zeros(0, int),
-        "method": columns["method"],
-        "basis": columns["basis"],
-        "key": columns["key"],
-    })
-    meta = pd.DataFrame({
-        "set_id": [gs.set_id for gs in sets],
-        "molecule": [gs.molecule for gs in sets],
-        "scan": [gs.scan for gs in sets],
-        "role": [gs.role for gs in sets],
-    })
+    points = pd.DataFrame(
+        {
+            "set_id": set_id,
+            "walk": np.concatenate(columns["walk"]) if columns["walk"] else np.zeros(0, int),
+            "method": columns["method"],
+            "basis": columns["basis"],
+            "key": columns["key"],
+        }
+    )
+    meta = pd.DataFrame(
+        {
+            "set_id": [gs.set_id for gs in sets],
+            "molecule": [gs.molecule for gs in sets],
+            "scan": [gs.scan for gs in sets],
+            "role": [gs.role for gs in sets],
+        }
+    )
     points = points.merge(meta, on="set_id", how="left")
     points["level"] = points["method"] + "/" + points["basis"]
     families = {m: scf_family(m) for m in points["method"].unique()}
     points["family"] = points["method"].map(families)
-    return Plan(campaign=campaign.name, engine=engine, engine_version=version,
-                settings_key=settings_key, geometry_sets=sets, points=points)
+    return Plan(
+        campaign=campaign.name,
+        engine=engine,
+        engine_version=version,
+        settings_key=settings_key,
+        geometry_sets=sets,
+        points=points,
+    )
 
 
 def points_frame(plan: Plan) -> pd.DataFrame:
@@ -206,8 +240,15 @@ def _safe(text: str) -> str:
     return re.sub(r"[^A-Za-z0-9]+", "_", text).strip("_").lower() or "x"
 
 
-def make_batches(plan: Plan, done: set[str], cores: int = 2, *, batches_per_core: int = 3,
-                 min_points_per_batch: int = 4, max_points_per_batch: int = 250) -> list[Batch]:
+def make_batches(
+    plan: Plan,
+    done: set[str],
+    cores: int = 2,
+    *,
+    batches_per_core: int = 3,
+    min_points_per_batch: int = 4,
+    max_points_per_batch: int = 250,
+) -> list[Batch]:
     """Group the points not in ``done`` into batches.
 
     Each batch is an ordered walk (walk order of its geometry set) at one basis
@@ -226,15 +267,15 @@ def make_batches(plan: Plan, done: set[str], cores: int = 2, *, batches_per_core
     if pending.empty:
         return []
     groups = []
-    for (set_id, basis, family), sub in pending.groupby(["set_id", "basis", "family"],
-                                                         sort=True):
+    for (set_id, basis, family), sub in pending.groupby(["set_id", "basis", "family"], sort=True):
         entries = {}
         for walk, method, key in zip(sub["walk"].to_numpy(), sub["method"], sub["key"]):
             entries.setdefault(int(walk), {})[method] = key
         ordered = []
         for walk in sorted(entries):
-            methods = dict(sorted(entries[walk].items(),
-                                  key=lambda mk: _METHOD_ORDER.get(mk[0], 0)))
+            methods = dict(
+                sorted(entries[walk].items(), key=lambda mk: _METHOD_ORDER.get(mk[0], 0))
+            )
             ordered.append((walk, methods))
         weight = sum(max(_METHOD_WEIGHT.get(m, 1.0) for m in methods) for _, methods in ordered)
         groups.append((int(set_id), basis, family, ordered, weight))
@@ -249,11 +290,19 @@ def make_batches(plan: Plan, done: set[str], cores: int = 2, *, batches_per_core
         bounds = np.linspace(0, len(ordered), n_chunks + 1).round().astype(int)
         stem = _safe(f"{gs.molecule}-{gs.scan}-{basis}-{family}")
         for c in range(n_chunks):
-            chunk = ordered[bounds[c]:bounds[c + 1]]
+            chunk = ordered[bounds[c] : bounds[c + 1]]
             if not chunk:
                 continue
             first_key = next(iter(chunk[0][1].values()))
             bid = f"{stem}-{c + 1:03d}-{first_key[:8]}"
-            batches.append(Batch(batch_id=bid, set_id=set_id, basis=basis, family=family,
-                                 entries=chunk, weight=weight * len(chunk) / len(ordered)))
+            batches.append(
+                Batch(
+                    batch_id=bid,
+                    set_id=set_id,
+                    basis=basis,
+                    family=family,
+                    entries=chunk,
+                    weight=weight * len(chunk) / len(ordered),
+                )
+            )
     return batches

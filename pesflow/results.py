@@ -14,9 +14,24 @@ from pesflow.plan import Plan, points_frame
 #: Columns of the exported points table, in order (coordinate columns follow ``scan``).
 LEADING = ["campaign", "molecule", "scan", "role", "level", "method", "basis", "walk"]
 TRAILING = [
-    "status", "energy_hartree", "converged", "scf_cycles", "wall_s", "step_wall_s", "s2",
-    "reference", "symbols", "positions_angstrom", "charge", "multiplicity", "key", "engine",
-    "engine_version", "attempts_json", "extra_json", "error",
+    "status",
+    "energy_hartree",
+    "converged",
+    "scf_cycles",
+    "wall_s",
+    "step_wall_s",
+    "s2",
+    "reference",
+    "symbols",
+    "positions_angstrom",
+    "charge",
+    "multiplicity",
+    "key",
+    "engine",
+    "engine_version",
+    "attempts_json",
+    "extra_json",
+    "error",
 ]
 STATUS_COLUMNS = ["key", "converged", "error", "wall_s", "energy_hartree"]
 
@@ -49,8 +64,11 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
             frame[col] = np.nan
     frame["status"] = _status_of(frame["converged"])
     frame.insert(0, "campaign", plan.campaign)
-    coord = [c for c in frame.columns if c.endswith(("_angstrom", "_degree"))
-             and c != "positions_angstrom"]
+    coord = [
+        c
+        for c in frame.columns
+        if c.endswith(("_angstrom", "_degree")) and c != "positions_angstrom"
+    ]
     order = [c for c in LEADING if c in frame.columns] + coord
     order += [c for c in TRAILING if c in frame.columns]
     order += [c for c in frame.columns if c not in order and c not in ("set_id", "family")]
@@ -59,8 +77,7 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
 
 def status_counts(table: pd.DataFrame) -> pd.DataFrame:
     """Counts of done / failed / pending points per molecule and level."""
-    counts = (table.groupby(["molecule", "level", "status"]).size()
-              .unstack("status", fill_value=0))
+    counts = table.groupby(["molecule", "level", "status"]).size().unstack("status", fill_value=0)
     for col in ("done", "failed", "pending"):
         if col not in counts.columns:
             counts[col] = 0

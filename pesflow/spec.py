@@ -134,7 +134,8 @@ class CoordinateSpec(_Strict):
             raise PydanticCustomError("range", "give exactly one of points or step", {})
         if self.from_ == self.to:
             raise PydanticCustomError(
-                "range", "the range is empty: from equals to ({value}); give two different ends",
+                "range",
+                "the range is empty: from equals to ({value}); give two different ends",
                 {"value": self.from_},
             )
         if self.points is not None and self.points < 2:
@@ -234,7 +235,8 @@ class CampaignSpec(_Strict):
     def _campaign_name(cls, value):
         if not re.match(NAME_PATTERN, value):
             raise PydanticCustomError(
-                "name", "campaign name {value!r} is not allowed; use " + _NAME_HELP,
+                "name",
+                "campaign name {value!r} is not allowed; use " + _NAME_HELP,
                 {"value": value},
             )
         return value
@@ -245,7 +247,8 @@ class CampaignSpec(_Strict):
         for name in value:
             if not isinstance(name, str) or not re.match(NAME_PATTERN, name):
                 raise PydanticCustomError(
-                    "name", "name {value!r} is not allowed; use " + _NAME_HELP,
+                    "name",
+                    "name {value!r} is not allowed; use " + _NAME_HELP,
                     {"value": str(name)},
                 )
         return value
@@ -432,7 +435,9 @@ def _check_duplicate_keys(node, path, file):
             if name in seen:
                 raise SpecError(
                     f"key '{name}' is given twice; give each key once",
-                    file=file, line=key.start_mark.line + 1, field=_field_path(path + [name]),
+                    file=file,
+                    line=key.start_mark.line + 1,
+                    field=_field_path(path + [name]),
                 )
             seen.add(name)
             _check_duplicate_keys(value, path + [name], file)
@@ -457,15 +462,20 @@ def _read_yaml(path: Path):
         mark = getattr(exc, "problem_mark", None)
         problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
         raise SpecError(
-            f"malformed YAML: {problem}", file=path,
+            f"malformed YAML: {problem}",
+            file=path,
             line=None if mark is None else mark.line + 1,
         ) from None
     if data is None:
-        raise SpecError("the file is empty; a campaign needs campaign, molecules, scans and levels",
-                        file=path)
+        raise SpecError(
+            "the file is empty; a campaign needs campaign, molecules, scans and levels", file=path
+        )
     if not isinstance(data, dict):
-        raise SpecError("the top level must be a mapping with keys campaign, molecules, scans, "
-                        "levels", file=path, line=1)
+        raise SpecError(
+            "the top level must be a mapping with keys campaign, molecules, scans, levels",
+            file=path,
+            line=1,
+        )
     _check_duplicate_keys(node, [], path)
     return data, _Located(node)
 
@@ -482,8 +492,14 @@ def _message(err: dict) -> tuple[tuple, str]:
     if kind == "literal_error":
         return loc, f"got {err.get('input')!r}; {err['msg'].lower()}"
     # Union errors repeat the location with the member type; keep the first, plainest.
-    loc = tuple(p for p in loc if not (isinstance(p, str) and ("[" in p or p in (
-        "str", "float", "int", "list[str]", "list[float]"))))
+    loc = tuple(
+        p
+        for p in loc
+        if not (
+            isinstance(p, str)
+            and ("[" in p or p in ("str", "float", "int", "list[str]", "list[float]"))
+        )
+    )
     msg = err["msg"]
     if "input" in err and kind not in ("range", "molecule_source", "name"):
         msg = f"{msg} (got {err['input']!r})"
@@ -517,8 +533,9 @@ class _Errors:
         self.located = located
 
     def __call__(self, loc, message):
-        return SpecError(message, file=self.path, line=self.located.line(loc),
-                         field=_field_path(loc))
+        return SpecError(
+            message, file=self.path, line=self.located.line(loc), field=_field_path(loc)
+        )
 
 
 def _resolve_molecule(name, spec: MoleculeSpec, base: Path, err) -> Molecule:
@@ -557,14 +574,19 @@ def _resolve_molecule(name, spec: MoleculeSpec, base: Path, err) -> Molecule:
     contacts = mol.close_contacts(atoms, MIN_ATOM_DISTANCE_ANGSTROM)
     if contacts:
         i, j, d = contacts[0]
-        raise err(loc, f"atoms {i + 1} and {j + 1} overlap ({d:.3f} A apart; at least "
-                       f"{MIN_ATOM_DISTANCE_ANGSTROM} A is allowed)")
+        raise err(
+            loc,
+            f"atoms {i + 1} and {j + 1} overlap ({d:.3f} A apart; at least "
+            f"{MIN_ATOM_DISTANCE_ANGSTROM} A is allowed)",
+        )
     n = len(atoms)
     overrides = {}
     for atom, value in (spec.isotopes or {}).items():
         if not 1 <= atom <= n:
-            raise err(loc + ("isotopes", atom), f"atom {atom} is out of range; this molecule "
-                                                f"has atoms 1-{n}")
+            raise err(
+                loc + ("isotopes", atom),
+                f"atom {atom} is out of range; this molecule has atoms 1-{n}",
+            )
         overrides[atom] = value
     try:
         masses = mol.masses_with_isotopes(atoms, overrides or None)
@@ -575,8 +597,9 @@ def _resolve_molecule(name, spec: MoleculeSpec, base: Path, err) -> Molecule:
         floc = loc + ("fragments", f)
         for a in frag.atoms:
             if not 1 <= a <= n:
-                raise err(floc + ("atoms",), f"atom {a} is out of range; this molecule has "
-                                             f"atoms 1-{n}")
+                raise err(
+                    floc + ("atoms",), f"atom {a} is out of range; this molecule has atoms 1-{n}"
+                )
         if len(set(frag.atoms)) != len(frag.atoms):
             raise err(floc + ("atoms",), "an atom is listed twice")
         sub = atoms[[a - 1 for a in frag.atoms]]
@@ -584,24 +607,40 @@ def _resolve_molecule(name, spec: MoleculeSpec, base: Path, err) -> Molecule:
         problem = mol.multiplicity_problem(sub, frag.charge, fmult)
         if problem is not None:
             raise err(floc + ("multiplicity",), problem)
-        fragments.append({"atoms": tuple(a - 1 for a in frag.atoms), "charge": frag.charge,
-                          "multiplicity": fmult})
+        fragments.append(
+            {
+                "atoms": tuple(a - 1 for a in frag.atoms),
+                "charge": frag.charge,
+                "multiplicity": fmult,
+            }
+        )
     if fragments:
         listed = sorted(a for f in fragments for a in f["atoms"])
         if listed != list(range(n)):
-            raise err(loc + ("fragments",), "the fragments must together list every atom "
-                                            f"1-{n} exactly once")
+            raise err(
+                loc + ("fragments",),
+                f"the fragments must together list every atom 1-{n} exactly once",
+            )
         if sum(f["charge"] for f in fragments) != spec.charge:
-            raise err(loc + ("fragments",), "the fragments' charges must add up to the "
-                                            f"molecule's charge ({spec.charge})")
-    return Molecule(name=name, atoms=atoms, charge=spec.charge, multiplicity=multiplicity,
-                    masses_amu=masses, fragments=fragments)
+            raise err(
+                loc + ("fragments",),
+                f"the fragments' charges must add up to the molecule's charge ({spec.charge})",
+            )
+    return Molecule(
+        name=name,
+        atoms=atoms,
+        charge=spec.charge,
+        multiplicity=multiplicity,
+        masses_amu=masses,
+        fragments=fragments,
+    )
 
 
 def _check_values(kind, values, loc, err):
     if kind == "distance" and np.any(values <= 0):
-        raise err(loc, f"distances must be positive (got {values.min():g}); lengths are in "
-                       "angstrom")
+        raise err(
+            loc, f"distances must be positive (got {values.min():g}); lengths are in angstrom"
+        )
     if kind == "angle" and (np.any(values <= 0) or np.any(values > 180)):
         bad = values[(values <= 0) | (values > 180)][0]
         raise err(loc, f"angle {bad:g} is outside the allowed range 0 < angle <= 180 degrees")
@@ -616,8 +655,10 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
     for i, mname in enumerate(spec.molecules):
         if mname not in molecules:
             defined = ", ".join(sorted(molecules))
-            raise err(loc + ("molecules", i), f"molecule '{mname}' is not defined under "
-                                              f"molecules; defined: {defined}")
+            raise err(
+                loc + ("molecules", i),
+                f"molecule '{mname}' is not defined under molecules; defined: {defined}",
+            )
     if len(set(spec.molecules)) != len(spec.molecules):
         raise err(loc + ("molecules",), "a molecule is listed twice")
     resolved = []
@@ -625,15 +666,17 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
         cloc = loc + ("coordinates", c)
         need = coords.KINDS[cspec.type]
         if len(cspec.atoms) != need:
-            raise err(cloc + ("atoms",), f"a {cspec.type} takes {need} atoms "
-                                         f"(got {len(cspec.atoms)})")
+            raise err(
+                cloc + ("atoms",), f"a {cspec.type} takes {need} atoms (got {len(cspec.atoms)})"
+            )
         if len(set(cspec.atoms)) != len(cspec.atoms):
             raise err(cloc + ("atoms",), "an atom is listed twice")
         values = cspec.grid_values()
         field_name = "values" if cspec.values is not None else "to"
         _check_values(cspec.type, values, cloc + (field_name,), err)
-        resolved.append(Coordinate(kind=cspec.type, atoms=tuple(a - 1 for a in cspec.atoms),
-                                   values=values))
+        resolved.append(
+            Coordinate(kind=cspec.type, atoms=tuple(a - 1 for a in cspec.atoms), values=values)
+        )
     moving = {}
     for mname in spec.molecules:
         atoms = molecules[mname].atoms
@@ -643,28 +686,37 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
             cloc = loc + ("coordinates", c)
             for a in cspec.atoms:
                 if not 1 <= a <= n:
-                    raise err(cloc + ("atoms",), f"atom {a} is out of range for molecule "
-                                                 f"'{mname}', which has atoms 1-{n}")
+                    raise err(
+                        cloc + ("atoms",),
+                        f"atom {a} is out of range for molecule '{mname}', which has atoms 1-{n}",
+                    )
             move = None
             if cspec.move is not None:
                 for a in cspec.move:
                     if not 1 <= a <= n:
-                        raise err(cloc + ("move",), f"atom {a} is out of range for molecule "
-                                                    f"'{mname}', which has atoms 1-{n}")
+                        raise err(
+                            cloc + ("move",),
+                            f"atom {a} is out of range for molecule "
+                            f"'{mname}', which has atoms 1-{n}",
+                        )
                 move = [a - 1 for a in cspec.move]
             try:
                 per.append(coords.moving_atoms(atoms, coord.kind, coord.atoms, move=move))
             except ValueError as exc:
-                raise err(cloc + ("move" if move is not None else "atoms",),
-                          f"molecule '{mname}': {exc}") from None
+                raise err(
+                    cloc + ("move" if move is not None else "atoms",), f"molecule '{mname}': {exc}"
+                ) from None
         if len(resolved) == 2:
             # A trial grid corner catches coupled coordinates before anything runs.
-            corners = np.array([[resolved[0].values[i], resolved[1].values[j]]
-                                for i in (0, -1) for j in (0, -1)])
+            corners = np.array(
+                [[resolved[0].values[i], resolved[1].values[j]] for i in (0, -1) for j in (0, -1)]
+            )
             try:
-                coords.apply_grid(atoms.get_positions(),
-                                  [(co.kind, co.atoms, mv) for co, mv in zip(resolved, per)],
-                                  corners)
+                coords.apply_grid(
+                    atoms.get_positions(),
+                    [(co.kind, co.atoms, mv) for co, mv in zip(resolved, per)],
+                    corners,
+                )
             except ValueError as exc:
                 raise err(loc + ("coordinates",), f"molecule '{mname}': {exc}") from None
         moving[mname] = per
@@ -701,8 +753,10 @@ def _resolve_levels(spec: CampaignSpec, molecules, used, err) -> list[Level]:
     if ref is not None:
         labels = [lvl.label for lvl in levels]
         if ref.strip().lower() not in labels:
-            raise err(("compare", "reference_level"), f"'{ref}' is not one of the levels; "
-                                                      f"allowed: {', '.join(labels)}")
+            raise err(
+                ("compare", "reference_level"),
+                f"'{ref}' is not one of the levels; allowed: {', '.join(labels)}",
+            )
     return levels
 
 
@@ -712,18 +766,26 @@ def _check_reference_values(spec: CampaignSpec, err) -> None:
     for i, ref in enumerate(spec.compare.reference_values):
         loc = ("compare", "reference_values", i)
         if ref.molecule not in spec.molecules:
-            raise err(loc + ("molecule",), f"molecule '{ref.molecule}' is not defined; "
-                                           f"defined: {', '.join(sorted(spec.molecules))}")
+            raise err(
+                loc + ("molecule",),
+                f"molecule '{ref.molecule}' is not defined; "
+                f"defined: {', '.join(sorted(spec.molecules))}",
+            )
         scan = spec.scans.get(ref.scan)
         if scan is None:
-            raise err(loc + ("scan",), f"scan '{ref.scan}' is not defined; defined: "
-                                       f"{', '.join(sorted(spec.scans))}")
+            raise err(
+                loc + ("scan",),
+                f"scan '{ref.scan}' is not defined; defined: {', '.join(sorted(spec.scans))}",
+            )
         if ref.molecule not in scan.molecules:
-            raise err(loc + ("scan",), f"scan '{ref.scan}' does not include molecule "
-                                       f"'{ref.molecule}'")
+            raise err(
+                loc + ("scan",), f"scan '{ref.scan}' does not include molecule '{ref.molecule}'"
+            )
         if ref.quantity not in DEVIATION_COLUMNS:
-            raise err(loc + ("quantity",), f"unknown quantity '{ref.quantity}'; allowed: "
-                                           f"{', '.join(DEVIATION_COLUMNS)}")
+            raise err(
+                loc + ("quantity",),
+                f"unknown quantity '{ref.quantity}'; allowed: {', '.join(DEVIATION_COLUMNS)}",
+            )
 
 
 def load_campaign(path) -> Campaign:
@@ -737,8 +799,9 @@ def load_campaign(path) -> Campaign:
     spec = parse_spec(path)
     _, located = _read_yaml(path)
     err = _Errors(path, located)
-    molecules = {name: _resolve_molecule(name, m, path.parent, err)
-                 for name, m in spec.molecules.items()}
+    molecules = {
+        name: _resolve_molecule(name, m, path.parent, err) for name, m in spec.molecules.items()
+    }
     scans = {name: _resolve_scan(name, s, molecules, err) for name, s in spec.scans.items()}
     used = sorted({m for s in scans.values() for m in s.molecules})
     levels = _resolve_levels(spec, molecules, used, err)

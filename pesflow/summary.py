@@ -20,11 +20,29 @@ from pesflow.plan import coordinate_columns
 
 #: Quantities that get a deviation column against the reference level.
 DEVIATION_COLUMNS = (
-    "r_e_angstrom", "angle_e_degree", "dihedral_e_degree", "k_hartree_bohr-2",
-    "k_mdyn_angstrom-1", "k_aj_rad-2", "omega_e_cm-1", "omega_1d_cm-1", "omega_e_x_e_cm-1",
-    "nu_01_cm-1", "zpe_cm-1", "d_e_ev", "d_0_ev", "morse_d_e_ev", "b_e_cm-1",
-    "barrier_kcal_mol", "barrier_kj_mol", "barrier_cm-1", "barrier_ev",
-    "q1_e_angstrom", "q1_e_degree", "q2_e_angstrom", "q2_e_degree",
+    "r_e_angstrom",
+    "angle_e_degree",
+    "dihedral_e_degree",
+    "k_hartree_bohr-2",
+    "k_mdyn_angstrom-1",
+    "k_aj_rad-2",
+    "omega_e_cm-1",
+    "omega_1d_cm-1",
+    "omega_e_x_e_cm-1",
+    "nu_01_cm-1",
+    "zpe_cm-1",
+    "d_e_ev",
+    "d_0_ev",
+    "morse_d_e_ev",
+    "b_e_cm-1",
+    "barrier_kcal_mol",
+    "barrier_kj_mol",
+    "barrier_cm-1",
+    "barrier_ev",
+    "q1_e_angstrom",
+    "q1_e_degree",
+    "q2_e_angstrom",
+    "q2_e_degree",
 )
 _RESTRICTED = {"RHF", "RKS"}
 
@@ -32,8 +50,9 @@ _RESTRICTED = {"RHF", "RKS"}
 def _fragment_energies(table, molecule, level, n_fragments):
     if n_fragments != 2:
         return None
-    sub = table[(table["role"] == "fragment") & (table["molecule"] == molecule)
-                & (table["level"] == level)]
+    sub = table[
+        (table["role"] == "fragment") & (table["molecule"] == molecule) & (table["level"] == level)
+    ]
     energies = []
     for f in (1, 2):
         row = sub[sub["scan"] == f"fragment-{f}"]
@@ -63,9 +82,11 @@ def _curve_row(campaign, gs, sub, table):
         mu, diatomic = _stretch_mass(campaign, gs.molecule, gs.scan)
         mol = campaign.molecules[gs.molecule]
         options = dict(
-            reduced_mass_amu=mu, diatomic=diatomic,
+            reduced_mass_amu=mu,
+            diatomic=diatomic,
             fragment_energies_hartree=_fragment_energies(
-                table, gs.molecule, sub["level"].iloc[0], len(mol.fragments)),
+                table, gs.molecule, sub["level"].iloc[0], len(mol.fragments)
+            ),
             restricted_closed_shell_reference=bool(refs) and refs <= _RESTRICTED,
         )
     return summarize_curve(kind, sub[column].to_numpy(float), energies, **options)
@@ -96,8 +117,12 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
         else:
             row = _surface_row(campaign, gs, sub)
         head = {
-            "campaign": campaign.name, "molecule": gs.molecule, "scan": gs.scan,
-            "level": level, "method": sub["method"].iloc[0], "basis": sub["basis"].iloc[0],
+            "campaign": campaign.name,
+            "molecule": gs.molecule,
+            "scan": gs.scan,
+            "level": level,
+            "method": sub["method"].iloc[0],
+            "basis": sub["basis"].iloc[0],
             "coordinates": ", ".join(c.label for c in campaign.scans[gs.scan].coordinates),
             "n_done": int((sub["status"] == "done").sum()),
             "n_failed_points": int((sub["status"] == "failed").sum()),

@@ -53,7 +53,8 @@ def convert_energy(value_hartree, unit):
     try:
         factor = ENERGY_FACTORS[unit]
     except KeyError:
-        raise ValueError(f"unknown energy unit {unit!r}; allowed: {', '.join(ENERGY_FACTORS)}")
+        allowed = ", ".join(ENERGY_FACTORS)
+        raise ValueError(f"unknown energy unit {unit!r}; allowed: {allowed}") from None
     return value_hartree * factor
 
 

@@ -8,8 +8,7 @@ from pesflow import cost
 
 
 def table(rows):
-    return pd.DataFrame(rows, columns=["molecule", "level", "method", "basis", "status",
-                                       "wall_s"])
+    return pd.DataFrame(rows, columns=["molecule", "level", "method", "basis", "status", "wall_s"])
 
 
 def test_stored_timings_are_used_for_the_same_molecule_and_level():

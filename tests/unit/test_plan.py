@@ -45,7 +45,8 @@ def test_expansion_counts_and_columns():
     np.testing.assert_allclose(stretch["r_angstrom"], np.linspace(0.8, 1.2, 9))
     grid = frame[(frame.scan == "grid") & (frame.level == "hf/sto-3g")]
     assert set(zip(grid["r_angstrom"], grid["r2_angstrom"])) == {
-        (a, b) for a in (0.9, 1.0, 1.1) for b in (0.9, 1.0)}
+        (a, b) for a in (0.9, 1.0, 1.1) for b in (0.9, 1.0)
+    }
 
 
 def test_geometries_hold_their_scan_values():
@@ -75,15 +76,25 @@ def test_keys_are_stable_and_content_addressed():
     assert set(expand(campaign(), version="other").points["key"]).isdisjoint(a.points["key"])
     tighter = SPEC + "engine: {conv_tol: 1.0e-9}\n"
     assert set(expand(campaign(tighter, "t.yaml"), version="test").points["key"]).isdisjoint(
-        a.points["key"])
+        a.points["key"]
+    )
 
 
 def test_key_matches_single_point_function():
     plan = expand(campaign(), version="test")
     row = plan.points.iloc[3]
     symbols, positions, charge, mult = plan.geometry(row.set_id, row.walk)
-    key = keys.point_key(symbols, positions, charge, mult, row.method, row.basis,
-                         plan.method_key(row.method), "pyscf", "test")
+    key = keys.point_key(
+        symbols,
+        positions,
+        charge,
+        mult,
+        row.method,
+        row.basis,
+        plan.method_key(row.method),
+        "pyscf",
+        "test",
+    )
     assert key == row.key
 
 
@@ -120,8 +131,9 @@ def test_long_scans_are_chunked_for_the_cores():
     long_scan = SPEC.replace("points: 9", "points: 120")
     plan = expand(campaign(long_scan), version="test")
     batches = make_batches(plan, done=set(), cores=2, batches_per_core=3)
-    hf_stretch = [b for b in batches if plan.geometry_sets[b.set_id].scan == "stretch"
-                  and b.family == "hf"]
+    hf_stretch = [
+        b for b in batches if plan.geometry_sets[b.set_id].scan == "stretch" and b.family == "hf"
+    ]
     assert len(hf_stretch) >= 2
     sizes = [len(b.entries) for b in hf_stretch]
     assert sum(sizes) == 120 and min(sizes) >= 4

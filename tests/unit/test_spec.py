@@ -88,54 +88,97 @@ def test_good_spec_check_exit_0(capsys):
 
 
 def test_unknown_key(capsys):
-    msg = refused(GOOD.replace("campaign: unit-spec", "campaign: unit-spec\ncampaing: typo"),
-                  capsys, "campaing", "unknown key", "allowed:")
+    msg = refused(
+        GOOD.replace("campaign: unit-spec", "campaign: unit-spec\ncampaing: typo"),
+        capsys,
+        "campaing",
+        "unknown key",
+        "allowed:",
+    )
     assert ":2:" in msg
 
 
 def test_unknown_key_nested(capsys):
-    refused(GOOD.replace("points: 15}", "points: 15, pionts: 3}"), capsys,
-            "scans.stretch.coordinates[0].pionts", "unknown key", ":10:")
+    refused(
+        GOOD.replace("points: 15}", "points: 15, pionts: 3}"),
+        capsys,
+        "scans.stretch.coordinates[0].pionts",
+        "unknown key",
+        ":10:",
+    )
 
 
 def test_unknown_method(capsys):
-    refused(GOOD.replace("method: b3lyp", "method: ccsdt-q"), capsys,
-            "levels[1].method", "ccsdt-q", "hf, mp2, ccsd, ccsd(t)")
+    refused(
+        GOOD.replace("method: b3lyp", "method: ccsdt-q"),
+        capsys,
+        "levels[1].method",
+        "ccsdt-q",
+        "hf, mp2, ccsd, ccsd(t)",
+    )
 
 
 def test_unknown_basis(capsys):
-    refused(GOOD.replace("basis: sto-3g}", "basis: no-such-basis}"), capsys,
-            "levels[1].basis", "no-such-basis")
+    refused(
+        GOOD.replace("basis: sto-3g}", "basis: no-such-basis}"),
+        capsys,
+        "levels[1].basis",
+        "no-such-basis",
+    )
 
 
 def test_atom_number_out_of_range(capsys):
-    refused(GOOD.replace("atoms: [2, 1, 3]", "atoms: [2, 1, 5]"), capsys,
-            "scans.bend.coordinates[0].atoms", "atom 5", "1-3")
+    refused(
+        GOOD.replace("atoms: [2, 1, 3]", "atoms: [2, 1, 5]"),
+        capsys,
+        "scans.bend.coordinates[0].atoms",
+        "atom 5",
+        "1-3",
+    )
 
 
 def test_wrong_atom_count_for_coordinate(capsys):
-    refused(GOOD.replace("atoms: [2, 1, 3]", "atoms: [2, 1]"), capsys,
-            "scans.bend.coordinates[0].atoms", "angle takes 3 atoms")
+    refused(
+        GOOD.replace("atoms: [2, 1, 3]", "atoms: [2, 1]"),
+        capsys,
+        "scans.bend.coordinates[0].atoms",
+        "angle takes 3 atoms",
+    )
 
 
 def test_impossible_multiplicity(capsys):
-    refused(GOOD.replace("charge: 0, multiplicity: 2", "charge: 0, multiplicity: 1"), capsys,
-            "molecules.oh_radical.multiplicity", "9 electrons")
+    refused(
+        GOOD.replace("charge: 0, multiplicity: 2", "charge: 0, multiplicity: 1"),
+        capsys,
+        "molecules.oh_radical.multiplicity",
+        "9 electrons",
+    )
 
 
 def test_impossible_charge_default_multiplicity(capsys):
-    refused(GOOD.replace("{builtin: HF}", "{builtin: HF, charge: 11}"), capsys,
-            "molecules.hf_molecule.charge")
+    refused(
+        GOOD.replace("{builtin: HF}", "{builtin: HF, charge: 11}"),
+        capsys,
+        "molecules.hf_molecule.charge",
+    )
 
 
 def test_overlapping_atoms(capsys):
-    refused(GOOD.replace('"O 0 0 0\\nH 0 0 0.97"', '"O 0 0 0\\nH 0 0 0.1"'), capsys,
-            "molecules.oh_radical", "overlap")
+    refused(
+        GOOD.replace('"O 0 0 0\\nH 0 0 0.97"', '"O 0 0 0\\nH 0 0 0.1"'),
+        capsys,
+        "molecules.oh_radical",
+        "overlap",
+    )
 
 
 def test_empty_range(capsys):
-    refused(GOOD.replace("from: 0.7, to: 1.4", "from: 1.0, to: 1.0"), capsys,
-            "scans.stretch.coordinates[0]", "empty")
+    refused(
+        GOOD.replace("from: 0.7, to: 1.4", "from: 1.0, to: 1.0"),
+        capsys,
+        "scans.stretch.coordinates[0]",
+        "empty",
+    )
 
 
 def test_negative_step(capsys):
@@ -143,8 +186,11 @@ def test_negative_step(capsys):
 
 
 def test_negative_distance(capsys):
-    refused(GOOD.replace("from: 0.7, to: 1.4", "from: -0.2, to: 1.4"), capsys,
-            "distances must be positive")
+    refused(
+        GOOD.replace("from: 0.7, to: 1.4", "from: -0.2, to: 1.4"),
+        capsys,
+        "distances must be positive",
+    )
 
 
 def test_too_few_points(capsys):
@@ -152,18 +198,31 @@ def test_too_few_points(capsys):
 
 
 def test_angle_outside_0_180(capsys):
-    refused(GOOD.replace("from: 90, to: 120", "from: 90, to: 200"), capsys,
-            "scans.bend.coordinates[0].to", "0 < angle <= 180")
+    refused(
+        GOOD.replace("from: 90, to: 120", "from: 90, to: 200"),
+        capsys,
+        "scans.bend.coordinates[0].to",
+        "0 < angle <= 180",
+    )
 
 
 def test_missing_file(capsys):
-    refused(GOOD.replace("{file: water.xyz}", "{file: nowhere.xyz}"), capsys,
-            "molecules.water.file", "nowhere.xyz")
+    refused(
+        GOOD.replace("{file: water.xyz}", "{file: nowhere.xyz}"),
+        capsys,
+        "molecules.water.file",
+        "nowhere.xyz",
+    )
 
 
 def test_undefined_molecule(capsys):
-    refused(GOOD.replace("molecules: [water]", "molecules: [steam]"), capsys,
-            "scans.bend.molecules[0]", "steam", "defined:")
+    refused(
+        GOOD.replace("molecules: [water]", "molecules: [steam]"),
+        capsys,
+        "scans.bend.molecules[0]",
+        "steam",
+        "defined:",
+    )
 
 
 def test_malformed_yaml(capsys):
@@ -182,33 +241,55 @@ def test_missing_spec_file(capsys):
 
 
 def test_duplicate_key(capsys):
-    refused(GOOD.replace("  bend:\n", "  stretch:\n    molecules: [water]\n    coordinates: []\n"
-                                      "  bend:\n"), capsys, "given twice")
+    refused(
+        GOOD.replace(
+            "  bend:\n", "  stretch:\n    molecules: [water]\n    coordinates: []\n  bend:\n"
+        ),
+        capsys,
+        "given twice",
+    )
 
 
 def test_two_molecule_sources(capsys):
-    refused(GOOD.replace("{builtin: HF}", "{builtin: HF, xyz: 'H 0 0 0'}"), capsys,
-            "molecules.hf_molecule", "exactly one of builtin, file or xyz")
+    refused(
+        GOOD.replace("{builtin: HF}", "{builtin: HF, xyz: 'H 0 0 0'}"),
+        capsys,
+        "molecules.hf_molecule",
+        "exactly one of builtin, file or xyz",
+    )
 
 
 def test_bad_campaign_name(capsys):
-    refused(GOOD.replace("campaign: unit-spec", "campaign: Unit Spec!"), capsys,
-            "campaign", "not allowed")
+    refused(
+        GOOD.replace("campaign: unit-spec", "campaign: Unit Spec!"),
+        capsys,
+        "campaign",
+        "not allowed",
+    )
 
 
 def test_unknown_builtin(capsys):
-    refused(GOOD.replace("{builtin: HF}", "{builtin: HFF}"), capsys,
-            "molecules.hf_molecule.builtin", "HFF")
+    refused(
+        GOOD.replace("{builtin: HF}", "{builtin: HFF}"),
+        capsys,
+        "molecules.hf_molecule.builtin",
+        "HFF",
+    )
 
 
 def test_reference_level_not_in_levels(capsys):
-    refused(GOOD.replace("reference_level: hf/6-31g", "reference_level: mp2/6-31g"), capsys,
-            "compare.reference_level", "allowed: hf/sto-3g")
+    refused(
+        GOOD.replace("reference_level: hf/6-31g", "reference_level: mp2/6-31g"),
+        capsys,
+        "compare.reference_level",
+        "allowed: hf/sto-3g",
+    )
 
 
 def test_ring_coordinate_refused_unless_moving_atoms_given(capsys):
     ring = GOOD.replace("hf_molecule: {builtin: HF}", "benzene: {builtin: C6H6}").replace(
-        "molecules: [hf_molecule, oh_radical]", "molecules: [benzene]")
+        "molecules: [hf_molecule, oh_radical]", "molecules: [benzene]"
+    )
     refused(ring, capsys, "ring", "move")
     ok = ring.replace("points: 15}", "points: 15, move: [2, 8]}")
     assert main(["check", str(write(ok))]) == 0

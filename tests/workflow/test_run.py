@@ -11,7 +11,6 @@ import subprocess
 import sys
 import textwrap
 import time
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -39,8 +38,13 @@ store: store
 
 def pesflow(*args, check=None, timeout=600):
     env = dict(os.environ, OMP_NUM_THREADS="1")
-    proc = subprocess.run([sys.executable, "-m", "pesflow", *args], capture_output=True,
-                          text=True, env=env, timeout=timeout)
+    proc = subprocess.run(
+        [sys.executable, "-m", "pesflow", *args],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=timeout,
+    )
     if check is not None:
         assert proc.returncode == check, proc.stdout + proc.stderr
     return proc
@@ -52,8 +56,14 @@ def direct_energy(row):
 
     symbols = row["symbols"].split()
     xyz = np.asarray(row["positions_angstrom"]).reshape(-1, 3)
-    mol = gto.M(atom=list(zip(symbols, xyz.tolist())), basis=row["basis"], unit="Angstrom",
-                spin=int(row["multiplicity"]) - 1, charge=int(row["charge"]), verbose=0)
+    mol = gto.M(
+        atom=list(zip(symbols, xyz.tolist())),
+        basis=row["basis"],
+        unit="Angstrom",
+        spin=int(row["multiplicity"]) - 1,
+        charge=int(row["charge"]),
+        verbose=0,
+    )
     mf = (scf.RHF if mol.spin == 0 else scf.UHF)(mol)
     mf.conv_tol = 1e-10
     e = mf.kernel()
@@ -73,8 +83,10 @@ def test_run_rerun_export(tmp_path):
 
     again = pesflow("run", str(spec), "--cores", "2", check=0)
     assert "nothing to compute" in again.stdout
-    assert sorted((p.name, p.stat().st_mtime_ns)
-                  for p in (tmp_path / "store").rglob("*.parquet")) == files
+    assert (
+        sorted((p.name, p.stat().st_mtime_ns) for p in (tmp_path / "store").rglob("*.parquet"))
+        == files
+    )
 
     status = pesflow("status", str(spec), check=0)
     assert "20 done, 0 failed, 0 pending" in status.stdout
@@ -85,14 +97,26 @@ def test_run_rerun_export(tmp_path):
     csv = pd.read_csv(tmp_path / "points.csv")
     assert len(table) == len(csv) == 20
     assert set(table["status"]) == {"done"}
-    for col in ("campaign", "molecule", "scan", "method", "basis", "r_angstrom",
-                "energy_hartree", "converged", "scf_cycles", "wall_s", "key", "engine",
-                "engine_version", "error", "positions_angstrom"):
+    for col in (
+        "campaign",
+        "molecule",
+        "scan",
+        "method",
+        "basis",
+        "r_angstrom",
+        "energy_hartree",
+        "converged",
+        "scf_cycles",
+        "wall_s",
+        "key",
+        "engine",
+        "engine_version",
+        "error",
+        "positions_angstrom",
+    ):
         assert col in table.columns
-    np.testing.assert_allclose(np.sort(table["r_angstrom"].unique()),
-                               np.linspace(0.6, 1.2, 5))
-    np.testing.assert_allclose(table["energy_hartree"], csv["energy_hartree"], rtol=0,
-                               atol=1e-12)
+    np.testing.assert_allclose(np.sort(table["r_angstrom"].unique()), np.linspace(0.6, 1.2, 5))
+    np.testing.assert_allclose(table["energy_hartree"], csv["energy_hartree"], rtol=0, atol=1e-12)
     for _, row in table.iloc[::3].iterrows():
         assert row["energy_hartree"] == pytest.approx(direct_energy(row), abs=1e-7)
     oh = table[(table.molecule == "hydroxyl") & (table.method == "hf")]
@@ -127,9 +151,13 @@ def test_sigkill_midrun_then_rerun_gives_every_point_once(tmp_path):
     spec = tmp_path / "kill.yaml"
     spec.write_text(KILL)
     env = dict(os.environ, OMP_NUM_THREADS="1")
-    proc = subprocess.Popen([sys.executable, "-m", "pesflow", "run", str(spec), "--cores", "2"],
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env,
-                            start_new_session=True)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "pesflow", "run", str(spec), "--cores", "2"],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+        env=env,
+        start_new_session=True,
+    )
     fragments = tmp_path / "store" / "fragments"
     deadline = time.monotonic() + 300
     while time.monotonic() < deadline:
@@ -167,7 +195,8 @@ def test_sigkill_midrun_then_rerun_gives_every_point_once(tmp_path):
 
 def test_failed_point_is_recorded_and_exit_code_is_1(tmp_path):
     spec = tmp_path / "fail.yaml"
-    spec.write_text(textwrap.dedent("""\
+    spec.write_text(
+        textwrap.dedent("""\
         campaign: wf-fail
         molecules:
           hydroxyl: {xyz: "O 0 0 0\\nH 0 0 0.97", multiplicity: 2}
@@ -180,7 +209,8 @@ def test_failed_point_is_recorded_and_exit_code_is_1(tmp_path):
           - {method: hf, basis: 6-31g}
         engine: {max_cycle: 1, scf_ladder: [default]}
         store: store
-        """))
+        """)
+    )
     out = pesflow("run", str(spec), "--cores", "1", check=1)
     assert "failed" in out.stdout
     assert "did not converge" in out.stdout
@@ -213,10 +243,30 @@ def test_snakemake_lint_and_dry_run(tmp_path):
     (wd / "tasks").mkdir(parents=True)
     (wd / "tasks" / "b-001.json").write_text("{}")
     config = wd / "config.json"
-    config.write_text(json.dumps({"campaign": "x", "batches": ["b-001"], "threads_per_batch": 1,
-                                  "mem_mb_per_batch": 1000, "runtime_min_per_batch": 10}))
-    base = [sys.executable, "-m", "snakemake", "--snakefile", str(workflow_dir() / "Snakefile"),
-            "--directory", str(wd), "--configfile", str(config), "--cores", "1"]
+    config.write_text(
+        json.dumps(
+            {
+                "campaign": "x",
+                "batches": ["b-001"],
+                "threads_per_batch": 1,
+                "mem_mb_per_batch": 1000,
+                "runtime_min_per_batch": 10,
+            }
+        )
+    )
+    base = [
+        sys.executable,
+        "-m",
+        "snakemake",
+        "--snakefile",
+        str(workflow_dir() / "Snakefile"),
+        "--directory",
+        str(wd),
+        "--configfile",
+        str(config),
+        "--cores",
+        "1",
+    ]
     dry = subprocess.run(base + ["--dry-run"], capture_output=True, text=True)
     assert dry.returncode == 0, dry.stdout + dry.stderr
     assert "batch" in dry.stdout
@@ -235,9 +285,14 @@ def test_interrupt_stops_cleanly_and_rerun_finishes(tmp_path, how):
     spec = tmp_path / "kill.yaml"
     spec.write_text(KILL.replace("points: 24", "points: 12"))
     env = dict(os.environ, OMP_NUM_THREADS="1")
-    proc = subprocess.Popen([sys.executable, "-m", "pesflow", "run", str(spec), "--cores", "2"],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env,
-                            start_new_session=True)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "pesflow", "run", str(spec), "--cores", "2"],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        env=env,
+        start_new_session=True,
+    )
     fragments = tmp_path / "store" / "fragments"
     deadline = time.monotonic() + 300
     while time.monotonic() < deadline:
