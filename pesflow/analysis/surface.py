@@ -418,7 +418,12 @@ def _redistribute(path, n_images):
     if s[-1] == 0:
         return np.repeat(path[:1], n_images, axis=0)
     t = np.linspace(0.0, s[-1], n_images)
-    return np.stack([np.interp(t, s, path[:, ax]) for ax in (0, 1)], axis=-1)
+    keep = np.concatenate([[True], seg > 1e-12])  # drop repeated images
+    if keep.sum() < 4:
+        return np.stack([np.interp(t, s, path[:, ax]) for ax in (0, 1)], axis=-1)
+    # A cubic through the images (not straight segments) keeps a curved path from cutting
+    # its corners when the images are redistributed.
+    return make_interp_spline(s[keep], path[keep], k=3, axis=0)(t)
 
 
 def minimum_energy_path(surface, start_q, end_q, *, n_images=41, max_iter=5000, tol=1e-7):
