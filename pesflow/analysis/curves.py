@@ -231,7 +231,7 @@ def _degree_for(n_points, order, periodic):
     """Highest odd spline degree <= ``order`` that ``n_points`` points support."""
     available = n_points - 1 if not periodic else n_points  # periodic adds the closing point
     k = min(order, available)
-    if k > 1 and k % 2 == 0:
+    if k > 2 and k % 2 == 0:  # three points still make a parabola
         k -= 1
     return max(k, 1)
 
@@ -409,6 +409,8 @@ def grid_quality(
                 if rel > curvature_rtol:
                     reasons.append(f"its force constant by {100 * rel:.2g} %")
                 ratios.append(rel / curvature_rtol)
+        if reasons:
+            reasons[-1] += " with the interpolation order"
         if p.kind == "minimum" and not curve.periodic:
             n_side = min(int(np.sum(q < p.q)), int(np.sum(q > p.q)))
             if n_side < 2:
@@ -425,7 +427,7 @@ def grid_quality(
         new_step = max(0.7 * step / max(ratios) ** (1.0 / power), step / 8.0)
         flags.append(
             f"grid too coarse near the {p.kind} at {_fmt(p.q)} {unit} "
-            f"({', '.join(reasons)} with the interpolation order): add points between "
+            f"({', '.join(reasons)}): add points between "
             f"{_fmt(left)} and {_fmt(right)} {unit}, step {new_step:.2g} {unit} or finer"
         )
     return flags
