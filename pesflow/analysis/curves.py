@@ -25,10 +25,12 @@ periodic end conditions for a dihedral that covers the full circle.  Why quintic
 With fewer than 6 points the degree drops to n - 1 (odd degrees preferred), and the grid is
 then nearly always flagged as too coarse.
 
-The same construction one order lower (cubic instead of quintic) gives a second estimate of
-every stationary point; where the two disagree by more than a tolerance the grid is too
-coarse there, and the flag says between which scanned points to add more and at what step
-(:func:`grid_quality`).
+The same construction two degrees higher (septic; or two lower, or a parabola, on short
+grids) gives a second estimate of every stationary point: where the two disagree by more than
+a tolerance the grid does not resolve that point, and the flag says between which scanned
+points to add more and at what step (:func:`grid_quality`).  Noise is told apart from coarse
+spacing by leave-one-out prediction: a higher degree predicts a left-out point of a smooth
+curve much better, but not a noisy one (:func:`noisy_points`).
 
 Minima and maxima are taken from the *grid* first (a scanned point lower, or higher, than both
 neighbours, :func:`scipy.signal.find_peaks`), then refined to the stationary point of the
@@ -52,8 +54,8 @@ from scipy.signal import find_peaks
 
 #: Default degree of the interpolating spline (see the module docstring).
 DEFAULT_ORDER = 5
-#: A coarse grid is flagged when the force constant of the best and the one-order-lower
-#: interpolant differ by more than this fraction (1 %).
+#: A coarse grid is flagged when the force constants from the main and the companion
+#: interpolant (see :func:`grid_quality`) differ by more than this fraction (1 %).
 DEFAULT_CURVATURE_RTOL = 0.01
 #: ... or when their stationary-point positions differ by more than this, per coordinate unit.
 DEFAULT_POSITION_TOL = {"angstrom": 1e-3, "degree": 0.1}
@@ -491,10 +493,10 @@ def noisy_points(curve, *, order=DEFAULT_ORDER, noise_floor_hartree=DEFAULT_NOIS
     and the leave-one-out residuals of every point (NaN where not computable).
     """
     # An outlier also spoils the prediction of its neighbours, so remove the worst point and
-    # look again, until the rest is smooth (at most a third of the points).
+    # look again, until the rest is smooth (at most a third of the points, and ten).
     original = np.arange(curve.n_points)
     work, flagged, first = curve, [], None
-    for _ in range(max(1, curve.n_points // 3)):
+    for _ in range(max(1, min(curve.n_points // 3, 10))):
         hi = leave_one_out_residuals(work, order=order)
         lo = leave_one_out_residuals(work, order=order - 2)
         if first is None:
