@@ -595,10 +595,10 @@ def analyze_curve(
     if bad:
         where = ", ".join(_fmt(q[i]) for i in bad)
         flags.append(
-            f"noisy energies at {where} {label}: up to {np.nanmax(np.abs(res[bad])):.2g} hartree "
-            "off the interpolant of their neighbours (not explained by the grid spacing); "
-            "tighten the SCF convergence or integration grid, or check for a jump to another "
-            "SCF solution"
+            f"noisy or non-smooth energies at {where} {label}: up to "
+            f"{np.nanmax(np.abs(res[bad])):.2g} hartree off the interpolant of their neighbours "
+            "(not explained by the grid spacing); tighten the SCF convergence or integration "
+            "grid, or check for a jump to another SCF solution (or a Coulson-Fischer point)"
         )
     return CurveAnalysis(
         curve=curve,

@@ -409,10 +409,13 @@ def analyze_stretch(
     )
     if levels.n_trusted < 2:
         v = levels.n_trusted
+        # The end with the lower energy traps the levels first: extend the scan there.
+        low_start = curve.energy_hartree[0] < curve.energy_hartree[-1]
+        where = f"below {curve.q[0]:.4g} A" if low_start else f"above {curve.q[-1]:.4g} A"
         flags.append(
             f"only {v} vibrational level(s) converged within the scanned range "
-            f"({curve.q[0]:.4g}-{curve.q[-1]:.4g} A; levels are trapped by its ends): "
-            "extend the scan on both sides for nu_01, ZPE and anharmonicity from levels"
+            f"({curve.q[0]:.4g}-{curve.q[-1]:.4g} A, whose ends trap the levels): "
+            f"extend the scan {where} for nu_01, ZPE and anharmonicity from levels"
         )
     _, wexe = levels.anharmonic_constants_cm1()
     source = "levels"
