@@ -52,6 +52,7 @@ class GeometrySet:
     values: np.ndarray  # (m, k) scan values, angstrom / degree
     grid_indices: np.ndarray  # (m, k)
     positions: np.ndarray  # (m, n, 3) canonical, angstrom
+    levels: tuple = ()  # levels of theory computed on this set
     digests: list[bytes] = field(repr=False, default_factory=list)
 
 
@@ -129,6 +130,7 @@ def _scan_sets(campaign, start_id):
                     values=grid,
                     grid_indices=idx,
                     positions=keys.canonical_positions(positions),
+                    levels=tuple(scan.levels),
                 )
             )
     return sets
@@ -138,6 +140,11 @@ def _fragment_sets(campaign, start_id):
     sets = []
     for mol in campaign.molecules.values():
         positions = mol.atoms.get_positions()
+        levels = []
+        for scan in campaign.scans.values():
+            if mol.name in scan.molecules:
+                levels += [lvl for lvl in scan.levels if lvl not in levels]
+        levels = tuple(levels)
         for f, frag in enumerate(mol.fragments):
             atoms = list(frag["atoms"])
             sets.append(
@@ -154,6 +161,7 @@ def _fragment_sets(campaign, start_id):
                     values=np.zeros((1, 0)),
                     grid_indices=np.zeros((1, 0), dtype=int),
                     positions=keys.canonical_positions(positions[atoms][None]),
+                    levels=levels,
                 )
             )
     return sets
@@ -174,7 +182,7 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
     for gs in sets:
         gs.digests = keys.geometry_digests(gs.symbols, gs.positions)
         walks = np.arange(len(gs.digests))
-        for level in campaign.levels:
+        for level in gs.levels:
             prefix = keys.level_prefix(
                 gs.charge,
                 gs.multiplicity,

@@ -173,6 +173,9 @@ class ScanSpec(_Strict):
 
     molecules: list[str] = Field(min_length=1)
     coordinates: list[CoordinateSpec] = Field(min_length=1, max_length=2)
+    #: levels of this scan only (instead of the campaign's), e.g. an expensive level on
+    #: the smallest molecules
+    levels: list[LevelSpec] | None = Field(default=None, min_length=1)
 
 
 class LevelSpec(_Strict):
@@ -224,7 +227,7 @@ class CampaignSpec(_Strict):
     campaign: str
     molecules: dict[str, MoleculeSpec] = Field(min_length=1)
     scans: dict[str, ScanSpec] = Field(min_length=1)
-    levels: list[LevelSpec] = Field(min_length=1)
+    levels: list[LevelSpec] = Field(default_factory=list)
     engine: EngineSpec = EngineSpec()
     compare: CompareSpec = CompareSpec()
     store: str = "pesflow-store"
@@ -321,6 +324,8 @@ class Scan:
     coordinates: list[Coordinate]
     #: per molecule: list (one per coordinate) of 0-based moving atoms
     moving: dict[str, list[np.ndarray]]
+    #: levels of theory of this scan
+    levels: list[Level] = field(default_factory=list)
 
     def grid(self) -> np.ndarray:
         """All scan points in walk order, shape (m, k): a serpentine walk for grids,
@@ -723,41 +728,71 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
     return Scan(name=name, molecules=list(spec.molecules), coordinates=resolved, moving=moving)
 
 
-def _resolve_levels(spec: CampaignSpec, molecules, used, err) -> list[Level]:
+def _resolve_level_list(lspecs, loc, elements, err, checked_basis) -> list[Level]:
     from pesflow import engine
 
-    elements = sorted({s for m in used for s in molecules[m].symbols})
     levels = []
-    checked_basis = {}
-    for i, lspec in enumerate(spec.levels):
+    for i, lspec in enumerate(lspecs):
         for method, basis in lspec.pairs():
             try:
                 method_c = engine.canonical_method(method)
             except EngineSetupError as exc:
-                raise err(("levels", i, "method"), str(exc)) from None
+                raise err(loc + (i, "method"), str(exc)) from None
             basis_c = basis.strip().lower()
-            if basis_c not in checked_basis:
-                try:
-                    engine.check_basis(basis_c, elements)
-                    checked_basis[basis_c] = None
-                except EngineSetupError as exc:
-                    checked_basis[basis_c] = str(exc)
-            if checked_basis[basis_c] is not None:
-                raise err(("levels", i, "basis"), checked_basis[basis_c])
+            for element in elements:
+                if (basis_c, element) not in checked_basis:
+                    try:
+                        engine.check_basis(basis_c, [element])
+                        checked_basis[(basis_c, element)] = None
+                    except EngineSetupError as exc:
+                        checked_basis[(basis_c, element)] = str(exc)
+                if checked_basis[(basis_c, element)] is not None:
+                    raise err(loc + (i, "basis"), checked_basis[(basis_c, element)])
             level = Level(method_c, basis_c)
             if level in levels:
-                raise err(("levels", i), f"level {level.label} is listed twice")
+                raise err(loc + (i,), f"level {level.label} is listed twice")
             levels.append(level)
+    return levels
+
+
+def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
+    """Resolve the campaign's and each scan's levels; return their union in order."""
+    checked_basis = {}
+
+    def elements_of(names):
+        return sorted({s for m in names for s in molecules[m].symbols})
+
+    default_users = [
+        m for n, sc in scans.items() if spec.scans[n].levels is None for m in sc.molecules
+    ]
+    campaign_levels = _resolve_level_list(
+        spec.levels, ("levels",), elements_of(default_users), err, checked_basis
+    )
+    union = list(campaign_levels)
+    for name, scan in scans.items():
+        own = spec.scans[name].levels
+        if own is None:
+            if not campaign_levels:
+                raise err(
+                    ("scans", name),
+                    "no levels of theory: give levels at the top of the campaign or in this scan",
+                )
+            scan.levels = list(campaign_levels)
+        else:
+            scan.levels = _resolve_level_list(
+                own, ("scans", name, "levels"), elements_of(scan.molecules), err, checked_basis
+            )
+        union += [lvl for lvl in scan.levels if lvl not in union]
     _check_reference_values(spec, err)
     ref = spec.compare.reference_level
     if ref is not None:
-        labels = [lvl.label for lvl in levels]
+        labels = [lvl.label for lvl in union]
         if ref.strip().lower() not in labels:
             raise err(
                 ("compare", "reference_level"),
                 f"'{ref}' is not one of the levels; allowed: {', '.join(labels)}",
             )
-    return levels
+    return union
 
 
 def _check_reference_values(spec: CampaignSpec, err) -> None:
@@ -803,8 +838,7 @@ def load_campaign(path) -> Campaign:
         name: _resolve_molecule(name, m, path.parent, err) for name, m in spec.molecules.items()
     }
     scans = {name: _resolve_scan(name, s, molecules, err) for name, s in spec.scans.items()}
-    used = sorted({m for s in scans.values() for m in s.molecules})
-    levels = _resolve_levels(spec, molecules, used, err)
+    levels = _resolve_levels(spec, molecules, scans, err)
     return Campaign(spec=spec, path=path, molecules=molecules, scans=scans, levels=levels)
 
 

@@ -137,3 +137,34 @@ def test_long_scans_are_chunked_for_the_cores():
     assert len(hf_stretch) >= 2
     sizes = [len(b.entries) for b in hf_stretch]
     assert sum(sizes) == 120 and min(sizes) >= 4
+
+
+def test_scan_levels_override_the_campaign_levels():
+    text = SPEC.replace(
+        "      - {type: distance, atoms: [1, 2], from: 0.8, to: 1.2, points: 9}\n",
+        "      - {type: distance, atoms: [1, 2], from: 0.8, to: 1.2, points: 9}\n"
+        "    levels:\n      - {method: ccsd, basis: 6-31g}\n",
+    )
+    c = campaign(text, "s.yaml")
+    assert [lvl.label for lvl in c.scans["stretch"].levels] == ["ccsd/6-31g"]
+    assert [lvl.label for lvl in c.levels] == [
+        "hf/sto-3g",
+        "mp2/sto-3g",
+        "b3lyp/sto-3g",
+        "ccsd/6-31g",
+    ]
+    plan = expand(c, version="test")
+    assert len(plan.points) == 9 * 1 + 6 * 3
+    assert set(plan.points[plan.points.scan == "stretch"]["level"]) == {"ccsd/6-31g"}
+
+
+def test_fragments_are_planned_at_the_levels_of_their_molecule():
+    text = SPEC.replace(
+        "hf_molecule: {builtin: HF}",
+        "hf_molecule: {builtin: HF, fragments: [{atoms: [1]}, {atoms: [2]}]}",
+    )
+    plan = expand(campaign(text, "f.yaml"), version="test")
+    frag = plan.points[plan.points.role == "fragment"]
+    assert len(frag) == 2 * 3
+    sets = {gs.scan: gs for gs in plan.geometry_sets if gs.role == "fragment"}
+    assert sets["fragment-1"].multiplicity == 2 and sets["fragment-2"].multiplicity == 2
