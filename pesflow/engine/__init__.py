@@ -120,6 +120,13 @@ class EngineSettings:
         grid_level: DFT integration grid level, 0-9 [3].
         scf_ladder: SCF strategies tried in order until one converges, from
             :data:`SCF_RUNGS` [all four].
+        broken_symmetry: for a closed-shell singlet, use an unrestricted reference
+            (UHF/UKS) started from a spin-broken guess, so that a stretched bond
+            can dissociate into open-shell fragments [False].  Needs ``reference``
+            ``auto`` or ``unrestricted``; open shells are unrestricted already.
+        stability: after the SCF converges, test the solution for a lower one
+            nearby (the orbital Hessian's lowest eigenvalue) and follow any
+            instability found [False].
         threads: OpenMP threads for the engine [1]; does not change a number.
         max_memory_mb: memory the engine may use, in MB [4000]; does not change a number.
     """
@@ -130,6 +137,8 @@ class EngineSettings:
     frozen_core: bool = False
     grid_level: int = 3
     scf_ladder: tuple[str, ...] = SCF_RUNGS
+    broken_symmetry: bool = False
+    stability: bool = False
     threads: int = field(default=1, compare=False)
     max_memory_mb: int = field(default=4000, compare=False)
 
@@ -148,6 +157,11 @@ class EngineSettings:
             raise EngineSetupError(
                 f"scf_ladder {list(ladder)} must be a non-empty list of: {', '.join(SCF_RUNGS)}"
             )
+        if self.broken_symmetry and self.reference in ("restricted", "restricted-open"):
+            raise EngineSetupError(
+                f"broken_symmetry needs an unrestricted reference; reference is {self.reference!r}"
+                " (use auto or unrestricted)"
+            )
         if not 0 <= int(self.grid_level) <= 9:
             raise EngineSetupError(f"grid_level must be 0-9, got {self.grid_level}")
         if int(self.threads) < 1 or int(self.max_memory_mb) < 1:
@@ -157,6 +171,8 @@ class EngineSettings:
         object.__setattr__(self, "frozen_core", bool(self.frozen_core))
         object.__setattr__(self, "grid_level", int(self.grid_level))
         object.__setattr__(self, "scf_ladder", ladder)
+        object.__setattr__(self, "broken_symmetry", bool(self.broken_symmetry))
+        object.__setattr__(self, "stability", bool(self.stability))
         object.__setattr__(self, "threads", int(self.threads))
         object.__setattr__(self, "max_memory_mb", int(self.max_memory_mb))
 
@@ -167,9 +183,11 @@ class EngineSettings:
         fields that cannot change that method's number are left out too
         (``grid_level`` for the wavefunction methods, ``frozen_core`` for hf and DFT),
         so that points differing only there share one cache entry.
+        ``broken_symmetry`` and ``stability`` are kept for every method: both can
+        change the SCF solution that every method is built on.
 
         >>> list(EngineSettings().key_dict("hf"))
-        ['conv_tol', 'max_cycle', 'reference', 'scf_ladder']
+        ['conv_tol', 'max_cycle', 'reference', 'scf_ladder', 'broken_symmetry', 'stability']
         """
         key = {
             "conv_tol": self.conv_tol,
@@ -178,6 +196,8 @@ class EngineSettings:
             "frozen_core": self.frozen_core,
             "grid_level": self.grid_level,
             "scf_ladder": list(self.scf_ladder),
+            "broken_symmetry": self.broken_symmetry,
+            "stability": self.stability,
         }
         if method is not None:
             method = canonical_method(method)
@@ -202,8 +222,13 @@ class PointResult:
         s2: <S^2> of the reference determinant; nan for a restricted closed shell.
         reference: ``RHF``, ``UHF``, ``ROHF``, ``RKS``, ``UKS`` or ``ROKS``.
         attempts: ladder rungs tried, each ``{"rung", "converged", "cycles",
-            "energy_hartree"}``.
+            "energy_hartree"}``; with stability analysis a last entry of rung
+            ``stability`` (or ``broken-symmetry``) adds what the analysis found
+            (see :func:`pesflow.engine.pyscf.follow_instabilities`).
         error: one-line reason when failed, else None.
+        extra: JSON-serialisable details beyond the columns, empty when there are
+            none; a relaxed point has ``relaxation`` (see
+            :meth:`pesflow.engine.pyscf.PySCFEngine.relax`).
     """
 
     method: str
@@ -216,6 +241,7 @@ class PointResult:
     reference: str
     attempts: list[dict]
     error: str | None = None
+    extra: dict = field(default_factory=dict)
 
 
 def canonical_method(name: str) -> str:

@@ -11,7 +11,13 @@ guesses) has one place to go:
 * :func:`build_scf` - the SCF object of a family and reference;
 * :func:`prepare_guess` - a neighbour's density made to fit this SCF, or None;
 * :func:`run_scf_ladder` - the convergence strategies, in order, until one converges;
+* :func:`follow_instabilities` - stability analysis, and a restart from every
+  instability it finds; for a broken-symmetry singlet, the restart along the
+  RHF -> UHF instability that breaks the spin symmetry;
 * :func:`run_mp2`, :func:`run_ccsd` - the correlated steps on a converged SCF.
+
+:meth:`PySCFEngine.relax` optimises every degree of freedom but the constrained
+ones (a relaxed scan point) with geomeTRIC through PySCF's driver.
 
 PySCF itself is imported inside the functions, so importing this module (and asking
 for the engine's name and version) stays cheap.
@@ -19,8 +25,12 @@ for the engine's name and version) stays cheap.
 
 from __future__ import annotations
 
+import contextlib
 import importlib.metadata
+import logging
 import math
+import os
+import tempfile
 import time
 from dataclasses import dataclass, field
 
@@ -35,6 +45,7 @@ from pesflow.engine import (
     scf_family,
 )
 from pesflow.errors import EngineSetupError
+from pesflow.units import BOHR_ANGSTROM
 
 #: Damping factor and iteration budget factor of the "damped" rung.
 DAMP_FACTOR = 0.5
@@ -45,6 +56,20 @@ DAMPED_DIIS_START_CYCLE = 10
 LEVEL_SHIFT_HARTREE = 0.5
 #: Iteration limit of the CCSD amplitude equations (PySCF's default is 50).
 CCSD_MAX_CYCLE = 100
+#: Largest |D_alpha - D_beta| element below which a singlet density counts as
+#: spin-restricted (PySCF applies the same test before breaking its own guesses).
+SPIN_SYMMETRIC_TOLERANCE = 1e-2
+#: Instabilities followed per point before the stability analysis gives up.
+STABILITY_MAX_CYCLE = 3
+#: Geometry steps of one relaxation before it counts as not converged.
+RELAX_MAX_STEPS = 100
+#: geomeTRIC's ``enforce`` threshold: once every constraint is within it (bohr or
+#: radian), the constraints are met exactly on every further step.
+RELAX_ENFORCE = 0.1
+#: Methods with analytic nuclear gradients in PySCF that :meth:`PySCFEngine.relax` uses.
+GRADIENT_WAVEFUNCTION_METHODS = ("hf", "mp2", "ccsd")
+#: Constraint kinds of a relaxed point and the number of atoms each takes.
+CONSTRAINT_ATOMS = {"distance": 2, "angle": 3, "dihedral": 4}
 
 _SCF_LABELS = {
     ("hf", "restricted"): "RHF",
@@ -77,16 +102,21 @@ class LadderOutcome:
     last_error: str | None = None
 
 
-def resolve_reference(reference: str, multiplicity: int) -> str:
+def resolve_reference(reference: str, multiplicity: int, broken_symmetry: bool = False) -> str:
     """The reference kind for a setting and a multiplicity.
 
     ``auto`` gives ``restricted`` for a singlet and ``unrestricted`` for an open
-    shell; ``restricted`` on an open shell means restricted-open (as PySCF's RHF does).
+    shell, or for every multiplicity when ``broken_symmetry`` is set;
+    ``restricted`` on an open shell means restricted-open (as PySCF's RHF does).
 
     >>> resolve_reference("auto", 2), resolve_reference("restricted", 3)
     ('unrestricted', 'restricted-open')
+    >>> resolve_reference("auto", 1, broken_symmetry=True)
+    'unrestricted'
     """
     if reference == "auto":
+        if broken_symmetry:
+            return "unrestricted"
         return "restricted" if multiplicity == 1 else "unrestricted"
     if reference == "restricted" and multiplicity != 1:
         return "restricted-open"
@@ -191,6 +221,81 @@ def prepare_guess(guess, mf):
     return None
 
 
+def is_spin_symmetric(dm) -> bool:
+    """True for a restricted density ``(nao, nao)`` or an alpha/beta pair whose two
+    halves agree to :data:`SPIN_SYMMETRIC_TOLERANCE` in every element."""
+    dm = np.asarray(dm)
+    if dm.ndim == 2:
+        return True
+    return bool(np.max(np.abs(dm[0] - dm[1])) < SPIN_SYMMETRIC_TOLERANCE)
+
+
+@dataclass
+class StabilityCheck:
+    """What :func:`analyse_stability` found at one converged SCF.
+
+    Fields:
+        direction: None when stable, else the instability to follow: ``internal``
+            (a lower solution of the same kind) or ``rhf->uhf`` (an unrestricted
+            singlet sitting on the restricted solution, below which a spin-broken
+            one lies).
+        dm: the density of the rotated orbitals to restart the SCF from, or None.
+        rhf_to_uhf_stable: for a restricted closed shell, whether it is also stable
+            towards an unrestricted solution (reported, not followed: the
+            reference is a setting); None for other references.
+    """
+
+    direction: str | None
+    dm: object = None
+    rhf_to_uhf_stable: bool | None = None
+
+
+def analyse_stability(mf, internal: bool = True) -> StabilityCheck:
+    """PySCF's stability analysis of a converged SCF, as appropriate to its reference.
+
+    * RHF/RKS: internal (RHF -> RHF) instabilities, to follow; the external
+      RHF -> UHF test is run and reported only.
+    * UHF/UKS singlet with equal alpha and beta densities (the restricted solution,
+      reached from a spin-symmetric start): the lowest eigenvector of the whole
+      UHF orbital Hessian, whose spin-broken (alpha - beta) part is the RHF -> UHF
+      instability.  PySCF's default UHF test can miss it, as its trial vectors
+      start spin-symmetric and the Hessian never mixes in the other part; with
+      ``with_symmetry=False`` PySCF adds a trial vector in the alpha block alone.
+      (Following PySCF's RHF -> UHF test instead, which rotates the alpha orbitals
+      only, fell back to the restricted solution for N2 at 1.5 angstrom, UHF/6-31G.)
+    * other UHF/UKS and ROHF/ROKS: internal instabilities.
+
+    With ``internal=False`` only the spin-symmetric UHF/UKS singlet is analysed
+    (what a broken-symmetry calculation needs); every other solution counts as
+    stable.  The direction found is ``rhf->uhf`` when the rotated orbitals break
+    the spin symmetry, else ``internal``.
+    """
+    from pyscf import scf
+    from pyscf.scf import stability
+
+    if isinstance(mf, scf.uhf.UHF):
+        if mf.mol.spin == 0 and is_spin_symmetric(mf.make_rdm1()):
+            mo, stable = stability.uhf_internal(mf, with_symmetry=False, return_status=True)
+        elif internal:
+            mo, _, stable, _ = mf.stability(internal=True, external=False, return_status=True)
+        else:
+            return StabilityCheck(None)
+        if stable:
+            return StabilityCheck(None)
+        dm = mf.make_rdm1(mo, mf.mo_occ)
+        broken = is_spin_symmetric(mf.make_rdm1()) and not is_spin_symmetric(dm)
+        return StabilityCheck("rhf->uhf" if broken else "internal", dm)
+    if not internal:
+        return StabilityCheck(None)
+    if isinstance(mf, scf.rohf.ROHF):
+        mo_i, _, stable_i, _ = mf.stability(internal=True, external=False, return_status=True)
+        dm = None if stable_i else mf.make_rdm1(mo_i, mf.mo_occ)
+        return StabilityCheck(None if stable_i else "internal", dm)
+    mo_i, _, stable_i, stable_e = mf.stability(internal=True, external=True, return_status=True)
+    dm = None if stable_i else mf.make_rdm1(mo_i, mf.mo_occ)
+    return StabilityCheck(None if stable_i else "internal", dm, bool(stable_e))
+
+
 def run_scf_ladder(mf, dm0, settings: EngineSettings) -> LadderOutcome:
     """Try the rungs of ``settings.scf_ladder`` in order until one converges.
 
@@ -220,6 +325,97 @@ def run_scf_ladder(mf, dm0, settings: EngineSettings) -> LadderOutcome:
         dm = _last_density(used, dm)
     outcome.wall_s = time.perf_counter() - start
     return outcome
+
+
+def follow_instabilities(
+    mf, ladder: LadderOutcome, settings: EngineSettings, internal: bool = True
+) -> None:
+    """Stability analysis of a converged ladder, restarting from each instability found.
+
+    Up to :data:`STABILITY_MAX_CYCLE` times: :func:`analyse_stability` of the current
+    solution (``internal`` passed on); when unstable, the whole SCF ladder is run
+    again (on a copy of ``mf``, which shares its integrals) from the rotated
+    orbitals, and its solution is kept when it converged lower in energy.
+    ``ladder`` is updated in place: ``mf``, ``cycles``, ``wall_s`` and one more
+    attempt, of rung ``stability`` (``broken-symmetry`` with ``internal=False``),
+    with the keys
+
+    * ``converged``: every restart that was kept converged (True when none was needed);
+    * ``cycles``: SCF iterations of the restarts; ``energy_hartree``: the final energy;
+    * ``stable``: the final solution passed the analysis (False when the cycle
+      limit was reached or a restart did not go lower; None if the analysis raised);
+    * ``instabilities``: the directions found, in order (``internal``, ``rhf->uhf``);
+    * ``energy_lowered_hartree``: how far the restarts lowered the energy (>= 0);
+    * ``rhf_to_uhf_stable``: for a restricted closed shell, the external test
+      (None otherwise);
+    * ``error``: the analysis's exception, only if it raised.
+    """
+    start = time.perf_counter()
+    current = ladder.mf
+    e_start = float(current.e_tot)
+    entry = {"rung": "stability" if internal else "broken-symmetry", "converged": True,
+             "cycles": 0, "energy_hartree": e_start, "stable": None, "instabilities": [],
+             "energy_lowered_hartree": 0.0, "rhf_to_uhf_stable": None}  # fmt: skip
+    # A restart must lower the energy by more than the SCF noise to count as progress.
+    threshold_hartree = 10 * settings.conv_tol
+    try:
+        for _ in range(STABILITY_MAX_CYCLE + 1):
+            check = analyse_stability(current, internal=internal)
+            if check.rhf_to_uhf_stable is not None:
+                entry["rhf_to_uhf_stable"] = check.rhf_to_uhf_stable
+            if check.direction is None:
+                entry["stable"] = True
+                break
+            entry["instabilities"].append(check.direction)
+            entry["stable"] = False
+            if len(entry["instabilities"]) > STABILITY_MAX_CYCLE:
+                break
+            restart = run_scf_ladder(mf.copy(), check.dm, settings)
+            entry["cycles"] += restart.cycles
+            if not restart.converged or restart.mf.e_tot > current.e_tot - threshold_hartree:
+                entry["converged"] = restart.converged
+                break
+            current = restart.mf
+    except Exception as exc:  # a failed analysis leaves the converged SCF as it was
+        entry["stable"] = None
+        entry["error"] = error_line(exc)
+    entry["energy_hartree"] = float(current.e_tot)
+    entry["energy_lowered_hartree"] = e_start - float(current.e_tot)
+    ladder.mf = current
+    ladder.cycles += entry["cycles"]
+    ladder.attempts.append(entry)
+    ladder.wall_s += time.perf_counter() - start
+
+
+def converge_scf(geometry, basis, family, kind, settings: EngineSettings, guess=None):
+    """Build the SCF of one point and converge it: guess, ladder, stability analysis.
+
+    Inputs are those of :meth:`PySCFEngine.compute` plus the scf ``family`` and the
+    reference ``kind`` already resolved.  Returns the :class:`LadderOutcome`, with
+    one more attempt from :func:`follow_instabilities` when the ladder converged and
+
+    * ``settings.stability`` is set (rung ``stability``: every instability), or
+    * ``settings.broken_symmetry`` is set on an unrestricted singlet (rung
+      ``broken-symmetry``: the RHF -> UHF instability only).
+
+    How the spin symmetry is broken: the SCF first converges from the neighbour's
+    density (or PySCF's atomic guess); a neighbour's spin-broken pair carries the
+    broken symmetry along a walk.  When the solution comes out spin-symmetric, the
+    RHF -> UHF stability analysis gives the orbital rotation that lowers the energy
+    most steeply, and the SCF restarts from it; inside the bond-length range where
+    the restricted solution is the only one (short of the Coulson-Fischer point)
+    nothing is found and the restricted solution stands.  Rotating the HOMO into
+    the LUMO (alpha and beta with opposite angles) is the cheaper textbook guess,
+    but the frontier pair is not always the breaking bond's pair: for F2 it is the
+    occupied pi* and the empty sigma*, and the SCF lands 0.34 hartree above two F
+    atoms at 4 angstrom (UHF/6-31G, measured).
+    """
+    mf = build_scf(build_mole(geometry, basis, settings), family, kind, settings)
+    ladder = run_scf_ladder(mf, prepare_guess(guess, mf), settings)
+    breaks_symmetry = settings.broken_symmetry and kind == "unrestricted" and geometry.spin == 0
+    if ladder.converged and (settings.stability or breaks_symmetry):
+        follow_instabilities(mf, ladder, settings, internal=settings.stability)
+    return ladder
 
 
 def run_mp2(mf, frozen):
@@ -253,6 +449,239 @@ def run_ccsd(mf, frozen, settings: EngineSettings):
 def run_triples(mycc):
     """Total CCSD(T) energy (hartree) from a converged CCSD object."""
     return float(mycc.e_tot + mycc.ccsd_t())
+
+
+def check_constraints(constraints, n_atoms: int) -> list[tuple[str, tuple[int, ...], float]]:
+    """Validated constraints of a relaxed point, as ``(kind, atoms, value)`` tuples.
+
+    Inputs:
+        constraints: a list of ``(kind, atoms, value)``: ``kind`` one of
+            :data:`CONSTRAINT_ATOMS` (distance, angle, dihedral), ``atoms`` the
+            0-based atom indices (2, 3 or 4; the angle's vertex in the middle),
+            ``value`` in angstrom for a distance and degrees for an angle or a
+            dihedral.  An empty list relaxes everything.
+        n_atoms: number of atoms of the geometry.
+
+    Raises EngineSetupError naming the first bad constraint.
+
+    >>> check_constraints([("dihedral", [0, 1, 2, 3], 190)], 4)
+    [('dihedral', (0, 1, 2, 3), -170.0)]
+    """
+    checked = []
+    for number, constraint in enumerate(constraints, start=1):
+        try:
+            kind, atoms, value = constraint
+            atoms = tuple(int(i) for i in atoms)
+            value = float(value)
+        except (TypeError, ValueError):
+            raise EngineSetupError(
+                f"constraint {number} must be (kind, atoms, value), got {constraint!r}"
+            ) from None
+        where = f"constraint {number} ({kind} {list(atoms)})"
+        if kind not in CONSTRAINT_ATOMS:
+            raise EngineSetupError(f"{where}: kind must be one of {', '.join(CONSTRAINT_ATOMS)}")
+        if len(atoms) != CONSTRAINT_ATOMS[kind]:
+            raise EngineSetupError(f"{where}: {kind} takes {CONSTRAINT_ATOMS[kind]} atoms")
+        if len(set(atoms)) != len(atoms) or not all(0 <= i < n_atoms for i in atoms):
+            raise EngineSetupError(
+                f"{where}: atoms must be distinct 0-based indices below {n_atoms}"
+            )
+        if not math.isfinite(value):
+            raise EngineSetupError(f"{where}: value must be finite, got {value}")
+        if kind == "distance" and value <= 0:
+            raise EngineSetupError(f"{where}: distance must be positive, got {value} angstrom")
+        if kind == "angle" and not 0 < value < 180:
+            raise EngineSetupError(f"{where}: angle must lie in (0, 180) degrees, got {value}")
+        if kind == "dihedral":
+            value = _wrap_degree(value)
+        checked.append((kind, atoms, value))
+    return checked
+
+
+def constraints_text(constraints) -> str:
+    """The constraints in geomeTRIC's input format (``$set`` block, atoms from 1).
+
+    >>> print(constraints_text([("distance", (0, 1), 1.1)]), end="")
+    $set
+    distance 1 2 1.1
+    """
+    lines = ["$set"]
+    for kind, atoms, value in constraints:
+        lines.append(" ".join([kind, *(str(i + 1) for i in atoms), f"{value:.12g}"]))
+    return "\n".join(lines) + "\n"
+
+
+def gradient_scanner(mf, method: str, settings: EngineSettings):
+    """PySCF's nuclear-gradient scanner of a method on a converged SCF.
+
+    The scanner is a callable that takes the next geometry, converges the SCF from
+    the previous density (so a broken-symmetry solution stays broken) and returns
+    ``(energy_hartree, gradient_hartree_bohr)``.  ``method`` is hf, a DFT
+    functional, mp2 or ccsd (RMP2/UMP2 and RCCSD/UCCSD analytic gradients).
+    """
+    from pyscf import cc, mp
+
+    frozen = _frozen_core(mf.mol) if settings.frozen_core else None
+    if method == "mp2":
+        solver = mp.MP2(mf, frozen=frozen)
+    elif method == "ccsd":
+        solver = cc.CCSD(mf, frozen=frozen)
+        solver.conv_tol = settings.conv_tol
+        solver.max_cycle = CCSD_MAX_CYCLE
+    else:
+        solver = mf
+    return solver.nuc_grad_method().as_scanner()
+
+
+@dataclass
+class OptimisationTrace:
+    """The geometries geomeTRIC asked for, with energy and gradient at each.
+
+    Fields (one entry per gradient evaluation, in order):
+        energies_hartree: energies in hartree.
+        gradients_hartree_bohr: ``(n, 3)`` Cartesian gradients in hartree/bohr.
+        positions_bohr: ``(n, 3)`` positions in bohr.
+    """
+
+    energies_hartree: list[float] = field(default_factory=list)
+    gradients_hartree_bohr: list[np.ndarray] = field(default_factory=list)
+    positions_bohr: list[np.ndarray] = field(default_factory=list)
+
+    def add(self, env):
+        # PySCF's geomeTRIC engine hands its local variables to the callback.
+        self.energies_hartree.append(float(env["energy"]))
+        self.gradients_hartree_bohr.append(np.array(env["gradients"], dtype=float))
+        self.positions_bohr.append(np.array(env["coords"], dtype=float).reshape(-1, 3))
+
+
+def optimise_geometry(scanner, constraints, max_steps: int = RELAX_MAX_STEPS):
+    """Run geomeTRIC through PySCF's driver under ``constraints``; nothing is printed.
+
+    Inputs:
+        scanner: a gradient scanner (:func:`gradient_scanner`).
+        constraints: checked constraints (:func:`check_constraints`); may be empty.
+        max_steps: geometry steps before giving up [:data:`RELAX_MAX_STEPS`].
+
+    Returns ``(converged, mol, trace)``: geomeTRIC's own convergence test (GAU
+    criteria, the constraints met to :data:`RELAX_ENFORCE` and then exactly), the
+    PySCF ``Mole`` at the last geometry and the :class:`OptimisationTrace`.
+    Every file (the constraints, geomeTRIC's log and trajectory) lives in temporary
+    directories that are removed.  Raises what the scanner raises, e.g. RuntimeError
+    when an SCF along the way does not converge.
+    """
+    from pyscf.geomopt import geometric_solver
+
+    trace = OptimisationTrace()
+    with tempfile.TemporaryDirectory(prefix="pesflow-relax-") as directory:
+        path = None
+        if constraints:
+            path = os.path.join(directory, "constraints.txt")
+            with open(path, "w") as handle:
+                handle.write(constraints_text(constraints))
+        with _silent_geometric_logging(directory) as log_ini:
+            converged, mol = geometric_solver.kernel(
+                scanner,
+                assert_convergence=True,
+                constraints=path,
+                callback=trace.add,
+                maxsteps=max_steps,
+                logIni=log_ini,
+                enforce=RELAX_ENFORCE,
+            )
+    return bool(converged), mol, trace
+
+
+def constraint_report(constraints, positions_bohr) -> list[dict]:
+    """Target and reached value of each constraint (angstrom or degrees, atoms from 1)."""
+    report = []
+    for kind, atoms, target in constraints:
+        value = _primitive(kind, atoms).value(positions_bohr)
+        if kind == "distance":
+            unit, reached = "angstrom", float(value * BOHR_ANGSTROM)
+        else:
+            unit, reached = "degree", math.degrees(float(value))
+        report.append({"kind": kind, "atoms": [i + 1 for i in atoms], "unit": unit,
+                       "target": target, "final": reached})  # fmt: skip
+    return report
+
+
+def free_gradient(gradient_hartree_bohr, constraints, positions_bohr) -> np.ndarray:
+    """The Cartesian gradient with the constrained directions projected out.
+
+    At a constrained minimum the gradient is a combination of the constraints'
+    own gradients (their Lagrange multipliers); what is left after removing that
+    least-squares combination is what the optimiser drives to zero.
+    """
+    gradient = np.asarray(gradient_hartree_bohr, dtype=float).ravel()
+    if not constraints:
+        return gradient.reshape(-1, 3)
+    rows = np.array(
+        [
+            _primitive(kind, atoms).derivative(positions_bohr).ravel()
+            for kind, atoms, _ in constraints
+        ]
+    )
+    multipliers = np.linalg.lstsq(rows.T, gradient, rcond=None)[0]
+    return (gradient - rows.T @ multipliers).reshape(-1, 3)
+
+
+def _primitive(kind, atoms):
+    from geometric import internal
+
+    classes = {"distance": internal.Distance, "angle": internal.Angle,
+               "dihedral": internal.Dihedral}  # fmt: skip
+    return classes[kind](*atoms)
+
+
+def _wrap_degree(angle):
+    # Into (-180, 180], the range geomeTRIC reports dihedrals in.
+    wrapped = math.fmod(angle, 360.0)
+    if wrapped <= -180.0:
+        wrapped += 360.0
+    elif wrapped > 180.0:
+        wrapped -= 360.0
+    return wrapped
+
+
+_SILENT_LOG_INI = """\
+[loggers]
+keys=root
+
+[handlers]
+keys=silent
+
+[formatters]
+keys=
+
+[logger_root]
+level=WARNING
+handlers=silent
+
+[handler_silent]
+class=NullHandler
+args=()
+"""
+
+
+@contextlib.contextmanager
+def _silent_geometric_logging(directory):
+    # geomeTRIC configures logging from a file at every run (logging.config.fileConfig):
+    # the root logger's handlers are replaced, so that without care it would print
+    # its whole log and leave the caller's logging rewired.  Hand it a file that
+    # sends everything nowhere, and put the root logger back afterwards.
+    path = os.path.join(directory, "log.ini")
+    with open(path, "w") as handle:
+        handle.write(_SILENT_LOG_INI)
+    root = logging.getLogger()
+    handlers, level = list(root.handlers), root.level
+    try:
+        yield path
+    finally:
+        for handler in list(root.handlers):
+            root.removeHandler(handler)
+        for handler in handlers:
+            root.addHandler(handler)
+        root.setLevel(level)
 
 
 def error_line(exc: BaseException) -> str:
@@ -306,20 +735,16 @@ class PySCFEngine:
         from pyscf import lib
 
         wanted, family = _split_methods(methods)
-        if not isinstance(geometry, Geometry):
-            raise EngineSetupError(f"geometry must be a Geometry, got {type(geometry).__name__}")
-        if not isinstance(settings, EngineSettings):
-            raise EngineSetupError("settings must be an EngineSettings")
-        check_basis(basis, geometry.symbols)
-        count_electrons(geometry)
-        kind = resolve_reference(settings.reference, geometry.multiplicity)
+        _check_inputs(geometry, basis, settings)
+        kind = resolve_reference(
+            settings.reference, geometry.multiplicity, settings.broken_symmetry
+        )
         label = _SCF_LABELS[_family_kind(family), kind]
 
         start = time.perf_counter()
         try:
             lib.num_threads(settings.threads)
-            mf = build_scf(build_mole(geometry, basis, settings), family, kind, settings)
-            ladder = run_scf_ladder(mf, prepare_guess(guess, mf), settings)
+            ladder = converge_scf(geometry, basis, family, kind, settings, guess)
         except Exception as exc:
             wall_s = time.perf_counter() - start
             failed = _Failure(label, error_line(exc), [], 0, wall_s)
@@ -390,6 +815,134 @@ class PySCFEngine:
         density = np.array(mf.make_rdm1(), dtype=float)
         return {m: records[m] for m in wanted}, density
 
+    def relax(self, geometry, basis, method, settings, constraints, guess=None):
+        """Relax one point: optimise every degree of freedom but the constrained ones.
+
+        Inputs:
+            geometry: the starting :class:`~pesflow.engine.Geometry` (angstrom);
+                best already at the constrained values, e.g. the neighbour's relaxed
+                geometry with the scan coordinate set to this point's value.
+            basis: basis-set name known to PySCF.
+            method: ``hf``, a DFT functional, ``mp2`` or ``ccsd`` (the methods with
+                analytic gradients used here; ``ccsd(t)`` is refused).
+            settings: :class:`~pesflow.engine.EngineSettings`; broken symmetry and
+                stability analysis apply at the start and at the final geometry, and
+                each step starts from the previous step's density.
+            constraints: list of ``(kind, atoms, value)`` (see
+                :func:`check_constraints`: 0-based atoms, angstrom or degrees).
+            guess: the converged density of the previous point of the walk, or None.
+
+        Returns ``(geometry, record, info, density)``: the relaxed geometry, the
+        :class:`~pesflow.engine.PointResult` of ``method`` there (computed afresh by
+        :meth:`compute`, so it carries the SCF ladder and stability attempts), the
+        optimisation info (also in ``record.extra["relaxation"]``), and the density
+        for the next point's ``guess``.  The info dict holds ``optimizer``,
+        ``optimizer_version``, ``converged`` (geomeTRIC's criteria), ``steps``
+        (gradient evaluations), ``max_gradient_hartree_bohr`` (largest component of
+        the last gradient with the constrained directions projected out, see
+        :func:`free_gradient`), ``energy_change_hartree`` (last minus first
+        energy), ``last_energy_hartree``, ``constraints`` (:func:`constraint_report`
+        at the returned geometry), ``wall_s`` and ``error``.
+
+        A failed optimisation is recorded, not raised: an SCF that fails at some
+        step, or no convergence within :data:`RELAX_MAX_STEPS`, gives a record with
+        ``converged`` False, ``energy_hartree`` nan and the reason in ``error``
+        (and in ``info["error"]``), the last geometry reached and a None density.
+        ``record.wall_s`` is the whole relaxation's wall time.  Raises
+        EngineSetupError, before computing, for the mistakes :meth:`compute` refuses
+        and for bad constraints.
+
+        >>> engine = PySCFEngine()
+        >>> start = Geometry(("H", "H"), [[0, 0, 0], [0, 0, 0.8]])
+        >>> relaxed, record, info, _ = engine.relax(start, "sto-3g", "hf", EngineSettings(), [])
+        >>> info["converged"], round(float(np.linalg.norm(relaxed.positions_angstrom[1]
+        ...     - relaxed.positions_angstrom[0])), 3)
+        (True, 0.712)
+        """
+        from pyscf import lib
+
+        start = time.perf_counter()
+        method = canonical_method(method)
+        family = scf_family(method)
+        if family == "hf" and method not in GRADIENT_WAVEFUNCTION_METHODS:
+            raise EngineSetupError(
+                f"relax needs analytic gradients: {', '.join(GRADIENT_WAVEFUNCTION_METHODS)} "
+                f"or a DFT functional, not {method}"
+            )
+        _check_inputs(geometry, basis, settings)
+        constraints = check_constraints(constraints, len(geometry.symbols))
+        kind = resolve_reference(
+            settings.reference, geometry.multiplicity, settings.broken_symmetry
+        )
+        label = _SCF_LABELS[_family_kind(family), kind]
+        info = {
+            "optimizer": "geomeTRIC",
+            "optimizer_version": _geometric_version(),
+            "converged": False,
+            "steps": 0,
+            "max_gradient_hartree_bohr": math.nan,
+            "energy_change_hartree": math.nan,
+            "last_energy_hartree": math.nan,
+            "constraints": [],
+            "wall_s": 0.0,
+            "error": None,
+        }
+
+        def failed(reason, at, attempts=(), cycles=0):
+            info["error"] = reason
+            info["wall_s"] = time.perf_counter() - start
+            info["constraints"] = constraint_report(constraints, _bohr(at))
+            record = _Failure(label, reason, list(attempts), cycles, info["wall_s"]).record(method)
+            record.extra = {"relaxation": info}
+            return at, record, info, None
+
+        lib.num_threads(settings.threads)
+        try:
+            ladder = converge_scf(geometry, basis, family, kind, settings, guess)
+        except Exception as exc:
+            return failed(error_line(exc), geometry)
+        if not ladder.converged:
+            reason = "SCF did not converge at the starting geometry"
+            return failed(reason, geometry, ladder.attempts, ladder.cycles)
+
+        trace = OptimisationTrace()
+        try:
+            # A fresh SCF object started from the converged orbitals: the ladder's
+            # last one may be a second-order wrapper, which would slow every step.
+            mf = build_scf(build_mole(geometry, basis, settings), family, kind, settings)
+            mf.mo_coeff, mf.mo_occ = ladder.mf.mo_coeff, ladder.mf.mo_occ
+            scanner = gradient_scanner(mf, method, settings)
+            converged, mol, trace = optimise_geometry(scanner, constraints, RELAX_MAX_STEPS)
+            reached = Geometry(geometry.symbols, mol.atom_coords(unit="Angstrom"),
+                               geometry.charge, geometry.multiplicity)  # fmt: skip
+            density = np.array(_scf_of(scanner).make_rdm1(), dtype=float)
+        except Exception as exc:
+            at = geometry
+            if trace.positions_bohr:
+                at = Geometry(geometry.symbols, trace.positions_bohr[-1] * BOHR_ANGSTROM,
+                              geometry.charge, geometry.multiplicity)  # fmt: skip
+            _summarise(info, trace, constraints)
+            return failed(f"geometry optimisation failed: {error_line(exc)}", at,
+                          ladder.attempts, ladder.cycles)  # fmt: skip
+
+        _summarise(info, trace, constraints)
+        info["converged"] = converged
+        records, density = self.compute(reached, basis, [method], settings, guess=density)
+        record = records[method]
+        info["constraints"] = constraint_report(constraints, _bohr(reached))
+        info["wall_s"] = time.perf_counter() - start
+        record.wall_s = info["wall_s"]
+        record.extra = {"relaxation": info}
+        if not converged:
+            reason = f"geometry optimisation did not converge in {RELAX_MAX_STEPS} steps"
+            info["error"] = record.error = reason
+            record.converged = False
+            record.energy_hartree = math.nan
+            density = None
+        elif record.error:
+            info["error"] = record.error
+        return reached, record, info, density
+
 
 @dataclass
 class _Failure:
@@ -413,6 +966,45 @@ class _Failure:
             attempts=[dict(a) for a in self.attempts],
             error=self.error,
         )
+
+
+def _check_inputs(geometry, basis, settings):
+    # The user's own mistakes, raised before anything is computed.
+    if not isinstance(geometry, Geometry):
+        raise EngineSetupError(f"geometry must be a Geometry, got {type(geometry).__name__}")
+    if not isinstance(settings, EngineSettings):
+        raise EngineSetupError("settings must be an EngineSettings")
+    check_basis(basis, geometry.symbols)
+    count_electrons(geometry)
+
+
+def _summarise(info, trace, constraints):
+    # Steps, energy change and the last free gradient of an optimisation trace.
+    info["steps"] = len(trace.energies_hartree)
+    if not trace.energies_hartree:
+        return
+    info["last_energy_hartree"] = trace.energies_hartree[-1]
+    info["energy_change_hartree"] = trace.energies_hartree[-1] - trace.energies_hartree[0]
+    free = free_gradient(trace.gradients_hartree_bohr[-1], constraints, trace.positions_bohr[-1])
+    info["max_gradient_hartree_bohr"] = float(np.max(np.abs(free)))
+
+
+def _scf_of(scanner):
+    # The SCF object under a gradient scanner (its base for hf and DFT, or the
+    # correlated method's reference).
+    base = scanner.base
+    return getattr(base, "_scf", base)
+
+
+def _bohr(geometry):
+    return geometry.positions_angstrom / BOHR_ANGSTROM
+
+
+def _geometric_version():
+    try:
+        return importlib.metadata.version("geometric")
+    except importlib.metadata.PackageNotFoundError:
+        return None
 
 
 def _split_methods(methods):

@@ -134,6 +134,8 @@ def test_key_dict_is_stable_json_and_leaves_out_resources():
         "frozen_core",
         "grid_level",
         "scf_ladder",
+        "broken_symmetry",
+        "stability",
     ]
     assert "threads" not in a.key_dict() and "max_memory_mb" not in a.key_dict()
 
@@ -147,10 +149,72 @@ def test_key_dict_is_stable_json_and_leaves_out_resources():
         {"frozen_core": True},
         {"grid_level": 4},
         {"scf_ladder": ("default", "second-order")},
+        {"broken_symmetry": True},
+        {"stability": True},
     ],
 )
 def test_every_result_changing_setting_changes_the_key(change):
     assert EngineSettings(**change).key_dict() != EngineSettings().key_dict()
+
+
+@pytest.mark.parametrize("method", ["hf", "mp2", "ccsd(t)", "b3lyp"])
+@pytest.mark.parametrize("change", [{"broken_symmetry": True}, {"stability": True}])
+def test_reference_changing_settings_are_in_every_method_key(method, change):
+    # Both can move the SCF to another solution, and every method is built on it.
+    assert EngineSettings(**change).key_dict(method) != EngineSettings().key_dict(method)
+
+
+def test_key_dict_rebuilds_the_settings():
+    # The planner stores key_dict() and the batch rebuilds EngineSettings from it.
+    settings = EngineSettings(broken_symmetry=True, stability=True, reference="unrestricted")
+    assert EngineSettings(**settings.key_dict()) == settings
+
+
+def test_broken_symmetry_needs_an_unrestricted_reference():
+    assert EngineSettings(broken_symmetry=True, reference="unrestricted").broken_symmetry
+    for reference in ("restricted", "restricted-open"):
+        with pytest.raises(EngineSetupError, match="broken_symmetry needs an unrestricted"):
+            EngineSettings(broken_symmetry=True, reference=reference)
+
+
+def test_constraints_are_checked_and_written_for_geometric():
+    from pesflow.engine.pyscf import check_constraints, constraints_text
+
+    checked = check_constraints(
+        [("distance", [0, 1], 1.1), ("angle", (2, 0, 1), 104.5), ("dihedral", (2, 0, 1, 3), -190)],
+        4,
+    )
+    # Dihedrals are periodic: -190 degrees is +170 degrees.
+    assert checked == [
+        ("distance", (0, 1), 1.1),
+        ("angle", (2, 0, 1), 104.5),
+        ("dihedral", (2, 0, 1, 3), 170.0),
+    ]
+    # geomeTRIC's constraint file numbers atoms from 1.
+    assert constraints_text(checked) == (
+        "$set\ndistance 1 2 1.1\nangle 3 1 2 104.5\ndihedral 3 1 2 4 170\n"
+    )
+    assert check_constraints([], 3) == []
+
+
+@pytest.mark.parametrize(
+    "bad, message",
+    [
+        ([("torsion", (0, 1, 2, 3), 60.0)], "kind must be one of distance, angle, dihedral"),
+        ([("angle", (0, 1), 90.0)], "angle takes 3 atoms"),
+        ([("distance", (0, 4), 1.0)], "distinct 0-based indices below 4"),
+        ([("distance", (1, 1), 1.0)], "distinct 0-based indices below 4"),
+        ([("distance", (0, 1), -1.0)], "distance must be positive"),
+        ([("angle", (0, 1, 2), 180.0)], r"angle must lie in \(0, 180\)"),
+        ([("dihedral", (0, 1, 2, 3), float("nan"))], "value must be finite"),
+        ([("distance", (0, 1))], "must be \\(kind, atoms, value\\)"),
+    ],
+)
+def test_bad_constraints_are_setup_errors(bad, message):
+    from pesflow.engine.pyscf import check_constraints
+
+    with pytest.raises(EngineSetupError, match=message):
+        check_constraints(bad, 4)
 
 
 def test_key_dict_per_method_drops_fields_that_cannot_change_it():
@@ -168,6 +232,7 @@ def test_key_dict_per_method_drops_fields_that_cannot_change_it():
         {"reference": "rhf"},
         {"scf_ladder": ("default", "magic")},
         {"scf_ladder": ()},
+        {"broken_symmetry": True, "reference": "restricted"},
         {"conv_tol": 0.0},
         {"max_cycle": 0},
     ],
