@@ -27,6 +27,10 @@ HARTREE_TO_CM1 = _pc["hartree-inverse meter relationship"][0] / 100.0
 HARTREE_TO_KJ_MOL = _pc["Hartree energy"][0] * _sc.N_A / 1000.0
 #: 1 hartree in kcal/mol (thermochemical calorie, 4.184 J).
 HARTREE_TO_KCAL_MOL = HARTREE_TO_KJ_MOL / 4.184
+#: 1 hartree in attojoule (1 aJ = 1 mdyn A).
+HARTREE_TO_AJ = _pc["Hartree energy"][0] * 1e18
+#: 1 hartree/bohr^2 in mdyn/A (1 mdyn/A = 100 N/m).
+HARTREE_BOHR2_TO_MDYN_ANGSTROM = _pc["Hartree energy"][0] / (BOHR_ANGSTROM * 1e-10) ** 2 / 100.0
 #: 1 unified atomic mass unit (dalton) in electron masses.
 AMU_TO_ME = _pc["atomic mass constant"][0] / _pc["electron mass"][0]
 #: 1 degree in radian.

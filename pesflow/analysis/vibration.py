@@ -28,17 +28,17 @@ hydride typically traps even v = 0 by ~100 cm-1: no level is then reported.
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.constants as _sc
 from scipy import linalg, optimize
 
-from pesflow.units import AMU_TO_ME, BOHR_ANGSTROM, DEGREE, HARTREE_TO_CM1, HARTREE_TO_EV
-
-# Derived here from scipy.constants, the same source as pesflow.units (candidates to move there).
-_HARTREE_J = _sc.physical_constants["Hartree energy"][0]
-#: 1 hartree/bohr^2 in mdyn/A (1 mdyn/A = 100 N/m).
-HARTREE_BOHR2_TO_MDYN_ANGSTROM = _HARTREE_J / (BOHR_ANGSTROM * 1e-10) ** 2 / 100.0
-#: 1 hartree in attojoule (1 aJ = 1 mdyn A).
-HARTREE_TO_AJ = _HARTREE_J * 1e18
+from pesflow.units import (
+    AMU_TO_ME,
+    BOHR_ANGSTROM,
+    DEGREE,
+    HARTREE_BOHR2_TO_MDYN_ANGSTROM,
+    HARTREE_TO_AJ,
+    HARTREE_TO_CM1,
+    HARTREE_TO_EV,
+)
 
 #: Default tolerance on the wall error of a trusted vibrational level, cm-1.
 DEFAULT_LEVEL_TOL_CM1 = 0.1
