@@ -255,36 +255,41 @@ def analyse_stability(mf, internal: bool = True) -> StabilityCheck:
 
     * RHF/RKS: internal (RHF -> RHF) instabilities, to follow; the external
       RHF -> UHF test is run and reported only.
-    * UHF/UKS singlet with equal alpha and beta densities (the restricted solution,
-      reached from a spin-symmetric start): the lowest eigenvector of the whole
-      UHF orbital Hessian, whose spin-broken (alpha - beta) part is the RHF -> UHF
-      instability.  PySCF's default UHF test can miss it, as its trial vectors
-      start spin-symmetric and the Hessian never mixes in the other part; with
-      ``with_symmetry=False`` PySCF adds a trial vector in the alpha block alone.
-      (Following PySCF's RHF -> UHF test instead, which rotates the alpha orbitals
-      only, fell back to the restricted solution for N2 at 1.5 angstrom, UHF/6-31G.)
-    * other UHF/UKS and ROHF/ROKS: internal instabilities.
+    * UHF/UKS: when the solution is a singlet with equal alpha and beta densities
+      (the restricted solution, reached from a spin-symmetric start), first the
+      RHF -> UHF test of the same orbitals, then internal instabilities.  (In the
+      other order, a spin-symmetric internal instability of stretched N2 was
+      followed first and led to an excited branch, UHF/6-31G.)  PySCF's
+      UHF test alone can miss that case (its trial vectors start spin-symmetric
+      and the Hessian never mixes in the spin-broken part).  The RHF -> UHF
+      eigenvector ``K`` is followed as the rotation ``exp(+K)`` of the alpha and
+      ``exp(-K)`` of the beta orbitals; PySCF's own restart rotates the alpha
+      orbitals alone, half of it a spin-symmetric rotation, and fell back to the
+      restricted solution for N2 at 1.5-4 angstrom (UHF/6-31G, measured).
+    * ROHF/ROKS: internal instabilities.
 
-    With ``internal=False`` only the spin-symmetric UHF/UKS singlet is analysed
-    (what a broken-symmetry calculation needs); every other solution counts as
-    stable.  The direction found is ``rhf->uhf`` when the rotated orbitals break
-    the spin symmetry, else ``internal``.
+    With ``internal=False`` only the RHF -> UHF test of a spin-symmetric UHF/UKS
+    singlet runs (what a broken-symmetry calculation needs); every other solution
+    counts as stable.
     """
     from pyscf import scf
-    from pyscf.scf import stability
 
     if isinstance(mf, scf.uhf.UHF):
         if mf.mol.spin == 0 and is_spin_symmetric(mf.make_rdm1()):
-            mo, stable = stability.uhf_internal(mf, with_symmetry=False, return_status=True)
-        elif internal:
-            mo, _, stable, _ = mf.stability(internal=True, external=False, return_status=True)
-        else:
-            return StabilityCheck(None)
-        if stable:
-            return StabilityCheck(None)
-        dm = mf.make_rdm1(mo, mf.mo_occ)
-        broken = is_spin_symmetric(mf.make_rdm1()) and not is_spin_symmetric(dm)
-        return StabilityCheck("rhf->uhf" if broken else "internal", dm)
+            restricted = mf.to_rhf()
+            _, mo_e, _, stable_e = restricted.stability(
+                internal=False, external=True, return_status=True
+            )
+            if not stable_e:
+                coeff = restricted.mo_coeff
+                rotation = coeff.T @ mf.get_ovlp() @ mo_e[0]  # exp(K), orthogonal
+                pair = (coeff @ rotation, coeff @ rotation.T)
+                return StabilityCheck("rhf->uhf", mf.make_rdm1(pair, mf.mo_occ))
+        if internal:
+            mo_i, _, stable_i, _ = mf.stability(internal=True, external=False, return_status=True)
+            if not stable_i:
+                return StabilityCheck("internal", mf.make_rdm1(mo_i, mf.mo_occ))
+        return StabilityCheck(None)
     if not internal:
         return StabilityCheck(None)
     if isinstance(mf, scf.rohf.ROHF):
@@ -399,20 +404,31 @@ def converge_scf(geometry, basis, family, kind, settings: EngineSettings, guess=
       ``broken-symmetry``: the RHF -> UHF instability only).
 
     How the spin symmetry is broken: the SCF first converges from the neighbour's
-    density (or PySCF's atomic guess); a neighbour's spin-broken pair carries the
-    broken symmetry along a walk.  When the solution comes out spin-symmetric, the
-    RHF -> UHF stability analysis gives the orbital rotation that lowers the energy
-    most steeply, and the SCF restarts from it; inside the bond-length range where
-    the restricted solution is the only one (short of the Coulson-Fischer point)
-    nothing is found and the restricted solution stands.  Rotating the HOMO into
-    the LUMO (alpha and beta with opposite angles) is the cheaper textbook guess,
-    but the frontier pair is not always the breaking bond's pair: for F2 it is the
-    occupied pi* and the empty sigma*, and the SCF lands 0.34 hartree above two F
-    atoms at 4 angstrom (UHF/6-31G, measured).
+    density (or PySCF's atomic guess, kept spin-symmetric); a neighbour's
+    spin-broken pair carries the broken symmetry along a walk.  When the solution
+    comes out spin-symmetric, the stability analysis gives the orbital rotation
+    that lowers the energy most steeply, and the SCF restarts from it; short of the
+    Coulson-Fischer point, where the restricted solution is the only one, nothing
+    is found and the restricted solution stands.  Rotating the HOMO into the LUMO
+    (alpha and beta with opposite angles) is the cheaper textbook guess, but the
+    frontier pair is not always the breaking bond's pair: for F2 it is the occupied
+    pi* and the empty sigma*, and that SCF lands 0.34 hartree above two F atoms at
+    4 angstrom; for N2 it breaks one of the three bonds (UHF/6-31G, measured).
+
+    Measured with UHF/6-31G from a cold start (no guess): H2 and F2 reach the sum
+    of the atoms from 2 to 8 angstrom, N2 from 2 to 6 angstrom; at 8 angstrom N2
+    lands on an excited branch (0.29 hartree high).  A walk that starts at a bonded
+    geometry (or anywhere the cold start is right) carries the right branch along.
     """
     mf = build_scf(build_mole(geometry, basis, settings), family, kind, settings)
-    ladder = run_scf_ladder(mf, prepare_guess(guess, mf), settings)
     breaks_symmetry = settings.broken_symmetry and kind == "unrestricted" and geometry.spin == 0
+    if breaks_symmetry:
+        # Start spin-symmetric and let the instability choose the direction: PySCF's
+        # own symmetry breaking of its atomic guess (the beta density cut to the
+        # atoms' diagonal blocks) landed on excited branches (N2 at 6 angstrom,
+        # F2 at 5 angstrom, UHF/6-31G, 0.2-0.35 hartree above two atoms).
+        mf.init_guess_breaksym = 0
+    ladder = run_scf_ladder(mf, prepare_guess(guess, mf), settings)
     if ladder.converged and (settings.stability or breaks_symmetry):
         follow_instabilities(mf, ladder, settings, internal=settings.stability)
     return ladder
