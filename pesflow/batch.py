@@ -8,6 +8,11 @@ record per point as soon as it is finished.  A killed batch therefore loses
 only the point in flight; the rerun computes only what is missing.  A point
 that fails is recorded with its error text; the batch goes on.
 
+Continuity: after the forward walk, points whose energy jumps against their
+neighbours (or whose <S^2> changes abruptly) are computed again walking the
+other way, each from its right-hand neighbour's density, and the lower of the
+two solutions is kept (the record's ``attempts`` says so).
+
 The done marker written at the end lists the batch's points and their status;
 Snakemake uses it as the job's output.
 """
@@ -20,6 +25,7 @@ import logging
 import os
 import sys
 import time
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -28,6 +34,9 @@ log = logging.getLogger("pesflow.batch")
 
 TASK_FORMAT = "pesflow-batch"
 TASK_VERSION = 1
+
+#: A solution found walking backwards must be lower by this much to replace the first.
+LOWER_BY_HARTREE = 1e-7
 
 
 def read_task(path) -> dict:
@@ -38,35 +47,7 @@ def read_task(path) -> dict:
     return task
 
 
-def _record(task, point, result, engine):
-    from pesflow.store import make_record
-
-    return make_record(
-        key=point["keys_all"][result.method],
-        method=result.method,
-        basis=task["basis"],
-        charge=task["charge"],
-        multiplicity=task["multiplicity"],
-        symbols=" ".join(task["symbols"]),
-        positions_angstrom=np.asarray(point["positions"], dtype=float).ravel().tolist(),
-        energy_hartree=float(result.energy_hartree),
-        converged=bool(result.converged),
-        scf_cycles=int(result.scf_cycles),
-        wall_s=float(result.wall_s),
-        step_wall_s=float(result.step_wall_s),
-        s2=float(result.s2),
-        reference=result.reference,
-        engine=engine.name,
-        engine_version=engine.version,
-        settings_json=json.dumps(point["settings"].key_dict(result.method), sort_keys=True),
-        attempts_json=json.dumps(result.attempts) if result.attempts else None,
-        extra_json=None,
-        error=result.error,
-        created_unix=time.time(),
-    )
-
-
-def _failure(method, reference, message):
+def _failure(method, message):
     from pesflow.engine import PointResult
 
     return PointResult(
@@ -77,13 +58,186 @@ def _failure(method, reference, message):
         wall_s=0.0,
         step_wall_s=0.0,
         s2=float("nan"),
-        reference=reference,
+        reference="",
         attempts=[],
         error=message,
     )
 
 
-def run_batch(task_path, done_path, threads: int = 1) -> dict:
+@dataclass
+class _Computed:
+    """One point computed in this batch."""
+
+    index: int  # position in the task's point list
+    methods: list[str]  # the methods computed here
+    results: dict  # method -> PointResult
+    positions: dict = field(default_factory=dict)  # method -> positions written
+
+    def lead(self):
+        """The result used to judge continuity: the first requested method's."""
+        return self.results.get(self.methods[0])
+
+
+class _Walk:
+    """Binds a task to its engine and store."""
+
+    def __init__(self, task, threads):
+        from pesflow.engine import EngineSettings, get_engine
+        from pesflow.store import PointStore
+
+        self.task = task
+        self.engine = get_engine(task["engine"])
+        if self.engine.version != task["engine_version"]:
+            raise RuntimeError(
+                f"this batch was planned for {task['engine']} {task['engine_version']} but "
+                f"{self.engine.version} is installed here; use the same environment everywhere"
+            )
+        self.settings = EngineSettings(
+            **task["settings"], threads=threads, max_memory_mb=int(task.get("max_memory_mb", 4000))
+        )
+        self.store = PointStore(task["store"])
+        self.symbols = tuple(task["symbols"])
+
+    def geometry(self, point):
+        from pesflow.engine import Geometry
+
+        return Geometry(
+            symbols=self.symbols,
+            positions_angstrom=np.asarray(point["positions"], dtype=float),
+            charge=self.task["charge"],
+            multiplicity=self.task["multiplicity"],
+        )
+
+    def compute(self, point, methods, guess):
+        """Results of ``methods`` at ``point`` and the density for the next point."""
+        try:
+            return self.engine.compute(
+                self.geometry(point), self.task["basis"], methods, self.settings, guess=guess
+            )
+        except Exception as exc:  # recorded, never allowed to stop the batch
+            message = f"{type(exc).__name__}: {exc}".splitlines()[0]
+            return {m: _failure(m, message) for m in methods}, None
+
+    def key(self, point, method):
+        from pesflow import keys
+
+        if method in point["keys"]:
+            return point["keys"][method]
+        # e.g. the CCSD part of a CCSD(T) calculation: kept, it is free
+        return keys.point_key(
+            self.symbols,
+            np.asarray(point["positions"], dtype=float),
+            self.task["charge"],
+            self.task["multiplicity"],
+            method,
+            self.task["basis"],
+            self.settings.key_dict(method),
+            self.engine.name,
+            self.engine.version,
+        )
+
+    def write(self, point, result, extra=None):
+        from pesflow.store import make_record
+
+        task = self.task
+        self.store.write(
+            make_record(
+                key=self.key(point, result.method),
+                method=result.method,
+                basis=task["basis"],
+                charge=task["charge"],
+                multiplicity=task["multiplicity"],
+                symbols=" ".join(task["symbols"]),
+                positions_angstrom=np.asarray(point["positions"], dtype=float).ravel().tolist(),
+                energy_hartree=float(result.energy_hartree),
+                converged=bool(result.converged),
+                scf_cycles=int(result.scf_cycles),
+                wall_s=float(result.wall_s),
+                step_wall_s=float(result.step_wall_s),
+                s2=float(result.s2),
+                reference=result.reference,
+                engine=self.engine.name,
+                engine_version=self.engine.version,
+                settings_json=json.dumps(self.settings.key_dict(result.method), sort_keys=True),
+                attempts_json=json.dumps(result.attempts) if result.attempts else None,
+                extra_json=json.dumps(extra, sort_keys=True) if extra else None,
+                error=result.error,
+                created_unix=time.time(),
+            )
+        )
+
+
+def _contiguous_runs(computed: list[_Computed], points) -> list[list[_Computed]]:
+    runs, current = [], []
+    for c in computed:
+        if current and points[c.index]["walk"] - points[current[-1].index]["walk"] != 1:
+            runs.append(current)
+            current = []
+        current.append(c)
+    if current:
+        runs.append(current)
+    return runs
+
+
+def _backward_sweep(walk: _Walk, run: list[_Computed], points, status) -> int:
+    """Redo the suspect segment of a contiguous run walking backwards; keep lower energies.
+
+    Returns how many points got a lower solution.
+    """
+    from pesflow.analysis.continuity import segment, suspect_points
+
+    leads = [c.lead() for c in run]
+    energies = np.array([r.energy_hartree if r is not None else np.nan for r in leads])
+    s2 = np.array([r.s2 if r is not None else np.nan for r in leads])
+    span = segment(suspect_points(energies, s2), len(run))
+    if span is None:
+        return 0
+    lo, hi = span
+    log.info(
+        "discontinuity along the walk at points %d-%d: walking back over them",
+        points[run[lo].index]["walk"],
+        points[run[hi].index]["walk"],
+    )
+    guess = None
+    if hi + 1 < len(run):  # start from the density of the point past the segment
+        _, guess = walk.compute(points[run[hi + 1].index], run[hi + 1].methods, None)
+    improved = 0
+    for c in reversed(run[lo : hi + 1]):
+        point = points[c.index]
+        results, guess = walk.compute(point, c.methods, guess)
+        new, old = results.get(c.methods[0]), c.lead()
+        better = (
+            new is not None
+            and new.converged
+            and (
+                old is None
+                or not old.converged
+                or new.energy_hartree < old.energy_hartree - LOWER_BY_HARTREE
+            )
+        )
+        if not better:
+            continue
+        improved += 1
+        for method, result in results.items():
+            result.attempts = list(result.attempts) + [
+                {
+                    "rung": "backward-walk",
+                    "converged": bool(result.converged),
+                    "cycles": int(result.scf_cycles),
+                    "energy_hartree": float(result.energy_hartree),
+                    "replaced_energy_hartree": float(c.results[method].energy_hartree)
+                    if method in c.results
+                    else float("nan"),
+                }
+            ]
+            walk.write(point, result)
+            if method in point["keys"]:
+                status[point["keys"][method]] = "done" if result.converged else "failed"
+        c.results = results
+    return improved
+
+
+def run_batch(task_path, done_path, threads: int = 1, continuity: bool = True) -> dict:
     """Compute every missing point of one batch and write its done marker.
 
     Parameters
@@ -91,82 +245,38 @@ def run_batch(task_path, done_path, threads: int = 1) -> dict:
     task_path : path of the batch's task JSON.
     done_path : path of the done marker (JSON) written at the end.
     threads : PySCF threads for this batch (Snakemake's ``threads``).
+    continuity : redo suspect segments walking backwards (default True).
 
-    Returns the marker's content: counts of points computed, skipped, failed.
+    Returns the marker's content: counts of points computed, skipped, failed, improved.
     """
-    from pesflow import keys
-    from pesflow.engine import EngineSettings, get_engine
-    from pesflow.store import PointStore
-
     task = read_task(task_path)
-    engine = get_engine(task["engine"])
-    if engine.version != task["engine_version"]:
-        raise RuntimeError(
-            f"this batch was planned for {task['engine']} {task['engine_version']} but "
-            f"{engine.version} is installed here; use the same environment everywhere"
-        )
-    settings = EngineSettings(
-        **task["settings"], threads=threads, max_memory_mb=int(task.get("max_memory_mb", 4000))
-    )
-    store = PointStore(task["store"])
-    symbols = tuple(task["symbols"])
-    counts = {"computed": 0, "skipped": 0, "failed": 0}
+    walk = _Walk(task, threads)
+    points = task["points"]
+    counts = {"computed": 0, "skipped": 0, "failed": 0, "improved": 0}
     status = {}
-    guess = None
-    previous_walk = None
-    t0 = time.time()
     recompute = set(task.get("recompute", ()))
-    for point in task["points"]:
+    computed: list[_Computed] = []
+    guess, previous_walk = None, None
+    t0 = time.time()
+    for index, point in enumerate(points):
         wanted = point["keys"]
-        missing = [m for m, k in wanted.items() if k in recompute or not store.has(k)]
+        missing = [m for m, k in wanted.items() if k in recompute or not walk.store.has(k)]
         counts["skipped"] += len(wanted) - len(missing)
-        for m in wanted:
-            if m not in missing:
-                status[wanted[m]] = "cached"
+        status.update({k: "cached" for m, k in wanted.items() if m not in missing})
         if not missing:
             continue
         if previous_walk is None or abs(point["walk"] - previous_walk) > 1:
             guess = None  # a neighbour's density is a good guess; a distant one is not
-        positions = np.asarray(point["positions"], dtype=float)
-        from pesflow.engine import Geometry
-
-        geometry = Geometry(
-            symbols=symbols,
-            positions_angstrom=positions,
-            charge=task["charge"],
-            multiplicity=task["multiplicity"],
-        )
-        try:
-            results, guess = engine.compute(geometry, task["basis"], missing, settings, guess=guess)
-        except Exception as exc:  # recorded, never allowed to stop the batch
-            message = f"{type(exc).__name__}: {exc}".splitlines()[0]
-            results = {m: _failure(m, "", message) for m in missing}
-            guess = None
+        results, guess = walk.compute(point, missing, guess)
         previous_walk = point["walk"]
-        point["keys_all"] = dict(wanted)
-        point["settings"] = settings
         for method, result in results.items():
-            if method not in point["keys_all"]:
-                # e.g. the CCSD part of a CCSD(T) calculation: keep it, it is free
-                point["keys_all"][method] = keys.point_key(
-                    symbols,
-                    positions,
-                    task["charge"],
-                    task["multiplicity"],
-                    method,
-                    task["basis"],
-                    settings.key_dict(method),
-                    engine.name,
-                    engine.version,
-                )
-            elif method not in missing:
+            if method in wanted and method not in missing:
                 continue
-            store.write(_record(task, point, result, engine))
+            walk.write(point, result)
             if method in wanted:
                 counts["computed"] += 1
                 status[wanted[method]] = "done" if result.converged else "failed"
                 if not result.converged:
-                    counts["failed"] += 1
                     log.warning(
                         "point %s (%s, walk %d) failed: %s",
                         wanted[method],
@@ -174,6 +284,11 @@ def run_batch(task_path, done_path, threads: int = 1) -> dict:
                         point["walk"],
                         result.error,
                     )
+        computed.append(_Computed(index=index, methods=missing, results=results))
+    if continuity:
+        for run in _contiguous_runs(computed, points):
+            counts["improved"] += _backward_sweep(walk, run, points, status)
+    counts["failed"] = sum(1 for v in status.values() if v == "failed")
     marker = {"batch_id": task["batch_id"], "wall_s": time.time() - t0, **counts, "points": status}
     done_path = Path(done_path)
     done_path.parent.mkdir(parents=True, exist_ok=True)
@@ -195,11 +310,12 @@ def main(argv=None) -> int:
     os.environ.setdefault("OMP_NUM_THREADS", str(args.threads))
     marker = run_batch(args.task, args.done, threads=args.threads)
     log.info(
-        "batch %s: %d computed, %d failed, %d cached, %.1f s",
+        "batch %s: %d computed, %d failed, %d cached, %d improved walking back, %.1f s",
         marker["batch_id"],
         marker["computed"],
         marker["failed"],
         marker["skipped"],
+        marker["improved"],
         marker["wall_s"],
     )
     return 0

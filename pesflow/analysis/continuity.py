@@ -1,0 +1,75 @@
+"""Continuity of a walk along a scan: where the SCF may have jumped to another solution.
+
+A point is suspect when its energy misses a cubic through its two neighbours on
+each side by far more than the curve's own smoothness explains, or when <S^2>
+changes abruptly between neighbours.  Pure functions on arrays in walk order
+(equal steps assumed, as on a scan grid).
+
+>>> import numpy as np
+>>> e = np.cos(np.linspace(0, 1, 12)); e[7:] += 0.01
+>>> suspect_points(e)
+[5, 6, 7, 8]
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+#: Smallest energy residual (hartree) taken as a jump: 0.3 kcal/mol (common practice:
+#: well above SCF noise at conv_tol 1e-10 and DFT grid noise, well below chemistry).
+MIN_JUMP_HARTREE = 5e-4
+#: Residuals this many times the walk's lower-quartile residual are jumps (a quartile, not
+#: the median: one jump spoils four residuals, half of a short walk's).
+JUMP_FACTOR = 20.0
+#: A change of <S^2> between neighbours larger than this is a change of solution.
+MAX_S2_STEP = 0.25
+
+# Lagrange weights predicting f(0) from f(-2), f(-1), f(1), f(2) with a cubic.
+_WEIGHTS = np.array([-1.0, 4.0, 4.0, -1.0]) / 6.0
+
+
+def energy_residuals(energies_hartree) -> np.ndarray:
+    """Residual of each interior point against the cubic through its four neighbours
+    (NaN at the two points at each end and next to failed points)."""
+    e = np.asarray(energies_hartree, dtype=float)
+    out = np.full(len(e), np.nan)
+    for i in range(2, len(e) - 2):
+        window = e[[i - 2, i - 1, i + 1, i + 2]]
+        out[i] = e[i] - float(_WEIGHTS @ window)
+    return out
+
+
+def suspect_points(
+    energies_hartree,
+    s2=None,
+    *,
+    min_jump_hartree=MIN_JUMP_HARTREE,
+    factor=JUMP_FACTOR,
+    max_s2_step=MAX_S2_STEP,
+) -> list[int]:
+    """Indices of the points around a discontinuity (sorted, unique).
+
+    ``s2`` is the <S^2> of each point (NaN for restricted closed shells).
+    """
+    e = np.asarray(energies_hartree, dtype=float)
+    flagged = set()
+    r = np.abs(energy_residuals(e))
+    finite = r[np.isfinite(r)]
+    if finite.size:
+        threshold = min_jump_hartree
+        if finite.size >= 10:  # enough points for the walk's own smoothness to say more
+            threshold = max(threshold, factor * float(np.percentile(finite, 25)))
+        flagged.update(int(i) for i in np.flatnonzero(np.nan_to_num(r) > threshold))
+    if s2 is not None:
+        s = np.asarray(s2, dtype=float)
+        steps = np.abs(np.diff(s))
+        for i in np.flatnonzero(np.nan_to_num(steps) > max_s2_step):
+            flagged.update((int(i), int(i) + 1))
+    return sorted(flagged)
+
+
+def segment(flagged: list[int], n: int, margin: int = 2) -> tuple[int, int] | None:
+    """The index range [lo, hi] to redo around the flagged points (None if none)."""
+    if not flagged:
+        return None
+    return max(0, min(flagged) - margin), min(n - 1, max(flagged) + margin)
