@@ -32,6 +32,7 @@ import math
 import os
 import tempfile
 import time
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -193,6 +194,12 @@ def build_scf(mol, family: str, kind: str, settings: EngineSettings):
     mf.max_memory = settings.max_memory_mb
     mf.verbose = 0
     # No checkpoint file: PySCF would otherwise write one per SCF into its TMPDIR.
+    # It has already opened a temporary one; close it now rather than leave it to the
+    # garbage collector, which warns about the open file when the SCF object sits
+    # in a reference cycle (as it does under a gradient scanner).
+    handle = vars(mf).pop("_chkfile", None)
+    if handle is not None:
+        handle.close()
     mf.chkfile = None
     return mf
 
@@ -594,7 +601,9 @@ def optimise_geometry(scanner, constraints, max_steps: int = RELAX_MAX_STEPS):
             path = os.path.join(directory, "constraints.txt")
             with open(path, "w") as handle:
                 handle.write(constraints_text(constraints))
-        with _silent_geometric_logging(directory) as log_ini:
+        with _silent_geometric_logging(directory) as log_ini, warnings.catch_warnings():
+            # geomeTRIC reads the constraints file without closing it.
+            warnings.simplefilter("ignore", ResourceWarning)
             converged, mol = geometric_solver.kernel(
                 scanner,
                 assert_convergence=True,

@@ -312,3 +312,312 @@ def test_setup_errors_are_raised_before_computing(engine):
 def test_no_stray_files(engine, tmp_path):
     engine.compute(water(), "sto-3g", ["hf", "ccsd"], EngineSettings())
     assert os.listdir(tmp_path) == []
+
+
+# --- bond breaking: broken symmetry and stability analysis ---------------------------
+
+
+def h2(r_angstrom):
+    return Geometry(("H", "H"), [[0, 0, 0], [0, 0, r_angstrom]])
+
+
+def plain_atom_uhf(symbol, spin, basis):
+    mol = gto.M(atom=symbol, spin=spin, basis=basis, verbose=0)
+    return scf.UHF(mol).run(conv_tol=1e-12).e_tot
+
+
+def test_broken_symmetry_h2_dissociates_to_two_atoms_where_rhf_fails(engine):
+    basis, settings = "6-31g", EngineSettings(conv_tol=1e-12, broken_symmetry=True)
+    # One electron: UHF is exact within the basis; computed with plain PySCF.
+    two_atoms = 2 * plain_atom_uhf("H", 1, basis)
+    records, density = engine.compute(h2(5.0), basis, ["hf", "mp2", "ccsd(t)"], settings)
+    hf = records["hf"]
+    assert hf.reference == "UHF" and hf.converged
+    assert density.shape == (2, 4, 4)
+    # At 5 angstrom (9.45 bohr) what is left of the bond scales with the squared
+    # overlap of the two 1s orbitals, S = exp(-R)(1 + R + R^2/3) = 3e-3 for Slater 1s
+    # functions (exact formula), S^2 ~ 1e-5; the broken-symmetry solution is the two
+    # atoms to well within that.
+    assert hf.energy_hartree == pytest.approx(two_atoms, abs=1e-5)
+    # One alpha electron on one atom, one beta on the other:
+    # <S^2> = 1 - |<phi_alpha|phi_beta>|^2 -> 1, half singlet and half triplet.
+    assert hf.s2 == pytest.approx(1.0, abs=1e-4)
+    # Correlated methods on top are unrestricted too.
+    for method in ("mp2", "ccsd", "ccsd(t)"):
+        assert records[method].reference == "UHF" and records[method].converged
+    # Two electrons: CCSD is full CI whatever the reference.  Full CI from plain PySCF.
+    # From the spin-broken reference the amplitude equations converge slowly (the
+    # exact singlet is far from that determinant), and PySCF's default amplitude
+    # tolerance (1e-5 in the residual norm) leaves ~4e-7 hartree, hence 1e-6.
+    from pyscf import fci
+
+    plain_rhf = scf.RHF(plain_mole(h2(5.0), basis)).run(conv_tol=1e-12)
+    e_fci = fci.FCI(plain_rhf).kernel()[0]
+    assert records["ccsd"].energy_hartree == pytest.approx(e_fci, abs=1e-6)
+
+    rhf, _ = engine.compute(h2(5.0), basis, ["hf"], EngineSettings(conv_tol=1e-12))
+    assert rhf["hf"].reference == "RHF"
+    assert rhf["hf"].energy_hartree == pytest.approx(plain_rhf.e_tot, abs=1e-8)
+    # The textbook failure of RHF at dissociation: its determinant keeps half ionic
+    # H+ H- weight, far above two atoms (Szabo & Ostlund, Modern Quantum Chemistry,
+    # sec. 3.8.7, the dissociation of H2; from memory).  Here 0.245 hartree.
+    assert rhf["hf"].energy_hartree - two_atoms > 0.1
+
+
+def test_broken_symmetry_keeps_the_restricted_solution_near_equilibrium(engine):
+    # Short of the Coulson-Fischer point the restricted solution is the only one.
+    settings = EngineSettings(conv_tol=1e-12, broken_symmetry=True)
+    records, _ = engine.compute(h2(0.74), "6-31g", ["hf"], settings)
+    hf = records["hf"]
+    plain = scf.RHF(plain_mole(h2(0.74), "6-31g")).run(conv_tol=1e-12)
+    assert hf.reference == "UHF"
+    assert hf.energy_hartree == pytest.approx(plain.e_tot, abs=1e-8)
+    assert hf.s2 == pytest.approx(0.0, abs=1e-8)
+    rung = hf.attempts[-1]
+    assert rung["rung"] == "broken-symmetry" and rung["stable"] and rung["instabilities"] == []
+
+
+def test_broken_symmetry_dft_is_uks(engine):
+    settings = EngineSettings(broken_symmetry=True, grid_level=1)
+    records, _ = engine.compute(h2(5.0), "6-31g", ["b3lyp"], settings)
+    record = records["b3lyp"]
+    assert record.reference == "UKS" and record.converged
+    atom = dft.UKS(gto.M(atom="H", spin=1, basis="6-31g", verbose=0))
+    atom.xc, atom.grids.level = "b3lyp", 1
+    # Same argument as for UHF; B3LYP's self-interaction error makes each atom's
+    # energy its own, but two far-apart atoms still add up.
+    assert record.energy_hartree == pytest.approx(2 * atom.kernel(), abs=1e-4)
+    assert record.s2 == pytest.approx(1.0, abs=1e-3)
+
+
+def test_broken_symmetry_n2_triple_bond_to_two_quartet_atoms(engine):
+    basis = "6-31g"
+    # N atom: 4S ground state, three parallel 2p electrons (quartet).
+    two_atoms = 2 * plain_atom_uhf("N", 3, basis)
+    settings = EngineSettings(broken_symmetry=True)
+    n2 = Geometry(("N", "N"), [[0, 0, 0], [0, 0, 5.0]])
+    records, _ = engine.compute(n2, basis, ["hf"], settings)
+    hf = records["hf"]
+    # 5 angstrom = 9.4 bohr: the 2p overlap is a few 1e-3, its square ~1e-5.
+    assert hf.energy_hartree == pytest.approx(two_atoms, abs=1e-4)
+    # Two S = 3/2 atoms with opposite spins: <S^2> -> S_A + S_B = 3 (the
+    # broken-symmetry value, Noodleman's relation; from memory) plus the atoms'
+    # own UHF contamination, 0.0046 each here.
+    assert hf.s2 == pytest.approx(3.0, abs=0.02)
+    assert hf.attempts[-1]["instabilities"] == ["rhf->uhf"]
+
+
+def test_broken_symmetry_walk_carries_the_spin_broken_density(engine):
+    settings = EngineSettings(broken_symmetry=True)
+    energies = {}
+    for direction in ((1.1, 1.3, 1.5, 2.0, 3.0), (3.0, 2.0, 1.5, 1.3, 1.1)):
+        density = None
+        for r in direction:
+            n2 = Geometry(("N", "N"), [[0, 0, 0], [0, 0, r]])
+            records, density = engine.compute(n2, "6-31g", ["hf"], settings, guess=density)
+            hf = records["hf"]
+            energies.setdefault(r, []).append(hf.energy_hartree)
+            if r == 3.0 and direction[0] == 1.1:
+                # Walking outwards, the neighbour's spin-broken density is the guess:
+                # nothing left to break at 3 angstrom.
+                assert hf.attempts[-1]["instabilities"] == []
+                assert hf.s2 == pytest.approx(3.0, abs=0.02)
+    # Either way round, the same branch at every point (UHF has several solutions
+    # at stretched N2; a walk must not hop between them).
+    for r, (outwards, inwards) in energies.items():
+        assert outwards == pytest.approx(inwards, abs=1e-7), r
+
+
+def test_stability_analysis_follows_the_rhf_to_uhf_instability(engine):
+    basis = "6-31g"
+    two_atoms = 2 * plain_atom_uhf("H", 1, basis)
+    _, rhf_density = engine.compute(h2(4.0), basis, ["hf"], EngineSettings())
+    # A restricted starting density keeps UHF on the restricted solution ...
+    settings = EngineSettings(reference="unrestricted", stability=True, conv_tol=1e-12)
+    records, _ = engine.compute(h2(4.0), basis, ["hf"], settings, guess=rhf_density)
+    hf = records["hf"]
+    plain_rhf = scf.RHF(plain_mole(h2(4.0), basis)).run(conv_tol=1e-12)
+    assert hf.attempts[0]["energy_hartree"] == pytest.approx(plain_rhf.e_tot, abs=1e-8)
+    # ... which PySCF's own analysis calls RHF -> UHF unstable ...
+    assert plain_rhf.stability(external=True, return_status=True)[3] is False
+    # ... and the analysis finds it and lands on the lower, spin-broken solution.
+    rung = hf.attempts[-1]
+    assert rung["rung"] == "stability" and rung["stable"] is True
+    assert rung["instabilities"] == ["rhf->uhf"]
+    assert rung["energy_lowered_hartree"] > 0.1
+    assert hf.energy_hartree == pytest.approx(rung["energy_hartree"])
+    assert hf.energy_hartree == pytest.approx(two_atoms, abs=1e-4)
+    assert hf.s2 == pytest.approx(1.0, abs=1e-3)
+    assert hf.scf_cycles == sum(a["cycles"] for a in hf.attempts)
+
+
+def test_stability_analysis_of_rhf_reports_the_external_instability(engine):
+    settings = EngineSettings(stability=True)
+    stretched, _ = engine.compute(h2(4.0), "6-31g", ["hf"], settings)
+    rung = stretched["hf"].attempts[-1]
+    # RHF is stable within RHF (no internal instability) but not towards UHF; the
+    # reference is a setting, so this is reported, not followed.
+    assert rung["stable"] is True and rung["rhf_to_uhf_stable"] is False
+    assert stretched["hf"].reference == "RHF"
+    equilibrium, _ = engine.compute(h2(0.74), "6-31g", ["hf"], settings)
+    rung = equilibrium["hf"].attempts[-1]
+    assert rung["stable"] is True and rung["rhf_to_uhf_stable"] is True
+
+
+@pytest.mark.parametrize("reference", ["restricted-open", "unrestricted"])
+def test_stability_analysis_of_open_shells_agrees_with_plain_pyscf(engine, reference):
+    settings = EngineSettings(reference=reference, stability=True)
+    records, _ = engine.compute(water(charge=1, multiplicity=2), "6-31g", ["hf"], settings)
+    rung = records["hf"].attempts[-1]
+    cls = scf.ROHF if reference == "restricted-open" else scf.UHF
+    plain = cls(plain_mole(water(charge=1, multiplicity=2), "6-31g")).run(conv_tol=1e-10)
+    plain_stable = plain.stability(return_status=True)[2]
+    assert rung["rung"] == "stability" and rung["stable"] is plain_stable is True
+    assert rung["instabilities"] == [] and rung["cycles"] == 0
+
+
+# --- relaxed points -----------------------------------------------------------------
+
+
+def ase_atoms(geometry):
+    from ase import Atoms
+
+    return Atoms(geometry.symbols, positions=geometry.positions_angstrom)
+
+
+def from_ase(atoms):
+    return Geometry(tuple(atoms.get_chemical_symbols()), atoms.positions)
+
+
+def hydrogen_peroxide(dihedral_degree):
+    from ase.build import molecule
+
+    atoms = molecule("H2O2")  # O, O, H (on the first O), H (on the second O)
+    atoms.set_dihedral(2, 0, 1, 3, dihedral_degree, mask=[0, 0, 0, 1])
+    return from_ase(atoms)
+
+
+@pytest.mark.parametrize("method", ["hf", "mp2"])
+def test_relaxed_torsion_holds_the_dihedral_and_lowers_the_energy(engine, method):
+    import json
+
+    start = hydrogen_peroxide(90.0)
+    settings = EngineSettings()
+    rigid, _ = engine.compute(start, "sto-3g", [method], settings)
+    constraint = [("dihedral", (2, 0, 1, 3), 90.0)]
+    relaxed, record, info, density = engine.relax(start, "sto-3g", method, settings, constraint)
+
+    # The dihedral measured by ASE's own geometry code.
+    assert ase_atoms(relaxed).get_dihedral(2, 0, 1, 3) == pytest.approx(90.0, abs=1e-3)
+    assert record.converged and record.error is None and info["converged"]
+    assert record.energy_hartree < rigid[method].energy_hartree
+    assert density is not None and record.method == method
+    assert info["steps"] > 1 and info["energy_change_hartree"] < 0
+    assert info["last_energy_hartree"] == pytest.approx(record.energy_hartree, abs=1e-7)
+    # geomeTRIC's default (GAU) convergence criterion on the largest gradient
+    # component, 4.5e-4 hartree/bohr (geomeTRIC documentation).
+    assert info["max_gradient_hartree_bohr"] < 4.5e-4
+    assert info["constraints"] == [
+        {"kind": "dihedral", "atoms": [3, 1, 2, 4], "unit": "degree", "target": 90.0,
+         "final": pytest.approx(90.0, abs=1e-3)}
+    ]  # fmt: skip
+    assert record.extra["relaxation"] is info
+    json.dumps(record.extra)  # stored as extra_json
+
+    # A minimum in the free coordinates, checked with plain PySCF: stretching or
+    # shrinking the O-O bond (which does not move the dihedral) raises the energy.
+    def plain_energy(geometry):
+        mf = scf.RHF(plain_mole(geometry, "sto-3g")).run(conv_tol=1e-10)
+        return mf.e_tot if method == "hf" else mp.MP2(mf).run().e_tot
+
+    e_relaxed = plain_energy(relaxed)
+    assert e_relaxed == pytest.approx(record.energy_hartree, abs=1e-7)
+    r_oo = ase_atoms(relaxed).get_distance(0, 1)
+    for delta in (-0.01, 0.01):
+        atoms = ase_atoms(relaxed)
+        atoms.set_distance(0, 1, r_oo + delta, fix=0.5)
+        assert plain_energy(from_ase(atoms)) > e_relaxed
+
+
+def ethane(dihedral_degree):
+    from ase.build import molecule
+
+    atoms = molecule("C2H6")  # C, C, three H on the first C, three on the second
+    atoms.set_dihedral(2, 0, 1, 5, dihedral_degree, mask=[0, 0, 0, 0, 0, 1, 1, 1])
+    return from_ase(atoms)
+
+
+def test_ethane_relaxed_torsion_barrier(engine):
+    from pesflow.units import HARTREE_TO_KCAL_MOL
+
+    settings, basis = EngineSettings(), "sto-3g"
+    rigid, relaxed, c_c = {}, {}, {}
+    for name, dihedral in (("staggered", 180.0), ("eclipsed", 0.0)):
+        start = ethane(dihedral)
+        rigid[name] = engine.compute(start, basis, ["hf"], settings)[0]["hf"].energy_hartree
+        constraint = [("dihedral", (2, 0, 1, 5), dihedral)]
+        geometry, record, info, _ = engine.relax(start, basis, "hf", settings, constraint)
+        assert info["converged"] and record.converged
+        final = ase_atoms(geometry).get_dihedral(2, 0, 1, 5)
+        assert abs((final - dihedral + 180.0) % 360.0 - 180.0) < 1e-3
+        relaxed[name] = record.energy_hartree
+        c_c[name] = ase_atoms(geometry).get_distance(0, 1)
+    rigid_kcal = (rigid["eclipsed"] - rigid["staggered"]) * HARTREE_TO_KCAL_MOL
+    relaxed_kcal = (relaxed["eclipsed"] - relaxed["staggered"]) * HARTREE_TO_KCAL_MOL
+    # Relaxing lets the eclipsed form ease its H...H repulsion: a lower barrier,
+    # largely by a longer C-C bond (here 2.9 vs 3.1 kcal/mol and +0.010 angstrom).
+    assert 0 < relaxed_kcal < rigid_kcal
+    assert c_c["eclipsed"] > c_c["staggered"]
+    # Experimental barrier 2.9 kcal/mol from the torsional infrared spectrum (Weiss &
+    # Leroi, J. Chem. Phys. 48, 962 (1968); value from memory).  HF is known to get
+    # this barrier right within a few tenths of a kcal/mol even in small basis sets
+    # (it is a Pauli-repulsion and hyperconjugation effect, which HF describes, and
+    # the spectroscopic value also folds in zero-point motion of ~0.1 kcal/mol), so
+    # HF/STO-3G is held to 0.4 kcal/mol.
+    assert relaxed_kcal == pytest.approx(2.9, abs=0.4)
+
+
+def test_relaxation_is_silent_leaves_logging_and_no_files(engine, tmp_path, capfd, caplog):
+    import logging
+
+    # geomeTRIC reconfigures logging from a file at every run; the caller's own
+    # logging must come out as it went in, and nothing may be printed.
+    root = logging.getLogger()
+    handlers, level = list(root.handlers), root.level
+    engine.relax(hydrogen_peroxide(120.0), "sto-3g", "hf", EngineSettings(),
+                 [("dihedral", (2, 0, 1, 3), 120.0)])  # fmt: skip
+    out, err = capfd.readouterr()
+    assert out == "" and err == ""
+    assert root.handlers == handlers and root.level == level
+    logging.getLogger("pesflow.test").warning("still heard")
+    assert [r.getMessage() for r in caplog.records] == ["still heard"]
+    assert os.listdir(tmp_path) == []
+
+
+def test_failed_relaxation_is_recorded_not_raised(engine, monkeypatch):
+    start = hydrogen_peroxide(90.0)
+    constraint = [("dihedral", (2, 0, 1, 3), 90.0)]
+    monkeypatch.setattr(engine_module, "RELAX_MAX_STEPS", 2)
+    geometry, record, info, density = engine.relax(
+        start, "sto-3g", "hf", EngineSettings(), constraint
+    )
+    assert not record.converged and math.isnan(record.energy_hartree) and density is None
+    assert record.error == info["error"] == "geometry optimisation did not converge in 2 steps"
+    assert not info["converged"] and info["steps"] >= 2
+    assert math.isfinite(info["last_energy_hartree"])
+    assert ase_atoms(geometry).get_dihedral(2, 0, 1, 3) == pytest.approx(90.0, abs=1e-3)
+
+    # An SCF that cannot converge at the start: recorded too.
+    settings = EngineSettings(max_cycle=1, scf_ladder=("default",))
+    geometry, record, info, density = engine.relax(start, "sto-3g", "hf", settings, constraint)
+    assert not record.converged and density is None
+    assert record.error == "SCF did not converge at the starting geometry"
+    assert info["steps"] == 0 and geometry is start
+
+
+def test_relaxation_setup_errors_are_raised_before_computing(engine):
+    start = hydrogen_peroxide(90.0)
+    with pytest.raises(EngineSetupError, match="relax needs analytic gradients"):
+        engine.relax(start, "sto-3g", "ccsd(t)", EngineSettings(), [])
+    with pytest.raises(EngineSetupError, match="distinct 0-based indices below 4"):
+        engine.relax(start, "sto-3g", "hf", EngineSettings(), [("dihedral", (1, 2, 3, 4), 90)])
