@@ -1,0 +1,231 @@
+"""Comparison reports of a campaign: molecules x methods x basis sets.
+
+:func:`build_report` writes, from the points table and the summary table (nothing is
+computed), into one folder:
+
+* ``report.html``: one self-contained page (embedded PNG figures, inline CSS, no script, no
+  network) answering "which level is closest to the reference, by how much, at what cost";
+* ``report.md``: the same verdicts and tables in Markdown, figures under ``figures/``;
+* the tables as CSV: ``quantities.csv`` (one row per curve x level x quantity, with the
+  summary's deviation from the reference level), ``reference_values.csv``, ``statistics.csv``
+  (mean signed / mean absolute / maximum absolute deviation and n per level), ``cost.csv``,
+  ``status.csv`` (done / failed / pending per molecule and level), ``failed.csv``,
+  ``pending.csv``, ``convergence.csv`` and ``summary.csv`` (the summary table as given).
+
+:func:`terminal_summary` prints the verdicts to a :class:`rich.console.Console`.
+
+>>> # points = points_table(plan, store); summary = summary_table(campaign, plan, points)
+>>> # paths = build_report(campaign, plan, points, summary, campaign.results_path / "report")
+>>> # terminal_summary(campaign, summary, console, paths=paths)
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from pesflow.report.stats import (
+    ErrorStatistics,
+    closest_levels,
+    error_statistics,
+    level_statistics,
+)
+from pesflow.report.tables import QUANTITIES, QUANTITY, ReportData, collect
+
+__all__ = [
+    "QUANTITIES",
+    "ErrorStatistics",
+    "ReportData",
+    "build_report",
+    "closest_levels",
+    "collect",
+    "error_statistics",
+    "level_statistics",
+    "terminal_summary",
+]
+
+#: CSV files of the report: (key in the returned dict, file name, ReportData attribute).
+_CSV = (
+    ("quantities_csv", "quantities.csv", "values"),
+    ("reference_values_csv", "reference_values.csv", "reference_values"),
+    ("statistics_csv", "statistics.csv", "statistics"),
+    ("cost_csv", "cost.csv", "cost"),
+    ("status_csv", "status.csv", "status"),
+    ("failed_csv", "failed.csv", "failed"),
+    ("pending_csv", "pending.csv", "pending"),
+    ("convergence_csv", "convergence.csv", "convergence"),
+    ("summary_csv", "summary.csv", "curves"),
+)
+_LABELS = {
+    "quantities.csv": "derived quantities per curve and level, with deviations",
+    "reference_values.csv": "deviations from the user's reference values",
+    "statistics.csv": "error statistics per level (MSD, MAD, max, n)",
+    "cost.csv": "core-seconds and point counts per level",
+    "status.csv": "done / failed / pending points per molecule and level",
+    "failed.csv": "failed points with their error text",
+    "pending.csv": "points not computed yet",
+    "convergence.csv": "quantities against basis-set size",
+    "summary.csv": "the summary table the report was built from",
+    "report.md": "this report as Markdown",
+    "figures/": "the figures as PNG files",
+}
+
+
+def _write_atomic(path: Path, data: bytes | str) -> None:
+    tmp = path.with_name(f".{path.name}.tmp")
+    if isinstance(data, str):
+        tmp.write_text(data, encoding="utf-8")
+    else:
+        tmp.write_bytes(data)
+    os.replace(tmp, path)
+
+
+def _csv_text(frame: pd.DataFrame) -> str:
+    frame = frame.copy()
+    for col in frame.columns:
+        if frame[col].dtype == object:
+            # Lists (geometries) would be written as Python reprs; the summary has none, but
+            # keep the CSV plain text in any case.
+            frame[col] = frame[col].map(
+                lambda v: " ".join(map(str, v)) if isinstance(v, list | tuple | np.ndarray) else v
+            )
+    return frame.to_csv(index=False)
+
+
+def build_report(
+    campaign, plan, points: pd.DataFrame, summary: pd.DataFrame, out_dir
+) -> dict[str, Path]:
+    """Write the comparison report of ``campaign`` into ``out_dir`` (created if needed).
+
+    Args:
+        campaign: the loaded :class:`~pesflow.spec.Campaign`.
+        plan: its :class:`~pesflow.plan.Plan` (:func:`pesflow.plan.expand`).
+        points: :func:`pesflow.results.points_table` of the campaign, all columns.
+        summary: :func:`pesflow.summary.summary_table` of the same points.
+        out_dir: output folder; ``pesflow report`` uses ``campaign.results_path / "report"``.
+
+    Returns:
+        ``{"html": .../report.html, "markdown": .../report.md, "figures": .../figures,
+        "quantities_csv": ..., "reference_values_csv": ..., "statistics_csv": ...,
+        "cost_csv": ..., "status_csv": ..., "failed_csv": ..., "pending_csv": ...,
+        "convergence_csv": ..., "summary_csv": ...}``.  Each file is written atomically
+        (temporary file, then rename); figures of an earlier report that are no longer
+        produced are removed.  Reads nothing but the arguments (and PySCF's basis-function
+        counts when some method was run with two or more basis sets); computes no energies.
+    """
+    from pesflow.report import html as html_page
+    from pesflow.report import markdown
+    from pesflow.report.plots import make_figures
+
+    out = Path(out_dir)
+    fig_dir = out / "figures"
+    fig_dir.mkdir(parents=True, exist_ok=True)
+    data = collect(campaign, plan, points, summary)
+    figures = make_figures(campaign, points, data)
+    paths: dict[str, Path] = {}
+    for key, name, attr in _CSV:
+        path = out / name
+        _write_atomic(path, _csv_text(getattr(data, attr)))
+        paths[key] = path
+    keep = set()
+    for fig in figures.values():
+        _write_atomic(fig_dir / fig.name, fig.png)
+        keep.add(fig.name)
+    for old in fig_dir.glob("*.png"):
+        if old.name not in keep:
+            old.unlink()
+    paths["figures"] = fig_dir
+    files = {_LABELS[name]: name for _, name, _ in _CSV}
+    files[_LABELS["figures/"]] = "figures/"
+    md_files = dict(files)
+    files[_LABELS["report.md"]] = "report.md"
+    figure_files = {key: f"figures/{fig.name}" for key, fig in figures.items()}
+    paths["markdown"] = out / "report.md"
+    _write_atomic(paths["markdown"], markdown.render(data, figure_files, md_files))
+    paths["html"] = out / "report.html"
+    _write_atomic(paths["html"], html_page.render(data, figures, files))
+    return paths
+
+
+def terminal_summary(campaign, summary: pd.DataFrame, console, *, paths=None) -> None:
+    """Print the report's verdicts to ``console`` (a :class:`rich.console.Console`).
+
+    Per quantity, the error statistics of each level against the reference level (and the
+    user's reference values), the closest level marked; then what is missing, and the report
+    files when ``paths`` (the dict :func:`build_report` returned) is given.  Point counts and
+    core-seconds here are those of the summary (scan points; fragment points are in the
+    report's cost table).  All text is printed without markup interpretation.
+    """
+    from rich.table import Table
+    from rich.text import Text
+
+    points = pd.DataFrame({"molecule": [], "scan": [], "level": [], "status": [], "role": []})
+    data = collect(campaign, None, points, summary, basis_counts={})
+    ref = data.reference_level
+    console.print(
+        Text(
+            f"campaign {campaign.name}: comparison of {len(data.levels)} levels"
+            + (f" against {ref}" if ref else " (no reference level set)"),
+            style="bold",
+        )
+    )
+    per_level = (
+        summary.groupby("level").agg(
+            core_s=("cost_core_s", "sum"),
+            done=("n_done", "sum"),
+            failed=("n_failed_points", "sum"),
+            pending=("n_pending", "sum"),
+        )
+        if len(summary)
+        else pd.DataFrame(columns=["core_s", "done", "failed", "pending"])
+    )
+    best = closest_levels(data.statistics)
+    for column in dict.fromkeys(data.statistics["quantity"]):
+        q = QUANTITY[column]
+        table = Table(title=Text(f"{q.name} ({q.unit})"), title_justify="left")
+        for name in ("level", "against", "n", "MSD", "MAD", "max |dev|", "core-s"):
+            table.add_column(name, justify="left" if name in ("level", "against") else "right")
+        rows = data.statistics[data.statistics["quantity"] == column]
+        winners = set(
+            zip(
+                best.loc[best["quantity"] == column, "against"],
+                best.loc[best["quantity"] == column, "level"],
+            )
+        )
+        for _, r in rows.iterrows():
+            if r["n"] == 0:
+                continue
+            mark = " *" if (r["against"], r["level"]) in winners else ""
+            core = per_level["core_s"].get(r["level"], np.nan)
+            table.add_row(
+                Text(r["level"] + mark),
+                Text(str(r["against"])),
+                str(int(r["n"])),
+                f"{r['mean_signed']:+.{q.decimals}f}",
+                f"{r['mean_absolute']:.{q.decimals}f}",
+                f"{r['max_absolute']:.{q.decimals}f}",
+                f"{core:.3g}" if np.isfinite(core) else "",
+            )
+        if table.row_count:
+            console.print(table)
+    if best.empty:
+        console.print(
+            "no deviations to rank yet (needs a reference level or reference values "
+            "and computed curves)"
+        )
+    else:
+        console.print("* closest level (smallest mean absolute deviation)")
+    missing = per_level[(per_level["failed"] > 0) | (per_level["pending"] > 0)]
+    if len(missing):
+        text = ", ".join(
+            f"{lvl}: {int(r['failed'])} failed, {int(r['pending'])} pending"
+            for lvl, r in missing.iterrows()
+        )
+        console.print(Text(f"incomplete: {text} (scan points)", style="yellow"), soft_wrap=True)
+    if paths:
+        for key in ("html", "markdown"):
+            if key in paths:
+                console.print(Text(f"{key}: {paths[key]}"), soft_wrap=True)

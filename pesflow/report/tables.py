@@ -1,0 +1,713 @@
+"""The report's tables, built from the points table and the summary table (no computation).
+
+Everything the HTML page, the Markdown summary and the CSV files show is assembled here into
+one :class:`ReportData`: the derived quantities per curve and level with their deviations
+(from the summary's ``dev_<column>`` columns, never recomputed), the comparison with the
+user's reference values, error statistics per level, the cost per level, what is missing,
+and the summary's flags split into single warnings and attached to the quantities they
+concern.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from pesflow.plan import coordinate_columns
+from pesflow.report.stats import level_statistics
+from pesflow.results import status_counts
+
+
+@dataclass(frozen=True)
+class Quantity:
+    """A derived quantity shown in the report.
+
+    Attributes:
+        column: summary column (unit in the name), e.g. ``"r_e_angstrom"``.
+        name: plain-text name, e.g. ``"r_e"``.
+        html: name as (trusted, our own) HTML, e.g. ``"r<sub>e</sub>"``.
+        unit: unit as plain text, e.g. ``"Å"``.
+        decimals: decimals shown for values and deviations.
+        headline: shown whenever a curve has it; other quantities only when a reference value
+            names them.
+    """
+
+    column: str
+    name: str
+    html: str
+    unit: str
+    decimals: int
+    headline: bool = True
+
+    @property
+    def title(self) -> str:
+        return f"{self.name} ({self.unit})"
+
+
+#: Every quantity the report knows, in the order the report shows them.
+QUANTITIES = (
+    Quantity("r_e_angstrom", "r_e", "r<sub>e</sub>", "Å", 4),
+    Quantity("angle_e_degree", "angle_e", "θ<sub>e</sub>", "degree", 2),
+    Quantity("dihedral_e_degree", "dihedral_e", "φ<sub>e</sub>", "degree", 2),
+    Quantity("q1_e_angstrom", "q1 at minimum", "q<sub>1</sub> at minimum", "Å", 4),
+    Quantity("q1_e_degree", "q1 at minimum", "q<sub>1</sub> at minimum", "degree", 2),
+    Quantity("q2_e_angstrom", "q2 at minimum", "q<sub>2</sub> at minimum", "Å", 4),
+    Quantity("q2_e_degree", "q2 at minimum", "q<sub>2</sub> at minimum", "degree", 2),
+    Quantity("omega_e_cm-1", "omega_e", "ω<sub>e</sub>", "cm⁻¹", 1),
+    Quantity(
+        "omega_1d_cm-1", "omega_1d (along the scan)", "ω<sub>1D</sub> (along the scan)", "cm⁻¹", 1
+    ),
+    Quantity("omega_e_x_e_cm-1", "omega_e x_e", "ω<sub>e</sub>x<sub>e</sub>", "cm⁻¹", 2),
+    Quantity("nu_01_cm-1", "nu_01", "ν<sub>01</sub>", "cm⁻¹", 1),
+    Quantity("k_aj_rad-2", "k (bend)", "k<sub>bend</sub>", "aJ/rad²", 4),
+    Quantity("d_e_ev", "D_e", "D<sub>e</sub>", "eV", 3),
+    Quantity("d_0_ev", "D_0", "D<sub>0</sub>", "eV", 3),
+    Quantity("barrier_kcal_mol", "barrier", "barrier", "kcal/mol", 2),
+    Quantity("zpe_cm-1", "ZPE", "ZPE", "cm⁻¹", 1, headline=False),
+    Quantity("b_e_cm-1", "B_e", "B<sub>e</sub>", "cm⁻¹", 3, headline=False),
+    Quantity(
+        "k_mdyn_angstrom-1", "k (stretch)", "k<sub>stretch</sub>", "mdyn/Å", 3, headline=False
+    ),
+    Quantity(
+        "k_hartree_bohr-2", "k (stretch)", "k<sub>stretch</sub>", "hartree/bohr²", 4, headline=False
+    ),
+    Quantity("morse_d_e_ev", "Morse D_e", "Morse D<sub>e</sub>", "eV", 3, headline=False),
+    Quantity("barrier_kj_mol", "barrier", "barrier", "kJ/mol", 2, headline=False),
+    Quantity("barrier_cm-1", "barrier", "barrier", "cm⁻¹", 1, headline=False),
+    Quantity("barrier_ev", "barrier", "barrier", "eV", 4, headline=False),
+)
+QUANTITY = {q.column: q for q in QUANTITIES}
+
+#: The quantity that says where the minimum of a curve of each kind is (always listed, so
+#: that a curve with nothing computed yet still shows up in the tables as pending).
+_POSITION = {"distance": "r_e_angstrom", "angle": "angle_e_degree", "dihedral": "dihedral_e_degree"}
+_UNIT = {"distance": "angstrom", "angle": "degree", "dihedral": "degree"}
+UNIT_TEXT = {"angstrom": "Å", "degree": "degree"}
+
+# Which quantities a warning of the analysis concerns, by words it contains.  A warning that
+# matches none (noisy energies, minimum not bracketed, failed points) concerns the whole curve.
+_FLAG_TOPICS = (
+    ("vibrational level", ("nu_01_cm-1", "zpe_cm-1", "d_0_ev")),
+    ("omega_e x_e", ("omega_e_x_e_cm-1",)),
+    ("Morse fit", ("omega_e_x_e_cm-1", "morse_d_e_ev")),
+    ("1-D wavenumber", ("omega_1d_cm-1",)),
+    ("dissociation", ("d_e_ev", "d_0_ev")),
+    ("D_e", ("d_e_ev", "d_0_ev")),
+    ("fragment", ("d_e_ev", "d_0_ev")),
+    ("minimum-energy path", ("barrier_kcal_mol", "barrier_kj_mol", "barrier_cm-1", "barrier_ev")),
+    ("saddle", ("barrier_kcal_mol", "barrier_kj_mol", "barrier_cm-1", "barrier_ev")),
+)
+
+
+_ADVICE_VERBS = frozenset(
+    {
+        "tighten",
+        "extend",
+        "add",
+        "use",
+        "check",
+        "refine",
+        "give",
+        "rerun",
+        "increase",
+        "reduce",
+        "try",
+        "see",
+        "consider",
+    }
+)
+
+
+def split_flags(text) -> list[str]:
+    """Split the summary's ``flags`` text into single warnings.
+
+    Warnings are joined with ``"; "``; a warning may itself hold ``"; "`` inside parentheses,
+    so only separators outside parentheses split, and a piece that starts with an advice verb
+    (``tighten``, ``extend``, ...) stays with the warning before it.  NaN or empty text
+    gives ``[]``.
+
+    >>> split_flags("a (x; y): z; b; extend the scan")
+    ['a (x; y): z', 'b; extend the scan']
+    """
+    if not isinstance(text, str) or not text.strip():
+        return []
+    out, depth, start = [], 0, 0
+    for i, ch in enumerate(text):
+        if ch == "(":
+            depth += 1
+        elif ch == ")":
+            depth = max(0, depth - 1)
+        elif ch == ";" and depth == 0 and text[i + 1 : i + 2] == " ":
+            out.append(text[start:i].strip())
+            start = i + 2
+    out.append(text[start:].strip())
+    merged = []
+    for piece in (f for f in out if f):
+        # Some warnings carry their advice after a "; " of their own ("...; tighten the SCF
+        # convergence ..."): a piece that starts with advice belongs to the one before it.
+        if merged and piece.split(" ", 1)[0] in _ADVICE_VERBS:
+            merged[-1] = f"{merged[-1]}; {piece}"
+        else:
+            merged.append(piece)
+    return merged
+
+
+def flag_concerns(flag: str) -> frozenset[str] | None:
+    """The summary columns a warning concerns, or None when it concerns the whole curve.
+
+    >>> sorted(flag_concerns("omega_e x_e from the Morse fit (fewer than two trusted levels)"))
+    ['morse_d_e_ev', 'omega_e_x_e_cm-1']
+    >>> flag_concerns("noisy energies at 1.2 A") is None
+    True
+    """
+    hit = set()
+    for words, columns in _FLAG_TOPICS:
+        if words in flag:
+            hit.update(columns)
+    return frozenset(hit) if hit else None
+
+
+def cardinal_number(basis: str) -> int | None:
+    """Cardinal number X of a correlation-consistent or Karlsruhe basis set, else None.
+
+    cc-pVXZ / aug-cc-pVXZ (X = D, T, Q, 5, 6) and def2-SVP / TZVP / QZVP (2, 3, 4).
+
+    >>> cardinal_number("aug-cc-pvtz"), cardinal_number("def2-svp"), cardinal_number("6-31g")
+    (3, 2, None)
+    """
+    b = basis.strip().lower()
+    m = re.search(r"cc-p(?:w?c)?v([dtq56])z", b)
+    if m:
+        return {"d": 2, "t": 3, "q": 4, "5": 5, "6": 6}[m.group(1)]
+    m = re.fullmatch(r"def2-(svp|svpd|tzvpp?d?|qzvpp?d?)", b)
+    if m:
+        return {"s": 2, "t": 3, "q": 4}[m.group(1)[0]]
+    return None
+
+
+@dataclass
+class ReportData:
+    """Everything the report shows, as plain tables (one place, so every output agrees).
+
+    Attributes:
+        campaign: campaign name.
+        spec_path: the spec file.
+        reference_level: label of ``compare.reference_level`` (lower case) or None.
+        levels: level labels in the spec's order.
+        level_method, level_basis: method and basis of each level.
+        quantities: the quantities shown, in order.
+        values: one row per curve x level x quantity: ``molecule, scan, kind, level, method,
+            basis, quantity, value, dev_reference_level, state, n_done, n_failed_points,
+            n_pending, flags`` (``state``: ``value`` / ``pending`` / ``failed`` /
+            ``not determined``; ``flags``: the warnings that concern this number, joined by
+            ``" | "``).
+        reference_values: one row per user reference value x level: ``molecule, scan,
+            quantity, source, reference_value, level, value, deviation``.
+        statistics: :func:`~pesflow.report.stats.level_statistics` rows against the
+            reference level and against the reference values.
+        cost: one row per level: ``level, method, basis, core_s, points_done, points_failed,
+            points_pending, points_total, core_s_per_point, cost_vs_reference``.
+        status: done / failed / pending per molecule and level.
+        failed: the failed points (``molecule, scan, level, where, error``).
+        pending: the pending points (``molecule, scan, level, where``).
+        curves: one row per curve and level of the summary (the summary's own columns).
+        curve_flags: one row per warning: ``molecule, scan, level, flag``.
+        convergence: ``molecule, scan, quantity, method, basis, nbf, cardinal, value`` for
+            every method computed with two or more basis sets.
+        totals: ``done``, ``failed``, ``pending`` point counts.
+    """
+
+    campaign: str
+    spec_path: Path
+    reference_level: str | None
+    levels: list[str]
+    level_method: dict[str, str]
+    level_basis: dict[str, str]
+    quantities: list[Quantity]
+    values: pd.DataFrame
+    reference_values: pd.DataFrame
+    statistics: pd.DataFrame
+    cost: pd.DataFrame
+    status: pd.DataFrame
+    failed: pd.DataFrame
+    pending: pd.DataFrame
+    curves: pd.DataFrame
+    curve_flags: pd.DataFrame
+    convergence: pd.DataFrame
+    totals: dict = field(default_factory=dict)
+
+    @property
+    def complete(self) -> bool:
+        return self.totals.get("failed", 0) == 0 and self.totals.get("pending", 0) == 0
+
+
+def _num(row, column) -> float:
+    value = row.get(column, np.nan)
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return float("nan")
+
+
+def _curve_kinds(campaign) -> dict[str, tuple[str, ...]]:
+    return {name: tuple(c.kind for c in scan.coordinates) for name, scan in campaign.scans.items()}
+
+
+def _state(value, row) -> str:
+    if np.isfinite(value):
+        return "value"
+    if int(row.get("n_done", 0)) == 0:
+        return "pending" if int(row.get("n_pending", 0)) > 0 else "failed"
+    return "not determined"
+
+
+def _partial_flag(row) -> str | None:
+    pending, failed = int(row.get("n_pending", 0)), int(row.get("n_failed_points", 0))
+    if not pending and not failed:
+        return None
+    total = int(row.get("n_done", 0)) + pending + failed
+    parts = []
+    if pending:
+        parts.append(f"{pending} of {total} points pending")
+    if failed:
+        parts.append(f"{failed} of {total} points failed")
+    return "from an incomplete curve: " + ", ".join(parts)
+
+
+def _applicable(summary, kinds, reference_specs) -> tuple[list[Quantity], dict]:
+    """The quantities to show, and per (molecule, scan) the set of quantity columns that apply."""
+    per_curve: dict[tuple[str, str], set[str]] = {}
+    for (molecule, scan), sub in summary.groupby(["molecule", "scan"], sort=False):
+        cols = set()
+        for q in QUANTITIES:
+            if (
+                q.headline
+                and q.column in sub
+                and np.isfinite(pd.to_numeric(sub[q.column], errors="coerce")).any()
+            ):
+                cols.add(q.column)
+        k = kinds.get(scan, ())
+        if len(k) == 1:
+            cols.add(_POSITION[k[0]])
+        elif len(k) == 2:
+            cols.update({f"q1_e_{_UNIT[k[0]]}", f"q2_e_{_UNIT[k[1]]}"})
+        per_curve[(molecule, scan)] = cols
+    for ref in reference_specs:
+        per_curve.setdefault((ref.molecule, ref.scan), set()).add(ref.quantity)
+    used = set().union(*per_curve.values()) if per_curve else set()
+    return [q for q in QUANTITIES if q.column in used], per_curve
+
+
+def _values_table(summary, quantities, per_curve, kinds, reference_level):
+    rows = []
+    for _, row in summary.iterrows():
+        molecule, scan = row["molecule"], row["scan"]
+        flags = split_flags(row.get("flags"))
+        partial = _partial_flag(row)
+        for q in quantities:
+            if q.column not in per_curve.get((molecule, scan), ()):
+                continue
+            value = _num(row, q.column)
+            dev = _num(row, f"dev_{q.column}")
+            concern = [
+                f for f in flags if (flag_concerns(f) is None or q.column in flag_concerns(f))
+            ]
+            if partial and np.isfinite(value):
+                concern.append(partial)
+            rows.append(
+                {
+                    "molecule": molecule,
+                    "scan": scan,
+                    "kind": ", ".join(kinds.get(scan, ())),
+                    "level": row["level"],
+                    "method": row["method"],
+                    "basis": row["basis"],
+                    "quantity": q.column,
+                    "value": value,
+                    "dev_reference_level": dev,
+                    "reference_level": reference_level or "",
+                    "state": _state(value, row),
+                    "n_done": int(row.get("n_done", 0)),
+                    "n_failed_points": int(row.get("n_failed_points", 0)),
+                    "n_pending": int(row.get("n_pending", 0)),
+                    "flags": " | ".join(concern),
+                }
+            )
+    columns = [
+        "molecule",
+        "scan",
+        "kind",
+        "level",
+        "method",
+        "basis",
+        "quantity",
+        "value",
+        "dev_reference_level",
+        "reference_level",
+        "state",
+        "n_done",
+        "n_failed_points",
+        "n_pending",
+        "flags",
+    ]
+    return pd.DataFrame(rows, columns=columns)
+
+
+def _reference_values_table(values, reference_specs, levels):
+    rows = []
+    for ref in reference_specs:
+        sub = values[
+            (values["molecule"] == ref.molecule)
+            & (values["scan"] == ref.scan)
+            & (values["quantity"] == ref.quantity)
+        ].set_index("level")
+        for level in levels:
+            v = float(sub.loc[level, "value"]) if level in sub.index else float("nan")
+            rows.append(
+                {
+                    "molecule": ref.molecule,
+                    "scan": ref.scan,
+                    "quantity": ref.quantity,
+                    "source": ref.source,
+                    "reference_value": float(ref.value),
+                    "level": level,
+                    "value": v,
+                    "deviation": v - float(ref.value),
+                }
+            )
+    columns = [
+        "molecule",
+        "scan",
+        "quantity",
+        "source",
+        "reference_value",
+        "level",
+        "value",
+        "deviation",
+    ]
+    return pd.DataFrame(rows, columns=columns)
+
+
+def _statistics(values, reference_values, levels, reference_level):
+    frames = []
+    if reference_level and len(values):
+        frames.append(
+            level_statistics(
+                values,
+                against=reference_level,
+                deviation_column="dev_reference_level",
+                levels=levels,
+                exclude_level=reference_level,
+            )
+        )
+    if len(reference_values):
+        frames.append(level_statistics(reference_values, against="reference values", levels=levels))
+    frames = [f for f in frames if len(f)]
+    if not frames:
+        return level_statistics(
+            pd.DataFrame(columns=["quantity", "level", "molecule", "scan", "deviation"]),
+            against="",
+            levels=[],
+        )
+    return pd.concat(frames, ignore_index=True)
+
+
+def _where(row, columns) -> str:
+    parts = []
+    for c in columns:
+        v = row.get(c)
+        if v is not None and np.isfinite(v):
+            name, unit = c.rsplit("_", 1)
+            parts.append(f"{name} = {v:g} {UNIT_TEXT.get(unit, unit)}")
+    return ", ".join(parts) if parts else str(row.get("scan", ""))
+
+
+def _point_lists(points):
+    coord = [
+        c
+        for c in points.columns
+        if c.endswith(("_angstrom", "_degree")) and c != "positions_angstrom"
+    ]
+    lists = {}
+    for state in ("failed", "pending"):
+        sub = points[points["status"] == state]
+        rows = []
+        for _, row in sub.iterrows():
+            item = {
+                "molecule": row["molecule"],
+                "scan": row["scan"],
+                "level": row["level"],
+                "where": _where(row, coord),
+            }
+            if state == "failed":
+                err = row.get("error")
+                item["error"] = err if isinstance(err, str) else ""
+            rows.append(item)
+        columns = ["molecule", "scan", "level", "where"] + (["error"] if state == "failed" else [])
+        lists[state] = pd.DataFrame(rows, columns=columns)
+    return lists["failed"], lists["pending"]
+
+
+def _ordered_status(points, molecules, levels):
+    """Done / failed / pending per molecule and level, in the spec's order."""
+    if not len(points):
+        return pd.DataFrame(columns=["molecule", "level", "done", "failed", "pending"])
+    counts = status_counts(points)
+    rank_m = {m: i for i, m in enumerate(molecules)}
+    rank_l = {lvl: i for i, lvl in enumerate(levels)}
+    order = sorted(
+        range(len(counts)),
+        key=lambda i: (
+            rank_m.get(counts["molecule"].iloc[i], len(rank_m)),
+            rank_l.get(counts["level"].iloc[i], len(rank_l)),
+        ),
+    )
+    return counts.iloc[order].reset_index(drop=True)
+
+
+def _cost_table(points, levels, reference_level):
+    rows = []
+    for level in levels:
+        sub = points[points["level"] == level]
+        stored = sub[sub["status"] != "pending"]
+        core_s = (
+            float(pd.to_numeric(stored.get("wall_s"), errors="coerce").fillna(0).sum())
+            if "wall_s" in sub
+            else float("nan")
+        )
+        n = {s: int((sub["status"] == s).sum()) for s in ("done", "failed", "pending")}
+        computed = n["done"] + n["failed"]
+        rows.append(
+            {
+                "level": level,
+                "method": sub["method"].iloc[0] if len(sub) else level.split("/")[0],
+                "basis": sub["basis"].iloc[0] if len(sub) else level.split("/", 1)[-1],
+                "core_s": core_s,
+                "points_done": n["done"],
+                "points_failed": n["failed"],
+                "points_pending": n["pending"],
+                "points_total": len(sub),
+                "core_s_per_point": core_s / computed if computed else float("nan"),
+            }
+        )
+    cost = pd.DataFrame(
+        rows,
+        columns=[
+            "level",
+            "method",
+            "basis",
+            "core_s",
+            "points_done",
+            "points_failed",
+            "points_pending",
+            "points_total",
+            "core_s_per_point",
+        ],
+    )
+    ref = cost[cost["level"] == reference_level]
+    per_point = float(ref["core_s_per_point"].iloc[0]) if len(ref) else float("nan")
+    cost["cost_vs_reference"] = (
+        cost["core_s_per_point"] / per_point if per_point > 0 else float("nan")
+    )
+    return cost
+
+
+def _convergence(values, campaign, basis_counts):
+    """Quantity against basis-set size for every method computed with two or more bases."""
+    columns = ["molecule", "scan", "quantity", "method", "basis", "nbf", "cardinal", "value"]
+    finite = values[values["state"] == "value"]
+    bases_per_method = finite.groupby(["molecule", "scan", "quantity", "method"])["basis"].nunique()
+    wanted = bases_per_method[bases_per_method >= 2]
+    if wanted.empty:
+        return pd.DataFrame(columns=columns)
+    if basis_counts is None:
+        from pesflow.cost import basis_function_counts
+
+        basis_counts = basis_function_counts(campaign)
+    rows = []
+    for (molecule, scan, quantity, method), _ in wanted.items():
+        sub = finite[
+            (finite["molecule"] == molecule)
+            & (finite["scan"] == scan)
+            & (finite["quantity"] == quantity)
+            & (finite["method"] == method)
+        ]
+        for _, row in sub.iterrows():
+            rows.append(
+                {
+                    "molecule": molecule,
+                    "scan": scan,
+                    "quantity": quantity,
+                    "method": method,
+                    "basis": row["basis"],
+                    "nbf": basis_counts.get((molecule, row["basis"]), np.nan),
+                    "cardinal": cardinal_number(row["basis"]),
+                    "value": row["value"],
+                }
+            )
+    out = pd.DataFrame(rows, columns=columns)
+    return out.sort_values(["quantity", "molecule", "scan", "method", "nbf"], ignore_index=True)
+
+
+def collect(
+    campaign, plan, points: pd.DataFrame, summary: pd.DataFrame, *, basis_counts=None
+) -> ReportData:
+    """Assemble :class:`ReportData` from the points table and the summary table.
+
+    Args:
+        campaign: the :class:`~pesflow.spec.Campaign`.
+        plan: its :class:`~pesflow.plan.Plan` (checked to be of the same campaign).
+        points: :func:`pesflow.results.points_table` of the campaign (all columns).
+        summary: :func:`pesflow.summary.summary_table` of the campaign.
+        basis_counts: optional ``{(molecule, basis): n_basis_functions}``; default: computed
+            with :func:`pesflow.cost.basis_function_counts`, and only when some method was
+            run with two or more basis sets.
+
+    Nothing is computed except table arithmetic; every deviation from the reference level is
+    the summary's own ``dev_<column>`` value.
+    """
+    ref_raw = campaign.spec.compare.reference_level
+    reference_level = ref_raw.strip().lower() if ref_raw else None
+    levels = [lvl.label for lvl in campaign.levels]
+    level_method = {lvl.label: lvl.method for lvl in campaign.levels}
+    level_basis = {lvl.label: lvl.basis for lvl in campaign.levels}
+    kinds = _curve_kinds(campaign)
+    refs = list(campaign.spec.compare.reference_values)
+    if summary is None or summary.empty:
+        summary = pd.DataFrame(
+            columns=[
+                "molecule",
+                "scan",
+                "level",
+                "method",
+                "basis",
+                "n_done",
+                "n_failed_points",
+                "n_pending",
+                "flags",
+            ]
+        )
+    quantities, per_curve = _applicable(summary, kinds, refs)
+    values = _values_table(summary, quantities, per_curve, kinds, reference_level)
+    reference_values = _reference_values_table(values, refs, levels)
+    statistics = _statistics(values, reference_values, levels, reference_level)
+    failed, pending = _point_lists(points)
+    flag_rows = [
+        {"molecule": r["molecule"], "scan": r["scan"], "level": r["level"], "flag": f}
+        for _, r in summary.iterrows()
+        for f in split_flags(r.get("flags"))
+    ]
+    counts = points["status"].value_counts()
+    if plan is not None and plan.campaign != campaign.name:
+        raise ValueError(f"the plan is of campaign {plan.campaign!r}, not {campaign.name!r}")
+    return ReportData(
+        campaign=campaign.name,
+        spec_path=Path(campaign.path),
+        reference_level=reference_level,
+        levels=levels,
+        level_method=level_method,
+        level_basis=level_basis,
+        quantities=quantities,
+        values=values,
+        reference_values=reference_values,
+        statistics=statistics,
+        cost=_cost_table(points, levels, reference_level),
+        status=_ordered_status(points, list(campaign.molecules), levels),
+        failed=failed,
+        pending=pending,
+        curves=summary,
+        curve_flags=pd.DataFrame(flag_rows, columns=["molecule", "scan", "level", "flag"]),
+        convergence=_convergence(values, campaign, basis_counts),
+        totals={s: int(counts.get(s, 0)) for s in ("done", "failed", "pending")},
+    )
+
+
+def curve_arrays(campaign, points: pd.DataFrame, molecule: str, scan: str, level: str):
+    """The scanned points of one curve at one level, in walk order.
+
+    Returns ``(q, energy_hartree, status)``: ``q`` of shape (m, k) in the coordinates' units
+    (k = 1 or 2), energies NaN where not done, ``status`` the points' status strings.
+    """
+    kinds = tuple(c.kind for c in campaign.scans[scan].coordinates)
+    cols = coordinate_columns(kinds)
+    sub = points[
+        (points["molecule"] == molecule) & (points["scan"] == scan) & (points["level"] == level)
+    ]
+    if "role" in sub:
+        sub = sub[sub["role"] == "scan"]
+    sub = sub.sort_values("walk")
+    status = sub["status"].to_numpy(dtype=object)
+    energy = (
+        np.where(
+            status == "done", pd.to_numeric(sub["energy_hartree"], errors="coerce"), np.nan
+        ).astype(float)
+        if len(sub)
+        else np.zeros(0)
+    )
+    q = sub[cols].to_numpy(dtype=float) if len(sub) else np.zeros((0, len(cols)))
+    return q, energy, status
+
+
+def surface_grid(campaign, points: pd.DataFrame, molecule: str, scan: str, level: str):
+    """The points of one 2-D scan at one level on their grid.
+
+    Returns ``(q1, q2, energy_hartree, status)``: the axis values in the spec's order and
+    units, and arrays of shape (len(q1), len(q2)): energies (NaN where not done) and the
+    points' status strings (``"pending"`` where the points table has no row).
+    """
+    s = campaign.scans[scan]
+    q1, q2 = (np.asarray(c.values, dtype=float) for c in s.coordinates)
+    energy = np.full((len(q1), len(q2)), np.nan)
+    status = np.full((len(q1), len(q2)), "pending", dtype=object)
+    sub = points[
+        (points["molecule"] == molecule) & (points["scan"] == scan) & (points["level"] == level)
+    ]
+    if "role" in sub:
+        sub = sub[sub["role"] == "scan"]
+    index = s.grid_indices()
+    walk = sub["walk"].to_numpy(dtype=int)
+    i, j = index[walk, 0], index[walk, 1]
+    st = sub["status"].to_numpy(dtype=object)
+    status[i, j] = st
+    e = pd.to_numeric(sub["energy_hartree"], errors="coerce").to_numpy(dtype=float)
+    energy[i, j] = np.where(st == "done", e, np.nan)
+    return q1, q2, energy, status
+
+
+def fmt_value(value, decimals: int) -> str:
+    """A value as shown in the report's tables (``""`` for NaN).
+
+    >>> fmt_value(0.901489, 4), fmt_value(float("nan"), 2)
+    ('0.9015', '')
+    """
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return ""
+    return f"{v:.{decimals}f}" if np.isfinite(v) else ""
+
+
+def fmt_dev(value, decimals: int) -> str:
+    """A deviation with its sign, as shown in the report's tables (``""`` for NaN).
+
+    >>> fmt_dev(-0.0178583, 4), fmt_dev(0.0, 1)
+    ('-0.0179', '+0.0')
+    """
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return ""
+    return f"{v:+.{decimals}f}" if np.isfinite(v) else ""
+
+
+def fmt_seconds(value) -> str:
+    """Core-seconds with three significant figures (``""`` for NaN)."""
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return ""
+    return f"{v:.3g}" if np.isfinite(v) else ""
