@@ -3,8 +3,7 @@
 One call of :meth:`PySCFEngine.compute` is one point: the SCF of one scf family is
 converged once (through a ladder of strategies) and serves every method built on
 it; each method gets its own :class:`~pesflow.engine.PointResult`.  The steps are
-plain functions, so that a later change (stability analysis, broken-symmetry
-guesses) has one place to go:
+plain functions (:func:`converge_scf` strings the SCF ones together):
 
 * :func:`build_mole` - geometry and basis to a PySCF ``Mole`` (angstrom, no symmetry,
   silent, no output file);
@@ -577,24 +576,26 @@ class OptimisationTrace:
         self.positions_bohr.append(np.array(env["coords"], dtype=float).reshape(-1, 3))
 
 
-def optimise_geometry(scanner, constraints, max_steps: int = RELAX_MAX_STEPS):
+def optimise_geometry(scanner, constraints, max_steps: int = RELAX_MAX_STEPS, trace=None):
     """Run geomeTRIC through PySCF's driver under ``constraints``; nothing is printed.
 
     Inputs:
         scanner: a gradient scanner (:func:`gradient_scanner`).
         constraints: checked constraints (:func:`check_constraints`); may be empty.
         max_steps: geometry steps before giving up [:data:`RELAX_MAX_STEPS`].
+        trace: an :class:`OptimisationTrace` to fill (a new one if None); it keeps
+            the steps made when the optimisation raises.
 
     Returns ``(converged, mol, trace)``: geomeTRIC's own convergence test (GAU
     criteria, the constraints met to :data:`RELAX_ENFORCE` and then exactly), the
-    PySCF ``Mole`` at the last geometry and the :class:`OptimisationTrace`.
-    Every file (the constraints, geomeTRIC's log and trajectory) lives in temporary
-    directories that are removed.  Raises what the scanner raises, e.g. RuntimeError
-    when an SCF along the way does not converge.
+    PySCF ``Mole`` at the last geometry and the trace.  Every file (the
+    constraints, geomeTRIC's log and trajectory) lives in temporary directories
+    that are removed.  Raises what the scanner raises, and RuntimeError when an
+    SCF along the way does not converge.
     """
     from pyscf.geomopt import geometric_solver
 
-    trace = OptimisationTrace()
+    trace = OptimisationTrace() if trace is None else trace
     with tempfile.TemporaryDirectory(prefix="pesflow-relax-") as directory:
         path = None
         if constraints:
@@ -937,7 +938,7 @@ class PySCFEngine:
             mf = build_scf(build_mole(geometry, basis, settings), family, kind, settings)
             mf.mo_coeff, mf.mo_occ = ladder.mf.mo_coeff, ladder.mf.mo_occ
             scanner = gradient_scanner(mf, method, settings)
-            converged, mol, trace = optimise_geometry(scanner, constraints, RELAX_MAX_STEPS)
+            converged, mol, _ = optimise_geometry(scanner, constraints, RELAX_MAX_STEPS, trace)
             reached = Geometry(geometry.symbols, mol.atom_coords(unit="Angstrom"),
                                geometry.charge, geometry.multiplicity)  # fmt: skip
             density = np.array(_scf_of(scanner).make_rdm1(), dtype=float)
@@ -947,8 +948,12 @@ class PySCFEngine:
                 at = Geometry(geometry.symbols, trace.positions_bohr[-1] * BOHR_ANGSTROM,
                               geometry.charge, geometry.multiplicity)  # fmt: skip
             _summarise(info, trace, constraints)
-            return failed(f"geometry optimisation failed: {error_line(exc)}", at,
-                          ladder.attempts, ladder.cycles)  # fmt: skip
+            if trace.energies_hartree and not scanner.converged:
+                # PySCF's message names the object by its address; say it plainly.
+                reason = f"SCF did not converge at optimisation step {info['steps']}"
+            else:
+                reason = f"geometry optimisation failed: {error_line(exc)}"
+            return failed(reason, at, ladder.attempts, ladder.cycles)
 
         _summarise(info, trace, constraints)
         info["converged"] = converged

@@ -614,6 +614,18 @@ def test_failed_relaxation_is_recorded_not_raised(engine, monkeypatch):
     assert record.error == "SCF did not converge at the starting geometry"
     assert info["steps"] == 0 and geometry is start
 
+    # Stretched water: the ladder converges the start (second-order rung), but the
+    # steps run plain DIIS from the previous density, and 3 iterations are too few.
+    start = Geometry(WATER_SYMBOLS, STRETCHED_WATER_ANGSTROM)
+    settings = EngineSettings(max_cycle=3)
+    geometry, record, info, density = engine.relax(
+        start, "6-31g", "hf", settings, [("angle", (1, 0, 2), 106.0)]
+    )
+    assert record.attempts[-1]["rung"] == "second-order" and record.attempts[-1]["converged"]
+    assert record.error == info["error"] == "SCF did not converge at optimisation step 2"
+    assert not record.converged and density is None and info["steps"] == 2
+    assert not np.allclose(geometry.positions_angstrom, start.positions_angstrom)
+
 
 def test_relaxation_setup_errors_are_raised_before_computing(engine):
     start = hydrogen_peroxide(90.0)
