@@ -71,6 +71,7 @@ def _atomic_write_text(path: Path, text: str) -> None:
 def task_dict(plan, batch, store_root, recompute=()) -> dict:
     """The task file content of one batch (everything the worker needs)."""
     from pesflow.batch import TASK_FORMAT, TASK_VERSION
+    from pesflow.plan import relax_key
 
     gs = plan.geometry_sets[batch.set_id]
     keys = {k for _, methods in batch.entries for k in methods.values()}
@@ -91,8 +92,17 @@ def task_dict(plan, batch, store_root, recompute=()) -> dict:
         "charge": gs.charge,
         "multiplicity": gs.multiplicity,
         "recompute": sorted(keys & set(recompute)),
+        "relax": None if not gs.relax else {
+            "coordinates": [
+                {"kind": kind, "atoms": list(atoms), "moving": list(moving)}
+                for kind, atoms, moving in zip(gs.coordinate_kinds, gs.coordinate_atoms,
+                                               gs.moving)
+            ],
+            "key": relax_key(gs),
+        },
         "points": [
-            {"walk": walk, "positions": gs.positions[walk].tolist(), "keys": methods}
+            {"walk": walk, "positions": gs.positions[walk].tolist(), "keys": methods,
+             "values": gs.values[walk].tolist()}
             for walk, methods in batch.entries
         ],
     }
