@@ -187,7 +187,8 @@ def terminal_summary(campaign, summary: pd.DataFrame, console, *, paths=None) ->
         q = QUANTITY[column]
         table = Table(title=Text(f"{q.name} ({q.unit})"), title_justify="left")
         for name in ("level", "against", "n", "MSD", "MAD", "max |dev|", "core-s"):
-            table.add_column(name, justify="left" if name in ("level", "against") else "right")
+            left = name in ("level", "against")
+            table.add_column(name, justify="left" if left else "right", no_wrap=True)
         rows = data.statistics[data.statistics["quantity"] == column]
         winners = set(
             zip(

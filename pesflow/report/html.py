@@ -16,7 +16,18 @@ from datetime import UTC, datetime
 import numpy as np
 
 from pesflow.report.stats import closest_levels
-from pesflow.report.tables import QUANTITY, ReportData, fmt_dev, fmt_seconds, fmt_value
+from pesflow.report.tables import (
+    QUANTITY,
+    ReportData,
+    fmt_dev,
+    fmt_seconds,
+    fmt_value,
+    scan_label,
+)
+
+#: Longest lists of points written out in the page (the CSV files always list all of them).
+_MAX_LISTED_PER_CURVE = 40
+_MAX_LISTED = 500
 
 
 class Markup(str):
@@ -202,7 +213,7 @@ def _quantity_table(d: ReportData, q, notes: _Notes) -> Markup:
     rows = []
     for (molecule, scan), curve in sub.groupby(["molecule", "scan"], sort=False):
         by_level = curve.set_index("level")
-        cells = [_td(molecule), _td(scan)]
+        cells = [_td(molecule), _td(scan_label(d.curves, molecule, scan, q.column))]
         for lvl in d.levels:
             cls = "num ref" if lvl == d.reference_level else "num"
             if lvl not in by_level.index:
@@ -345,8 +356,12 @@ def _verdicts(d: ReportData) -> Markup:
     if best.empty:
         return tag(
             "p",
-            "No deviations to rank yet: a reference level or reference values, "
-            "and computed curves at two levels, are needed.",
+            "Nothing to rank yet: set compare.reference_level (or compare.reference_values) "
+            "in the spec, and compute curves at two or more levels. The values and the cost "
+            "of every level are below."
+            if not d.reference_level and d.reference_values.empty
+            else "Nothing to rank yet: no level has a value to compare with the reference "
+            "(see Missing points).",
             class_="muted",
         )
     cost = d.cost.set_index("level")
@@ -360,7 +375,6 @@ def _verdicts(d: ReportData) -> Markup:
             _th("max |dev| (curve)", cls="num"),
             _th("core-s per point", cls="num"),
             _th("cost vs reference", cls="num"),
-            _th("levels ranked", cls="num"),
         ]
     ]
     rows, uneven = [], False
@@ -398,7 +412,6 @@ def _verdicts(d: ReportData) -> Markup:
                 ),
                 _td(fmt_seconds(per_point), cls="num"),
                 _td(f"{ratio:.2g}x" if np.isfinite(ratio) else "", cls="num"),
-                _td(str(int(b["n_levels"])), cls="num"),
             ]
         )
     parts = [
@@ -570,12 +583,12 @@ def _curve_sections(d: ReportData, figures) -> Markup:
         if len(pending):
             items = []
             for lvl, sub in pending.groupby("level", sort=False):
-                items.append(
-                    tag(
-                        "li",
-                        join([tag("strong", lvl), f" ({len(sub)}): ", "; ".join(sub["where"])]),
-                    )
-                )
+                where = list(sub["where"])
+                more = len(where) - _MAX_LISTED_PER_CURVE
+                text = "; ".join(where[:_MAX_LISTED_PER_CURVE])
+                if more > 0:
+                    text += f"; and {more} more (pending.csv lists all)"
+                items.append(tag("li", join([tag("strong", lvl), f" ({len(sub)}): ", text])))
             parts.append(tag("h4", f"Pending points ({len(pending)}), not computed yet"))
             parts.append(tag("ul", join(items), class_="flags"))
         out.append(join(parts))
@@ -748,10 +761,19 @@ def _missing_section(d: ReportData) -> Markup:
             )
         )
     if len(d.pending):
+        shown = d.pending.head(_MAX_LISTED)
         items = [
             tag("li", f"{r['molecule']}, {r['scan']}, {r['level']}: {r['where']}")
-            for _, r in d.pending.iterrows()
+            for _, r in shown.iterrows()
         ]
+        if len(d.pending) > len(shown):
+            items.append(
+                tag(
+                    "li",
+                    f"and {len(d.pending) - len(shown)} more: pending.csv "
+                    "lists every pending point",
+                )
+            )
         parts.append(
             tag(
                 "details",

@@ -12,7 +12,14 @@ import html
 import numpy as np
 
 from pesflow.report.stats import closest_levels
-from pesflow.report.tables import QUANTITY, ReportData, fmt_dev, fmt_seconds, fmt_value
+from pesflow.report.tables import (
+    QUANTITY,
+    ReportData,
+    fmt_dev,
+    fmt_seconds,
+    fmt_value,
+    scan_label,
+)
 
 
 def md(text) -> str:
@@ -44,7 +51,7 @@ def _quantity(d: ReportData, q) -> list[str]:
     rows = []
     for (molecule, scan), curve in sub.groupby(["molecule", "scan"], sort=False):
         by_level = curve.set_index("level")
-        cells = [md(molecule), md(scan)]
+        cells = [md(molecule), md(scan_label(d.curves, molecule, scan, q.column))]
         for lvl in d.levels:
             if lvl not in by_level.index:
                 cells.append("*not in plan*")

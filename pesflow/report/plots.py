@@ -607,7 +607,8 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
         ]
         if len(coords) == 1:
             lines = []
-            for lvl in levels:
+            # The reference level is drawn first, so that it never hides a level on top of it.
+            for lvl in sorted(levels, key=lambda lvl: lvl != data.reference_level):
                 q, e, status = curve_arrays(campaign, points, molecule, scan, lvl)
                 row = _summary_row(summary, molecule, scan, lvl)
                 lines.append(

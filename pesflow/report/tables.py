@@ -416,14 +416,19 @@ def _statistics(values, reference_values, levels, reference_level):
     return pd.concat(frames, ignore_index=True)
 
 
-def _where(row, columns) -> str:
+def _where_texts(frame, columns) -> list[str]:
+    """``"r = 1.3 Å, angle = 104 degree"`` for every row (the point's scan coordinates)."""
     parts = []
     for c in columns:
-        v = row.get(c)
-        if v is not None and np.isfinite(v):
-            name, unit = c.rsplit("_", 1)
-            parts.append(f"{name} = {v:g} {UNIT_TEXT.get(unit, unit)}")
-    return ", ".join(parts) if parts else str(row.get("scan", ""))
+        name, unit = c.rsplit("_", 1)
+        unit = UNIT_TEXT.get(unit, unit)
+        values = pd.to_numeric(frame[c], errors="coerce").to_numpy(dtype=float)
+        parts.append([f"{name} = {v:g} {unit}" if np.isfinite(v) else "" for v in values])
+    texts = [", ".join(p for p in row if p) for row in zip(*parts)] if parts else []
+    scans = frame["scan"].astype(str).tolist()
+    if not texts:
+        return scans
+    return [t or s for t, s in zip(texts, scans)]
 
 
 def _point_lists(points):
@@ -435,20 +440,19 @@ def _point_lists(points):
     lists = {}
     for state in ("failed", "pending"):
         sub = points[points["status"] == state]
-        rows = []
-        for _, row in sub.iterrows():
-            item = {
-                "molecule": row["molecule"],
-                "scan": row["scan"],
-                "level": row["level"],
-                "where": _where(row, coord),
-            }
-            if state == "failed":
-                err = row.get("error")
-                item["error"] = err if isinstance(err, str) else ""
-            rows.append(item)
-        columns = ["molecule", "scan", "level", "where"] + (["error"] if state == "failed" else [])
-        lists[state] = pd.DataFrame(rows, columns=columns)
+        frame = pd.DataFrame(
+            {
+                "molecule": sub["molecule"].to_numpy(),
+                "scan": sub["scan"].to_numpy(),
+                "level": sub["level"].to_numpy(),
+                "where": _where_texts(sub, coord),
+            },
+            columns=["molecule", "scan", "level", "where"],
+        )
+        if state == "failed":
+            errors = sub["error"] if "error" in sub else pd.Series([""] * len(sub))
+            frame["error"] = [e if isinstance(e, str) else "" for e in errors]
+        lists[state] = frame
     return lists["failed"], lists["pending"]
 
 
@@ -711,3 +715,16 @@ def fmt_seconds(value) -> str:
     except (TypeError, ValueError):
         return ""
     return f"{v:.3g}" if np.isfinite(v) else ""
+
+
+def scan_label(curves: pd.DataFrame, molecule: str, scan: str, column: str) -> str:
+    """The scan's name; for ``q1_*`` / ``q2_*`` of a 2-D scan, with the coordinate it is.
+
+    ``curves`` is the summary table (its ``coordinates`` column, e.g. ``"r(1-2), angle(2-1-3)"``).
+    """
+    if not column.startswith(("q1_", "q2_")) or "coordinates" not in curves:
+        return scan
+    rows = curves[(curves["molecule"] == molecule) & (curves["scan"] == scan)]
+    labels = str(rows["coordinates"].iloc[0]).split(", ") if len(rows) else []
+    k = int(column[1]) - 1
+    return f"{scan} (q{k + 1} = {labels[k]})" if k < len(labels) else scan
