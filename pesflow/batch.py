@@ -97,16 +97,61 @@ class _Walk:
         )
         self.store = PointStore(task["store"])
         self.symbols = tuple(task["symbols"])
+        self.relax = task.get("relax")
 
-    def geometry(self, point):
+    def geometry(self, point, positions=None):
         from pesflow.engine import Geometry
 
+        if positions is None:
+            positions = point["positions"]
         return Geometry(
             symbols=self.symbols,
-            positions_angstrom=np.asarray(point["positions"], dtype=float),
+            positions_angstrom=np.asarray(positions, dtype=float),
             charge=self.task["charge"],
             multiplicity=self.task["multiplicity"],
         )
+
+    def settings_key(self, method):
+        key = self.settings.key_dict(method)
+        if self.relax:
+            key = {**key, "relax": self.relax["key"]}
+        return key
+
+    def relax_point(self, point, method, start_positions, guess):
+        """Relaxed geometry, record and density of ``method`` at ``point``'s scan values."""
+        coords = self.relax["coordinates"]
+        constraints = [
+            (c["kind"], tuple(c["atoms"]), float(v)) for c, v in zip(coords, point["values"])
+        ]
+        start = self.geometry(point, start_positions)
+        try:
+            geometry, result, _info, density = self.engine.relax(
+                start, self.task["basis"], method, self.settings, constraints, guess=guess
+            )
+            return geometry.positions_angstrom, result, density
+        except Exception as exc:  # recorded, never allowed to stop the batch
+            message = f"{type(exc).__name__}: {exc}".splitlines()[0]
+            return np.asarray(point["positions"], dtype=float), _failure(method, message), None
+
+    def start_from(self, point, previous_positions):
+        """The neighbour's relaxed geometry with the scan coordinates set to this point's
+        values (the planned rigid geometry if that fails)."""
+        from pesflow import coordinates
+
+        if previous_positions is None:
+            return np.asarray(point["positions"], dtype=float)
+        spec = [
+            (c["kind"], tuple(c["atoms"]), np.asarray(c["moving"], dtype=int))
+            for c in self.relax["coordinates"]
+        ]
+        try:
+            return coordinates.apply_grid(
+                np.asarray(previous_positions, dtype=float),
+                spec,
+                np.asarray([point["values"]], dtype=float),
+            )[0]
+        except ValueError:
+            return np.asarray(point["positions"], dtype=float)
 
     def compute(self, point, methods, guess):
         """Results of ``methods`` at ``point`` and the density for the next point."""
@@ -131,12 +176,12 @@ class _Walk:
             self.task["multiplicity"],
             method,
             self.task["basis"],
-            self.settings.key_dict(method),
+            self.settings_key(method),
             self.engine.name,
             self.engine.version,
         )
 
-    def write(self, point, result, extra=None):
+    def write(self, point, result, positions=None):
         from pesflow.store import make_record
 
         task = self.task
@@ -148,7 +193,11 @@ class _Walk:
                 charge=task["charge"],
                 multiplicity=task["multiplicity"],
                 symbols=" ".join(task["symbols"]),
-                positions_angstrom=np.asarray(point["positions"], dtype=float).ravel().tolist(),
+                positions_angstrom=np.asarray(
+                    point["positions"] if positions is None else positions, dtype=float
+                )
+                .ravel()
+                .tolist(),
                 energy_hartree=float(result.energy_hartree),
                 converged=bool(result.converged),
                 scf_cycles=int(result.scf_cycles),
@@ -158,9 +207,11 @@ class _Walk:
                 reference=result.reference,
                 engine=self.engine.name,
                 engine_version=self.engine.version,
-                settings_json=json.dumps(self.settings.key_dict(result.method), sort_keys=True),
+                settings_json=json.dumps(self.settings_key(result.method), sort_keys=True),
                 attempts_json=json.dumps(result.attempts) if result.attempts else None,
-                extra_json=json.dumps(extra, sort_keys=True) if extra else None,
+                extra_json=json.dumps(result.extra, sort_keys=True, default=float)
+                if getattr(result, "extra", None)
+                else None,
                 error=result.error,
                 created_unix=time.time(),
             )
@@ -237,6 +288,29 @@ def _backward_sweep(walk: _Walk, run: list[_Computed], points, status) -> int:
     return improved
 
 
+def _relax_point(walk, point, methods, relaxed, counts, status):
+    """Relax ``point`` for each method, each from its own neighbour's relaxed geometry.
+
+    ``relaxed`` maps method -> (positions, density) of the previous point of the walk.
+    """
+    for method in methods:
+        previous, guess = relaxed.get(method, (None, None))
+        start = walk.start_from(point, previous)
+        positions, result, density = walk.relax_point(point, method, start, guess)
+        walk.write(point, result, positions=positions)
+        relaxed[method] = (positions, density) if result.converged else (None, None)
+        counts["computed"] += 1
+        status[point["keys"][method]] = "done" if result.converged else "failed"
+        if not result.converged:
+            log.warning(
+                "relaxed point %s (%s, walk %d) failed: %s",
+                point["keys"][method],
+                method,
+                point["walk"],
+                result.error,
+            )
+
+
 def run_batch(task_path, done_path, threads: int = 1, continuity: bool = True) -> dict:
     """Compute every missing point of one batch and write its done marker.
 
@@ -256,7 +330,7 @@ def run_batch(task_path, done_path, threads: int = 1, continuity: bool = True) -
     status = {}
     recompute = set(task.get("recompute", ()))
     computed: list[_Computed] = []
-    guess, previous_walk = None, None
+    guess, previous_walk, relaxed = None, None, {}
     t0 = time.time()
     for index, point in enumerate(points):
         wanted = point["keys"]
@@ -267,6 +341,11 @@ def run_batch(task_path, done_path, threads: int = 1, continuity: bool = True) -
             continue
         if previous_walk is None or abs(point["walk"] - previous_walk) > 1:
             guess = None  # a neighbour's density is a good guess; a distant one is not
+            relaxed = {}
+        if walk.relax:
+            _relax_point(walk, point, missing, relaxed, counts, status)
+            previous_walk = point["walk"]
+            continue
         results, guess = walk.compute(point, missing, guess)
         previous_walk = point["walk"]
         for method, result in results.items():
@@ -285,7 +364,7 @@ def run_batch(task_path, done_path, threads: int = 1, continuity: bool = True) -
                         result.error,
                     )
         computed.append(_Computed(index=index, methods=missing, results=results))
-    if continuity:
+    if continuity and not walk.relax:
         for run in _contiguous_runs(computed, points):
             counts["improved"] += _backward_sweep(walk, run, points, status)
     counts["failed"] = sum(1 for v in status.values() if v == "failed")

@@ -319,21 +319,34 @@ def _run_with_progress(runner, wd, config, options, lock, store, pending):
 
 
 def cmd_export(args) -> int:
-    from pesflow.results import points_table
+    from pesflow.results import points_table, write_extxyz
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
     store = _store(campaign)
     out = Path(args.output)
-    fmt = args.format or ("csv" if out.suffix.lower() == ".csv" else "parquet")
-    if args.what == "points":
-        table = points_table(plan, store)
-    else:
+    suffix = out.suffix.lower()
+    fmt = args.format or {".csv": "csv", ".xyz": "extxyz", ".extxyz": "extxyz"}.get(
+        suffix, "parquet"
+    )
+    table = points_table(plan, store)
+    _report_quarantined(store)
+    if args.what == "summary":
         from pesflow.summary import summary_table
 
-        table = summary_table(campaign, plan, points_table(plan, store))
-    tmp = out.with_name(f".{out.name}.tmp")
+        table = summary_table(campaign, plan, table)
+    elif args.what == "geometries":
+        fmt = "extxyz"
     out.parent.mkdir(parents=True, exist_ok=True)
+    tmp = out.with_name(f".{out.name}.tmp")
+    if fmt == "extxyz":
+        if args.what == "summary":
+            err_console.print("error: a summary has no geometries; use --what geometries")
+            return EXIT_INVALID
+        n = write_extxyz(table[table["status"] != "pending"], tmp)
+        tmp.replace(out)
+        console.print(f"wrote {n} geometries (extended XYZ) to {out}")
+        return EXIT_OK
     if fmt == "csv":
         if "positions_angstrom" in table.columns:
             table = table.assign(
@@ -390,9 +403,17 @@ def build_parser() -> argparse.ArgumentParser:
     add("status", cmd_status, "done / failed / pending points per molecule and level")
     p = add("export", cmd_export, "write the points (or per-curve summaries) as Parquet or CSV")
     p.add_argument("-o", "--output", required=True, help="output file (.parquet or .csv)")
-    p.add_argument("--what", choices=("points", "summary"), default="points")
     p.add_argument(
-        "--format", choices=("parquet", "csv"), default=None, help="default: from the file suffix"
+        "--what",
+        choices=("points", "summary", "geometries"),
+        default="points",
+        help="points table, per-curve summary, or every point's geometry",
+    )
+    p.add_argument(
+        "--format",
+        choices=("parquet", "csv", "extxyz"),
+        default=None,
+        help="default: from the file suffix (.parquet, .csv, .xyz/.extxyz)",
     )
     return parser
 

@@ -31,6 +31,11 @@ _METHOD_ORDER = {"hf": 0, "mp2": 1, "ccsd": 2, "ccsd(t)": 3}
 _METHOD_WEIGHT = {"hf": 1.0, "mp2": 1.5, "ccsd": 6.0, "ccsd(t)": 9.0}
 
 
+#: A relaxed point costs about this many single points (common practice: 10-20
+#: gradient steps per constrained optimisation from a good start).
+RELAX_WEIGHT = 15.0
+
+
 def engine_version(name: str = "pyscf") -> str:
     """Version of the engine's package, read from its metadata (no import)."""
     return _dist_version(name)
@@ -53,6 +58,9 @@ class GeometrySet:
     grid_indices: np.ndarray  # (m, k)
     positions: np.ndarray  # (m, n, 3) canonical, angstrom
     levels: tuple = ()  # levels of theory computed on this set
+    relax: bool = False  # relaxed scan: the geometries are the starting (rigid) targets
+    settings_key: dict = field(default_factory=dict)  # engine settings of this set
+    moving: tuple = ()  # per coordinate, the 0-based atoms that move
     digests: list[bytes] = field(repr=False, default_factory=list)
 
 
@@ -131,6 +139,8 @@ def _scan_sets(campaign, start_id):
                     grid_indices=idx,
                     positions=keys.canonical_positions(positions),
                     levels=tuple(scan.levels),
+                    relax=scan.relax,
+                    moving=tuple(tuple(int(a) for a in mv) for mv in scan.moving[mname]),
                 )
             )
     return sets
@@ -167,6 +177,26 @@ def _fragment_sets(campaign, start_id):
     return sets
 
 
+def relax_key(gs) -> list | None:
+    """What a relaxed scan adds to its points' keys: the constrained coordinates."""
+    if not gs.relax:
+        return None
+    return [[kind, list(atoms)] for kind, atoms in zip(gs.coordinate_kinds, gs.coordinate_atoms)]
+
+
+def point_settings_key(settings, method, gs) -> dict:
+    """The settings part of the key of ``method``'s points on geometry set ``gs``.
+
+    A relaxed point is keyed by its rigid target geometry plus the constrained
+    coordinates (the optimiser's start depends on the walk, so it cannot be the key).
+    """
+    key = settings.key_dict(method)
+    relax = relax_key(gs)
+    if relax is not None:
+        key = {**key, "relax": relax}
+    return key
+
+
 def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
     """Expand a validated :class:`~pesflow.spec.Campaign` into every point.
 
@@ -174,12 +204,13 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
     displacements and rounded to the key precision.
     """
     version = version or engine_version(engine)
-    settings = campaign.engine_settings()
-    settings_key = settings.key_dict()
+    settings_key = campaign.engine_settings().key_dict()
     sets = _scan_sets(campaign, 0)
     sets += _fragment_sets(campaign, len(sets))
     columns = {k: [] for k in ("set_id", "walk", "method", "basis", "key")}
     for gs in sets:
+        settings = campaign.engine_settings(gs.scan if gs.role == "scan" else None)
+        gs.settings_key = settings.key_dict()
         gs.digests = keys.geometry_digests(gs.symbols, gs.positions)
         walks = np.arange(len(gs.digests))
         for level in gs.levels:
@@ -188,7 +219,7 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
                 gs.multiplicity,
                 level.method,
                 level.basis,
-                settings.key_dict(level.method),
+                point_settings_key(settings, level.method, gs),
                 engine,
                 version,
             )
@@ -286,6 +317,8 @@ def make_batches(
             )
             ordered.append((walk, methods))
         weight = sum(max(_METHOD_WEIGHT.get(m, 1.0) for m in methods) for _, methods in ordered)
+        if plan.geometry_sets[int(set_id)].relax:
+            weight *= RELAX_WEIGHT * len(ordered[0][1])
         groups.append((int(set_id), basis, family, ordered, weight))
     total_weight = sum(g[4] for g in groups)
     target = max(len(groups), batches_per_core * max(1, cores))

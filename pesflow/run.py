@@ -85,24 +85,29 @@ def task_dict(plan, batch, store_root, recompute=()) -> dict:
         "store": str(store_root),
         "engine": plan.engine,
         "engine_version": plan.engine_version,
-        "settings": plan.settings_key,
+        "settings": gs.settings_key,
         "basis": batch.basis,
         "family": batch.family,
         "symbols": list(gs.symbols),
         "charge": gs.charge,
         "multiplicity": gs.multiplicity,
         "recompute": sorted(keys & set(recompute)),
-        "relax": None if not gs.relax else {
+        "relax": None
+        if not gs.relax
+        else {
             "coordinates": [
                 {"kind": kind, "atoms": list(atoms), "moving": list(moving)}
-                for kind, atoms, moving in zip(gs.coordinate_kinds, gs.coordinate_atoms,
-                                               gs.moving)
+                for kind, atoms, moving in zip(gs.coordinate_kinds, gs.coordinate_atoms, gs.moving)
             ],
             "key": relax_key(gs),
         },
         "points": [
-            {"walk": walk, "positions": gs.positions[walk].tolist(), "keys": methods,
-             "values": gs.values[walk].tolist()}
+            {
+                "walk": walk,
+                "positions": gs.positions[walk].tolist(),
+                "keys": methods,
+                "values": gs.values[walk].tolist(),
+            }
             for walk, methods in batch.entries
         ],
     }
@@ -113,8 +118,10 @@ def write_tasks(plan, batches, store_root, wd: Path, options: RunOptions, recomp
     (wd / "tasks").mkdir(parents=True, exist_ok=True)
     (wd / "done").mkdir(parents=True, exist_ok=True)
     for batch in batches:
-        _atomic_write_text(wd / "tasks" / f"{batch.batch_id}.json",
-                           json.dumps(task_dict(plan, batch, store_root, recompute)))
+        _atomic_write_text(
+            wd / "tasks" / f"{batch.batch_id}.json",
+            json.dumps(task_dict(plan, batch, store_root, recompute)),
+        )
         marker = wd / "done" / f"{batch.batch_id}.json"
         if marker.exists():
             marker.unlink()
@@ -167,14 +174,21 @@ def snakemake_command(wd: Path, config_path: Path, options: RunOptions) -> list[
     """The Snakemake command line for a run."""
     wf = workflow_dir()
     cmd = [
-        sys.executable, "-m", "snakemake",
-        "--snakefile", str(wf / "Snakefile"),
-        "--directory", str(wd),
-        "--configfile", str(config_path),
+        sys.executable,
+        "-m",
+        "snakemake",
+        "--snakefile",
+        str(wf / "Snakefile"),
+        "--directory",
+        str(wd),
+        "--configfile",
+        str(config_path),
         "--rerun-incomplete",
-        "--rerun-triggers", "mtime",
+        "--rerun-triggers",
+        "mtime",
         "--keep-going",
-        "--scheduler", "greedy",
+        "--scheduler",
+        "greedy",
         "--show-failed-logs",
     ]
     if options.profile:
@@ -187,9 +201,20 @@ def snakemake_command(wd: Path, config_path: Path, options: RunOptions) -> list[
 def _clear_stale_snakemake_locks(wd: Path, config_path: Path, log) -> None:
     locks = wd / ".snakemake" / "locks"
     if locks.exists() and any(locks.iterdir()):
-        cmd = [sys.executable, "-m", "snakemake", "--snakefile",
-               str(workflow_dir() / "Snakefile"), "--directory", str(wd), "--configfile",
-               str(config_path), "--unlock", "--cores", "1"]
+        cmd = [
+            sys.executable,
+            "-m",
+            "snakemake",
+            "--snakefile",
+            str(workflow_dir() / "Snakefile"),
+            "--directory",
+            str(wd),
+            "--configfile",
+            str(config_path),
+            "--unlock",
+            "--cores",
+            "1",
+        ]
         subprocess.run(cmd, stdout=log, stderr=subprocess.STDOUT, check=False)
 
 
@@ -232,8 +257,14 @@ class RunOutcome:
     log_path: Path
 
 
-def run_snakemake(wd: Path, config_path: Path, options: RunOptions, lock: RunLock,
-                  on_poll=None, poll_s: float = 0.5) -> RunOutcome:
+def run_snakemake(
+    wd: Path,
+    config_path: Path,
+    options: RunOptions,
+    lock: RunLock,
+    on_poll=None,
+    poll_s: float = 0.5,
+) -> RunOutcome:
     """Run Snakemake to the end, calling ``on_poll()`` every ``poll_s`` seconds.
 
     Signals to this process are forwarded to Snakemake as SIGINT.
@@ -248,8 +279,12 @@ def run_snakemake(wd: Path, config_path: Path, options: RunOptions, lock: RunLoc
         env = dict(os.environ)
         env.setdefault("OMP_NUM_THREADS", str(options.threads_per_batch))
         proc = subprocess.Popen(
-            snakemake_command(wd, config_path, options), stdout=log, stderr=subprocess.STDOUT,
-            stdin=subprocess.DEVNULL, env=env, pass_fds=(lock.fd,),
+            snakemake_command(wd, config_path, options),
+            stdout=log,
+            stderr=subprocess.STDOUT,
+            stdin=subprocess.DEVNULL,
+            env=env,
+            pass_fds=(lock.fd,),
         )
 
         def forward(signum, frame):
@@ -259,8 +294,9 @@ def run_snakemake(wd: Path, config_path: Path, options: RunOptions, lock: RunLoc
             if proc.poll() is None:
                 proc.send_signal(signal.SIGINT)
 
-        previous = {s: signal.signal(s, forward)
-                    for s in (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)}
+        previous = {
+            s: signal.signal(s, forward) for s in (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
+        }
         try:
             while True:
                 try:

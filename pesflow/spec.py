@@ -176,6 +176,10 @@ class ScanSpec(_Strict):
     #: levels of this scan only (instead of the campaign's), e.g. an expensive level on
     #: the smallest molecules
     levels: list[LevelSpec] | None = Field(default=None, min_length=1)
+    #: relaxed scan: at each scan value optimise every other degree of freedom
+    relax: bool = False
+    #: engine settings of this scan only (over the campaign's), e.g. broken_symmetry
+    engine: EngineSpec | None = None
 
 
 class LevelSpec(_Strict):
@@ -202,6 +206,21 @@ class EngineSpec(_Strict):
     scf_ladder: list[Literal["default", "damped", "level-shift", "second-order"]] = Field(
         default=["default", "damped", "level-shift", "second-order"], min_length=1
     )
+    #: unrestricted broken-symmetry reference for singlets (homolytic bond breaking)
+    broken_symmetry: bool = False
+    #: stability analysis of each converged SCF, following instabilities downhill
+    stability: bool = False
+
+    @model_validator(mode="after")
+    def _bs_reference(self):
+        if self.broken_symmetry and self.reference in ("restricted", "restricted-open"):
+            raise PydanticCustomError(
+                "range",
+                "broken_symmetry needs an unrestricted reference; set reference to auto or "
+                "unrestricted",
+                {},
+            )
+        return self
 
 
 class ReferenceValueSpec(_Strict):
@@ -326,6 +345,8 @@ class Scan:
     moving: dict[str, list[np.ndarray]]
     #: levels of theory of this scan
     levels: list[Level] = field(default_factory=list)
+    #: optimise every other degree of freedom at each scan value
+    relax: bool = False
 
     def grid(self) -> np.ndarray:
         """All scan points in walk order, shape (m, k): a serpentine walk for grids,
@@ -373,10 +394,14 @@ class Campaign:
     def results_path(self) -> Path:
         return (self.path.parent / self.spec.results / self.spec.campaign).resolve()
 
-    def engine_settings(self):
+    def engine_settings(self, scan: str | None = None):
+        """Engine settings of the campaign, with ``scan``'s own overrides applied."""
         from pesflow.engine import EngineSettings
 
         e = self.spec.engine
+        if scan is not None and self.spec.scans[scan].engine is not None:
+            own = self.spec.scans[scan].engine
+            e = e.model_copy(update={k: getattr(own, k) for k in own.model_fields_set})
         return EngineSettings(
             conv_tol=e.conv_tol,
             max_cycle=e.max_cycle,
@@ -384,6 +409,8 @@ class Campaign:
             frozen_core=e.frozen_core,
             grid_level=e.grid_level,
             scf_ladder=tuple(e.scf_ladder),
+            broken_symmetry=e.broken_symmetry,
+            stability=e.stability,
         )
 
 
@@ -725,7 +752,13 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
             except ValueError as exc:
                 raise err(loc + ("coordinates",), f"molecule '{mname}': {exc}") from None
         moving[mname] = per
-    return Scan(name=name, molecules=list(spec.molecules), coordinates=resolved, moving=moving)
+    return Scan(
+        name=name,
+        molecules=list(spec.molecules),
+        coordinates=resolved,
+        moving=moving,
+        relax=spec.relax,
+    )
 
 
 def _resolve_level_list(lspecs, loc, elements, err, checked_basis) -> list[Level]:
@@ -782,6 +815,15 @@ def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
             scan.levels = _resolve_level_list(
                 own, ("scans", name, "levels"), elements_of(scan.molecules), err, checked_basis
             )
+        if scan.relax:
+            for lvl in scan.levels:
+                if lvl.method == "ccsd(t)":
+                    where = ("scans", name, "levels") if own is not None else ("levels",)
+                    raise err(
+                        where,
+                        "a relaxed scan needs analytic gradients; ccsd(t) has "
+                        "none here (allowed: hf, DFT functionals, mp2, ccsd)",
+                    )
         union += [lvl for lvl in scan.levels if lvl not in union]
     _check_reference_values(spec, err)
     ref = spec.compare.reference_level
@@ -839,7 +881,14 @@ def load_campaign(path) -> Campaign:
     }
     scans = {name: _resolve_scan(name, s, molecules, err) for name, s in spec.scans.items()}
     levels = _resolve_levels(spec, molecules, scans, err)
-    return Campaign(spec=spec, path=path, molecules=molecules, scans=scans, levels=levels)
+    campaign = Campaign(spec=spec, path=path, molecules=molecules, scans=scans, levels=levels)
+    for name in [None, *(n for n, s in spec.scans.items() if s.engine is not None)]:
+        try:
+            campaign.engine_settings(name)
+        except EngineSetupError as exc:
+            where = ("engine",) if name is None else ("scans", name, "engine")
+            raise err(where, str(exc)) from None
+    return campaign
 
 
 def write_json_schema(path) -> None:
