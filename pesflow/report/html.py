@@ -30,6 +30,14 @@ _MAX_LISTED_PER_CURVE = 40
 _MAX_LISTED = 500
 
 
+#: The analysis sees only energies: a point not computed yet is a missing energy to it, and its
+#: warnings call such points "failed".  Said once on a page that has pending points.
+_PENDING_NOTE = (
+    'While points are pending, the analysis counts them among the "failed" points in its '
+    "warnings; the true counts are under Missing points."
+)
+
+
 class Markup(str):
     """Text that is already HTML (our own markup only; never built from unescaped user text)."""
 
@@ -217,7 +225,7 @@ def _quantity_table(d: ReportData, q, notes: _Notes) -> Markup:
         for lvl in d.levels:
             cls = "num ref" if lvl == d.reference_level else "num"
             if lvl not in by_level.index:
-                cells.append(_td(tag("span", "not in plan", class_="missing"), cls=cls))
+                cells.append(_td(tag("span", "not planned", class_="muted"), cls=cls))
                 continue
             row = by_level.loc[lvl]
             content = [_cell_text(row, q), notes.mark(row["flags"], f"{lvl}, {molecule} {scan}")]
@@ -557,6 +565,8 @@ def _curve_sections(d: ReportData, figures) -> Markup:
             for _, r in flags.iterrows():
                 grouped.setdefault(r["flag"], []).append(r["level"])
             parts.append(tag("h4", "Warnings of the analysis"))
+            if len(d.pending[(d.pending["molecule"] == molecule) & (d.pending["scan"] == scan)]):
+                parts.append(tag("p", _PENDING_NOTE, class_="explain"))
             parts.append(
                 tag(
                     "ul",
@@ -711,7 +721,7 @@ def _missing_section(d: ReportData) -> Markup:
         cells = [_td(molecule)]
         for lvl in d.levels:
             if (molecule, lvl) not in status.index:
-                cells.append(_td("", cls="num"))
+                cells.append(_td(tag("span", "not planned", class_="muted"), cls="num"))
                 continue
             r = status.loc[(molecule, lvl)]
             done, failed, pending = (int(r[c]) for c in ("done", "failed", "pending"))
@@ -894,7 +904,8 @@ def render(d: ReportData, figures: dict, files: dict) -> str:
                                 explain_dev,
                                 "Bracketed numbers link to the "
                                 "warnings of the analysis that concern the "
-                                "number.",
+                                "number. ",
+                                _PENDING_NOTE if not d.complete else "",
                             ]
                         ),
                         class_="explain",

@@ -54,7 +54,7 @@ def _quantity(d: ReportData, q) -> list[str]:
         cells = [md(molecule), md(scan_label(d.curves, molecule, scan, q.column))]
         for lvl in d.levels:
             if lvl not in by_level.index:
-                cells.append("*not in plan*")
+                cells.append("not planned")
                 continue
             row = by_level.loc[lvl]
             text = _cell(row, q)
@@ -135,7 +135,8 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
         lines += [
             f"**Incomplete campaign**: {t.get('done', 0)} of {total} points done, "
             f"{t.get('failed', 0)} failed, {t.get('pending', 0)} pending. Numbers use "
-            "only the points that are done; see *Missing points*.",
+            "only the points that are done; see *Missing points*. While points are pending, "
+            'the analysis counts them among the "failed" points in its warnings.',
             "",
         ]
     lines += ["## Which level is closest to the reference", ""]
@@ -227,8 +228,7 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
         lines.append("")
     if len(d.pending):
         lines += [
-            f"{len(d.pending)} pending points; all are listed in the HTML page and in "
-            "`status.csv` (per molecule and level).",
+            f"{len(d.pending)} pending points; `pending.csv` and the HTML page list each of them.",
             "",
         ]
     lines += ["## Files", ""]

@@ -420,9 +420,7 @@ def difference_figure(grids, reference: SurfaceGrid, *, xlabel, ylabel, title) -
     for ax in list(axes.flat)[len(others) :]:
         ax.set_visible(False)
     if mappable is not None:
-        fig.colorbar(
-            mappable, ax=axes, label="difference of relative energies (kcal/mol)", shrink=0.9
-        )
+        fig.colorbar(mappable, ax=axes, label="Δ relative energy (kcal/mol)", shrink=0.9)
     fig.suptitle(plain(title), x=0.02, ha="left")
     return _png(fig)
 

@@ -520,6 +520,40 @@ def _cost_table(points, levels, reference_level):
     return cost
 
 
+def _basis_counts(campaign, pairs) -> dict[tuple[str, str], int]:
+    """Number of basis functions of each (molecule, basis) pair (PySCF's count).
+
+    :func:`pesflow.cost.basis_function_counts` counts every molecule in every basis of the
+    campaign; with per-scan levels a basis may not cover every molecule's elements, so then
+    only the pairs the report needs are counted, each on its own.
+    """
+    from pesflow.cost import basis_function_counts
+
+    try:
+        return basis_function_counts(campaign)
+    except Exception:  # a basis without some element of some molecule: count pair by pair
+        pass
+    from pyscf import gto
+
+    out = {}
+    for molecule, basis in pairs:
+        mol = campaign.molecules[molecule]
+        atoms = list(zip(mol.symbols, mol.atoms.get_positions().tolist()))
+        try:
+            m = gto.M(
+                atom=atoms,
+                basis=basis,
+                charge=mol.charge,
+                spin=mol.multiplicity - 1,
+                unit="Angstrom",
+                verbose=0,
+            )
+        except Exception:  # leave the count out rather than fail the report
+            continue
+        out[(molecule, basis)] = int(m.nao)
+    return out
+
+
 def _convergence(values, campaign, basis_counts):
     """Quantity against basis-set size for every method computed with two or more bases."""
     columns = ["molecule", "scan", "quantity", "method", "basis", "nbf", "cardinal", "value"]
@@ -529,9 +563,8 @@ def _convergence(values, campaign, basis_counts):
     if wanted.empty:
         return pd.DataFrame(columns=columns)
     if basis_counts is None:
-        from pesflow.cost import basis_function_counts
-
-        basis_counts = basis_function_counts(campaign)
+        pairs = set(zip(finite["molecule"], finite["basis"]))
+        basis_counts = _basis_counts(campaign, pairs)
     rows = []
     for (molecule, scan, quantity, method), _ in wanted.items():
         sub = finite[

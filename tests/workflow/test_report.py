@@ -368,6 +368,8 @@ def test_partial_campaign_is_reported_honestly(computed, tmp_path):
     new = quantities[quantities["level"] == "hf/3-21g"]
     assert set(new["state"]) == {"pending"}
     assert set(new["molecule"]) == {"hydrogen_fluoride", "water"}
+    # The analysis calls pending points "failed" in its warnings; the page says so.
+    assert "counts them among the &quot;failed&quot; points" in page
     # Numbers from curves with points missing carry a note saying so.
     assert "from an incomplete curve: 4 of 11 points pending" in page
 
