@@ -318,6 +318,23 @@ def _run_with_progress(runner, wd, config, options, lock, store, pending):
     return outcome
 
 
+def cmd_report(args) -> int:
+    from pesflow.report import build_report, terminal_summary
+    from pesflow.results import points_table
+    from pesflow.summary import summary_table
+
+    campaign = _load(args.spec)
+    plan = _plan(campaign)
+    store = _store(campaign)
+    points = points_table(plan, store)
+    _report_quarantined(store)
+    summary = summary_table(campaign, plan, points)
+    out = Path(args.output) if args.output else campaign.results_path / "report"
+    paths = build_report(campaign, plan, points, summary, out)
+    terminal_summary(campaign, summary, console, paths=paths)
+    return EXIT_OK
+
+
 def cmd_export(args) -> int:
     from pesflow.results import points_table, write_extxyz
 
@@ -401,6 +418,17 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--retry-failed", action="store_true", help="recompute points stored as failed")
     add("status", cmd_status, "done / failed / pending points per molecule and level")
+    p = add(
+        "report",
+        cmd_report,
+        "comparison report (HTML, Markdown, CSV tables) from the store; no computation",
+    )
+    p.add_argument(
+        "-o",
+        "--output",
+        default=None,
+        help="report folder (default: the campaign's results folder / report)",
+    )
     p = add("export", cmd_export, "write the points (or per-curve summaries) as Parquet or CSV")
     p.add_argument("-o", "--output", required=True, help="output file (.parquet or .csv)")
     p.add_argument(

@@ -129,6 +129,7 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
             "n_pending": int((sub["status"] == "pending").sum()),
             "cost_core_s": float(sub["wall_s"].fillna(0).sum()) if "wall_s" in sub else np.nan,
         }
+        row["n_failed"] = head["n_failed_points"]  # the analysis counts pending points too
         rows.append({**head, **row})
     summary = pd.DataFrame(rows)
     if summary.empty:
@@ -147,10 +148,12 @@ def add_deviations(summary: pd.DataFrame, reference_level: str | None) -> pd.Dat
         return summary
     reference_level = reference_level.strip().lower()
     cols = [c for c in DEVIATION_COLUMNS if c in summary.columns]
-    ref = summary[summary["level"] == reference_level].set_index(["molecule", "scan"])[cols]
-    joined = summary.join(ref, on=["molecule", "scan"], rsuffix="__ref")
+    ref = summary.loc[summary["level"] == reference_level, ["molecule", "scan", *cols]]
+    joined = summary[["molecule", "scan"]].merge(
+        ref.rename(columns={c: f"{c}__ref" for c in cols}), on=["molecule", "scan"], how="left"
+    )
     out = summary.copy()
     for c in cols:
-        out[f"dev_{c}"] = joined[c] - joined[f"{c}__ref"]
+        out[f"dev_{c}"] = summary[c].to_numpy(float) - joined[f"{c}__ref"].to_numpy(float)
     out["reference_level"] = reference_level
     return out

@@ -2,7 +2,7 @@
 
 Every column name carries its unit; what does not apply to a curve is NaN, so that every row
 has the same columns (:data:`SUMMARY_COLUMNS`).  ``flags`` joins the warnings and advice with
-``"; "``.
+:data:`FLAG_SEPARATOR`.
 
 >>> import numpy as np
 >>> r = np.linspace(0.72, 1.12, 15)
@@ -19,6 +19,9 @@ from pesflow.analysis.curves import analyze_curve, covers_full_circle
 from pesflow.analysis.surface import connecting_barrier, find_minima, find_saddles, prepare_surface
 from pesflow.analysis.vibration import analyze_stretch, bend_force_constants
 from pesflow.units import HARTREE_TO_CM1, HARTREE_TO_EV, convert_energy
+
+#: Joins the warnings of one row in ``flags`` (a warning may itself contain "; ").
+FLAG_SEPARATOR = " | "
 
 #: Columns of a curve's summary row, in order.
 SUMMARY_COLUMNS = (
@@ -156,7 +159,7 @@ def summarize_curve(
     if barrier is not None:
         for col, unit in _BARRIER_UNITS.items():
             row[col] = barrier.height(unit)
-    row["flags"] = "; ".join(dict.fromkeys(flags))
+    row["flags"] = FLAG_SEPARATOR.join(dict.fromkeys(flags))
     return row
 
 
@@ -277,5 +280,5 @@ def summarize_surface(
                 )
             if not path.converged:
                 flags.append("a minimum-energy path did not converge")
-    row["flags"] = "; ".join(dict.fromkeys(flags))
+    row["flags"] = FLAG_SEPARATOR.join(dict.fromkeys(flags))
     return row

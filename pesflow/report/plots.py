@@ -17,6 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.ticker import NullFormatter
 from matplotlib.transforms import blended_transform_factory
 
 from pesflow.analysis.curves import covers_full_circle, interpolant, prepare_curve, wrap_degrees
@@ -481,6 +482,8 @@ def convergence_figure(panels, *, ylabel, title, method_styles) -> bytes:
                 label="reference value" if k == 0 else None,
             )
         ax.set_xscale("log")
+        # minor-tick labels of a log axis crowd each other over a short range
+        ax.xaxis.set_minor_formatter(NullFormatter())
         xs = sorted(ticks)
         ax.set_xticks(xs, [plain(f"{ticks[n]}\n{int(n)}") for n in xs])
         ax.minorticks_off()
@@ -525,6 +528,8 @@ def accuracy_cost_figure(
         if np.isfinite(reference_cost) and reference_cost > 0:
             ax.axvline(reference_cost, color="black", linestyle=":", linewidth=1.2)
         ax.set_xscale("log")
+        # minor-tick labels of a log axis crowd each other over a short range
+        ax.xaxis.set_minor_formatter(NullFormatter())
         ax.set_ylim(0, 1.25 * top if top > 0 else 1.0)
         ax.margins(x=0.35)
         ax.set_xlabel("core-seconds per point")

@@ -103,57 +103,18 @@ _FLAG_TOPICS = (
 )
 
 
-_ADVICE_VERBS = frozenset(
-    {
-        "tighten",
-        "extend",
-        "add",
-        "use",
-        "check",
-        "refine",
-        "give",
-        "rerun",
-        "increase",
-        "reduce",
-        "try",
-        "see",
-        "consider",
-    }
-)
-
-
 def split_flags(text) -> list[str]:
-    """Split the summary's ``flags`` text into single warnings.
+    """Split the summary's ``flags`` text into single warnings (joined with
+    :data:`pesflow.analysis.summary.FLAG_SEPARATOR`).  NaN or empty text gives ``[]``.
 
-    Warnings are joined with ``"; "``; a warning may itself hold ``"; "`` inside parentheses,
-    so only separators outside parentheses split, and a piece that starts with an advice verb
-    (``tighten``, ``extend``, ...) stays with the warning before it.  NaN or empty text
-    gives ``[]``.
-
-    >>> split_flags("a (x; y): z; b; extend the scan")
+    >>> split_flags("a (x; y): z | b; extend the scan")
     ['a (x; y): z', 'b; extend the scan']
     """
+    from pesflow.analysis.summary import FLAG_SEPARATOR
+
     if not isinstance(text, str) or not text.strip():
         return []
-    out, depth, start = [], 0, 0
-    for i, ch in enumerate(text):
-        if ch == "(":
-            depth += 1
-        elif ch == ")":
-            depth = max(0, depth - 1)
-        elif ch == ";" and depth == 0 and text[i + 1 : i + 2] == " ":
-            out.append(text[start:i].strip())
-            start = i + 2
-    out.append(text[start:].strip())
-    merged = []
-    for piece in (f for f in out if f):
-        # Some warnings carry their advice after a "; " of their own ("...; tighten the SCF
-        # convergence ..."): a piece that starts with advice belongs to the one before it.
-        if merged and piece.split(" ", 1)[0] in _ADVICE_VERBS:
-            merged[-1] = f"{merged[-1]}; {piece}"
-        else:
-            merged.append(piece)
-    return merged
+    return [piece.strip() for piece in text.split(FLAG_SEPARATOR.strip()) if piece.strip()]
 
 
 def flag_concerns(flag: str) -> frozenset[str] | None:

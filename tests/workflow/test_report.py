@@ -33,9 +33,6 @@ from pesflow.summary import summary_table
 pytestmark = [
     pytest.mark.workflow,
     pytest.mark.integration,
-    # pesflow/summary.py (add_deviations) still passes rsuffix= to DataFrame.join, which
-    # pandas 3 deprecates; not this module's code, so only that one message is let through.
-    pytest.mark.filterwarnings("ignore:The 'lsuffix' and 'rsuffix' keywords"),
 ]
 
 EVIL_SOURCE = '<script>alert(1)</script> & "x"'
