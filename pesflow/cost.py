@@ -29,14 +29,30 @@ def method_class(method: str) -> str:
     return method if method in EXPONENT else "dft"
 
 
-def basis_function_counts(campaign) -> dict[tuple[str, str], int]:
-    """Number of basis functions per (molecule, basis) of a campaign (PySCF's count)."""
+def used_pairs(campaign) -> list[tuple[str, str]]:
+    """The (molecule, basis) pairs a campaign computes (scan levels can differ per scan)."""
+    pairs = []
+    for scan in campaign.scans.values():
+        for molecule in scan.molecules:
+            for level in scan.levels:
+                if (molecule, level.basis) not in pairs:
+                    pairs.append((molecule, level.basis))
+    return pairs
+
+
+def basis_function_counts(campaign, pairs=None) -> dict[tuple[str, str], int]:
+    """Number of basis functions (PySCF's count) of each (molecule, basis) pair.
+
+    ``pairs`` defaults to the pairs the campaign computes; a pair PySCF cannot build
+    is left out (an estimate then falls back to a typical size).
+    """
     from pyscf import gto
 
     out = {}
-    for mname, mol in campaign.molecules.items():
+    for molecule, basis in used_pairs(campaign) if pairs is None else pairs:
+        mol = campaign.molecules[molecule]
         atoms = list(zip(mol.symbols, mol.atoms.get_positions().tolist()))
-        for basis in sorted({lvl.basis for lvl in campaign.levels}):
+        try:
             m = gto.M(
                 atom=atoms,
                 basis=basis,
@@ -45,7 +61,9 @@ def basis_function_counts(campaign) -> dict[tuple[str, str], int]:
                 unit="Angstrom",
                 verbose=0,
             )
-            out[(mname, basis)] = int(m.nao)
+        except Exception:  # counting is advisory; never fail a plan or a report on it
+            continue
+        out[(molecule, basis)] = int(m.nao)
     return out
 
 

@@ -482,37 +482,10 @@ def _cost_table(points, levels, reference_level):
 
 
 def _basis_counts(campaign, pairs) -> dict[tuple[str, str], int]:
-    """Number of basis functions of each (molecule, basis) pair (PySCF's count).
-
-    :func:`pesflow.cost.basis_function_counts` counts every molecule in every basis of the
-    campaign; with per-scan levels a basis may not cover every molecule's elements, so then
-    only the pairs the report needs are counted, each on its own.
-    """
+    """Number of basis functions of each (molecule, basis) pair (PySCF's count)."""
     from pesflow.cost import basis_function_counts
 
-    try:
-        return basis_function_counts(campaign)
-    except Exception:  # a basis without some element of some molecule: count pair by pair
-        pass
-    from pyscf import gto
-
-    out = {}
-    for molecule, basis in pairs:
-        mol = campaign.molecules[molecule]
-        atoms = list(zip(mol.symbols, mol.atoms.get_positions().tolist()))
-        try:
-            m = gto.M(
-                atom=atoms,
-                basis=basis,
-                charge=mol.charge,
-                spin=mol.multiplicity - 1,
-                unit="Angstrom",
-                verbose=0,
-            )
-        except Exception:  # leave the count out rather than fail the report
-            continue
-        out[(molecule, basis)] = int(m.nao)
-    return out
+    return basis_function_counts(campaign, pairs)
 
 
 def _convergence(values, campaign, basis_counts):

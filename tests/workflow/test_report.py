@@ -10,11 +10,9 @@ import base64
 import html
 import io
 import json
-import os
 import re
 import shutil
 import subprocess
-import sys
 from html.parser import HTMLParser
 from pathlib import Path
 
@@ -29,6 +27,7 @@ from pesflow.results import points_table
 from pesflow.spec import load_campaign
 from pesflow.store import PointStore, make_record
 from pesflow.summary import summary_table
+from tests.workflow.helpers import pesflow
 
 pytestmark = [
     pytest.mark.workflow,
@@ -80,20 +79,6 @@ def write_spec(path: Path, *, r_to="1.10", r_points=7, extra_level="") -> Path:
         }
     )
     return path
-
-
-def pesflow(*args, check=None, timeout=600):
-    env = dict(os.environ, OMP_NUM_THREADS="1")
-    proc = subprocess.run(
-        [sys.executable, "-m", "pesflow", *args],
-        capture_output=True,
-        text=True,
-        env=env,
-        timeout=timeout,
-    )
-    if check is not None:
-        assert proc.returncode == check, proc.stdout + proc.stderr
-    return proc
 
 
 @pytest.fixture(scope="module")

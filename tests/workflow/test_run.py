@@ -17,6 +17,7 @@ import pandas as pd
 import pytest
 
 from pesflow.store import PointStore
+from tests.workflow.helpers import direct_energy, pesflow
 
 pytestmark = [pytest.mark.workflow, pytest.mark.integration]
 
@@ -34,42 +35,6 @@ levels:
   - {method: [hf, mp2], basis: sto-3g}
 store: store
 """
-
-
-def pesflow(*args, check=None, timeout=600):
-    env = dict(os.environ, OMP_NUM_THREADS="1")
-    proc = subprocess.run(
-        [sys.executable, "-m", "pesflow", *args],
-        capture_output=True,
-        text=True,
-        env=env,
-        timeout=timeout,
-    )
-    if check is not None:
-        assert proc.returncode == check, proc.stdout + proc.stderr
-    return proc
-
-
-def direct_energy(row):
-    """The same point computed directly with PySCF."""
-    from pyscf import gto, mp, scf
-
-    symbols = row["symbols"].split()
-    xyz = np.asarray(row["positions_angstrom"]).reshape(-1, 3)
-    mol = gto.M(
-        atom=list(zip(symbols, xyz.tolist())),
-        basis=row["basis"],
-        unit="Angstrom",
-        spin=int(row["multiplicity"]) - 1,
-        charge=int(row["charge"]),
-        verbose=0,
-    )
-    mf = (scf.RHF if mol.spin == 0 else scf.UHF)(mol)
-    mf.conv_tol = 1e-10
-    e = mf.kernel()
-    if row["method"] == "mp2":
-        e = mp.MP2(mf).run().e_tot
-    return e
 
 
 def test_run_rerun_export(tmp_path):
