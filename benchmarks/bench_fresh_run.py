@@ -184,9 +184,9 @@ def main(argv=None) -> int:
         "from the store (each SCF once, each MP2 step)"
     )
     print(
-        f"pesflow CPU beyond SCF+MP2 (process start-ups, imports, Snakemake, planning, "
-        f"store writes): {cpu[pesflow] - work_s[pesflow]:.1f} s; the loop's: "
-        f"{cpu[loop] - work_s[loop]:.1f} s"
+        f"pesflow: {cpu[pesflow] - work_s[pesflow]:.1f} CPU s beyond SCF+MP2 (process "
+        f"start-ups and imports of Snakemake and of each batch, planning, store writes); "
+        f"the loop: {wall[loop] - work_s[loop]:.1f} s of start-up and imports"
     )
     print(
         f"largest energy differences between the three, same geometries, conv_tol 1e-10: "
