@@ -78,7 +78,6 @@ def test_cluster_profile_and_local_run_give_the_same_store(tmp_path):
         (tmp_path / name).mkdir()
         (tmp_path / name / "campaign.yaml").write_text(SPEC)
 
-    t0 = time.monotonic()
     cluster = pesflow(
         "run",
         "campaign.yaml",
@@ -88,7 +87,6 @@ def test_cluster_profile_and_local_run_give_the_same_store(tmp_path):
         str(LOCAL_CLUSTER),
         cwd=tmp_path / "cluster",
     )
-    cluster_s = time.monotonic() - t0
     assert cluster.returncode == 0, cluster.stdout + cluster.stderr
     assert f"{N_POINTS} done, 0 failed, 0 pending" in cluster.stdout
     local = pesflow("run", "campaign.yaml", "--cores", "2", cwd=tmp_path / "local")
@@ -131,7 +129,6 @@ def test_cluster_profile_and_local_run_give_the_same_store(tmp_path):
     mf = scf.RHF(mol)
     mf.conv_tol = 1e-10
     assert row["energy_hartree"] == pytest.approx(mf.kernel(), abs=1e-8)
-    assert cluster_s < 60, f"the cluster run took {cluster_s:.0f} s"
 
 
 def _submit(script_text: str, state: Path) -> str:
