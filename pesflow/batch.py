@@ -81,7 +81,7 @@ class _Computed:
 class _Walk:
     """Binds a task to its engine and store."""
 
-    def __init__(self, task, threads):
+    def __init__(self, task, threads, max_memory_mb=None):
         from pesflow.engine import EngineSettings, get_engine
         from pesflow.store import PointStore
 
@@ -93,7 +93,9 @@ class _Walk:
                 f"{self.engine.version} is installed here; use the same environment everywhere"
             )
         self.settings = EngineSettings(
-            **task["settings"], threads=threads, max_memory_mb=int(task.get("max_memory_mb", 4000))
+            **task["settings"],
+            threads=threads,
+            max_memory_mb=int(max_memory_mb or task.get("max_memory_mb", 4000)),
         )
         self.store = PointStore(task["store"])
         self.symbols = tuple(task["symbols"])
@@ -311,7 +313,13 @@ def _relax_point(walk, point, methods, relaxed, counts, status):
             )
 
 
-def run_batch(task_path, done_path, threads: int = 1, continuity: bool = True) -> dict:
+def run_batch(
+    task_path,
+    done_path,
+    threads: int = 1,
+    continuity: bool = True,
+    max_memory_mb: int | None = None,
+) -> dict:
     """Compute every missing point of one batch and write its done marker.
 
     Parameters
@@ -319,12 +327,13 @@ def run_batch(task_path, done_path, threads: int = 1, continuity: bool = True) -
     task_path : path of the batch's task JSON.
     done_path : path of the done marker (JSON) written at the end.
     threads : PySCF threads for this batch (Snakemake's ``threads``).
+    max_memory_mb : memory of the job (Snakemake's ``mem_mb``); PySCF gets 80 % of it.
     continuity : redo suspect segments walking backwards (default True).
 
     Returns the marker's content: counts of points computed, skipped, failed, improved.
     """
     task = read_task(task_path)
-    walk = _Walk(task, threads)
+    walk = _Walk(task, threads, None if max_memory_mb is None else int(0.8 * max_memory_mb))
     points = task["points"]
     counts = {"computed": 0, "skipped": 0, "failed": 0, "improved": 0}
     status = {}
@@ -384,10 +393,16 @@ def main(argv=None) -> int:
     parser.add_argument("task", help="batch task JSON")
     parser.add_argument("done", help="done marker to write")
     parser.add_argument("--threads", type=int, default=1)
+    parser.add_argument(
+        "--max-memory-mb",
+        type=int,
+        default=None,
+        help="memory of this job in MB (PySCF is given 80 %% of it)",
+    )
     args = parser.parse_args(argv)
     logging.basicConfig(level=logging.INFO, format="%(asctime)s %(levelname)s %(message)s")
     os.environ.setdefault("OMP_NUM_THREADS", str(args.threads))
-    marker = run_batch(args.task, args.done, threads=args.threads)
+    marker = run_batch(args.task, args.done, threads=args.threads, max_memory_mb=args.max_memory_mb)
     log.info(
         "batch %s: %d computed, %d failed, %d cached, %d improved walking back, %.1f s",
         marker["batch_id"],

@@ -108,17 +108,36 @@ def cmd_check(args) -> int:
     return EXIT_OK
 
 
+def _plan_table(plan, store, done, sample_per_curve=20):
+    """Points with their status and, for a sample of the stored ones, their timing.
+
+    Planning must stay cheap on a large store: it reads the timings of at most
+    ``sample_per_curve`` stored points per molecule and level, not every record.
+    """
+    import numpy as np
+
+    pts = plan.points[["key", "molecule", "level", "method", "basis"]].copy()
+    is_done = pts["key"].isin(done)
+    pts["status"] = np.where(is_done, "done", "pending")
+    sample = pts[is_done].groupby(["molecule", "level"], sort=False).head(sample_per_curve)
+    if sample.empty:
+        pts["wall_s"] = np.nan
+        return pts
+    timing = store.load(keys=set(sample["key"]), columns=("wall_s", "converged")).to_pandas()
+    timing = timing.loc[timing["converged"].astype(bool), ["key", "wall_s"]]
+    return pts.merge(timing, on="key", how="left")
+
+
 def cmd_plan(args) -> int:
     from pesflow import cost
     from pesflow.plan import make_batches
-    from pesflow.results import points_table
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
     store = _store(campaign)
     done = _done_keys(store)
     batches = make_batches(plan, done, cores=args.cores or _cpu_count())
-    table = points_table(plan, store, columns=("key", "converged", "wall_s"))
+    table = _plan_table(plan, store, done)
     estimate = cost.estimate(table, cost.basis_function_counts(campaign)).set_index("level")
     out = Table(title=f"campaign {campaign.name}: plan", title_justify="left")
     for col in ("level", "points", "cached", "to compute", "estimate (core-h)", "from"):

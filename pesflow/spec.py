@@ -838,6 +838,8 @@ def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
 
 
 def _check_reference_values(spec: CampaignSpec, err) -> None:
+    if not spec.compare.reference_values:
+        return  # (the summary module is heavy to import; only load it when needed)
     from pesflow.summary import DEVIATION_COLUMNS
 
     for i, ref in enumerate(spec.compare.reference_values):

@@ -14,14 +14,23 @@ Modules, one job each:
 No function here reads or writes a file.
 """
 
-from pesflow.analysis.curves import CurveAnalysis, StationaryPoint, analyze_curve
-from pesflow.analysis.summary import SUMMARY_COLUMNS, summarize_curve, summarize_surface
+import importlib
 
-__all__ = [
-    "CurveAnalysis",
-    "StationaryPoint",
-    "analyze_curve",
-    "SUMMARY_COLUMNS",
-    "summarize_curve",
-    "summarize_surface",
-]
+# Exports are loaded on first use: a batch job imports one small module of this package
+# (continuity) and must not pay for scipy's interpolation and statistics modules.
+_EXPORTS = {
+    "CurveAnalysis": "curves",
+    "StationaryPoint": "curves",
+    "analyze_curve": "curves",
+    "SUMMARY_COLUMNS": "summary",
+    "summarize_curve": "summary",
+    "summarize_surface": "summary",
+}
+
+__all__ = list(_EXPORTS)
+
+
+def __getattr__(name):
+    if name in _EXPORTS:
+        return getattr(importlib.import_module(f"pesflow.analysis.{_EXPORTS[name]}"), name)
+    raise AttributeError(f"module 'pesflow.analysis' has no attribute {name!r}")

@@ -18,4 +18,4 @@ rule batch:
         runtime=get_runtime_min(),
     shell:
         'OMP_NUM_THREADS={threads} "{params.python}" -m pesflow.batch {input.task} {output.done} '
-        "--threads {threads} > {log} 2>&1"
+        "--threads {threads} --max-memory-mb {resources.mem_mb} > {log} 2>&1"
