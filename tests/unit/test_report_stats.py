@@ -109,17 +109,16 @@ def test_closest_level_is_the_smallest_mean_absolute_deviation():
     assert not row["same_n"]
 
 
-def test_split_flags_keeps_parentheses_and_advice_together():
-    text = (
+def test_split_flags_splits_on_the_separator_only():
+    from pesflow.analysis.summary import FLAG_SEPARATOR
+
+    warnings = [
         "only 0 vibrational level(s) converged within the scanned range (0.75-1.25 A; "
-        "levels are trapped by its ends): extend the scan; omega_e x_e from the Morse fit "
-        "(fewer than two trusted levels); noisy energies at 1.2 A: up to 4.9e-06 hartree "
-        "off (not explained by the grid spacing); tighten the SCF convergence"
-    )
-    flags = split_flags(text)
-    assert len(flags) == 3
-    assert flags[0].endswith("extend the scan")
-    assert flags[2].endswith("; tighten the SCF convergence")
+        "levels are trapped by its ends): extend the scan",
+        "omega_e x_e from the Morse fit (fewer than two trusted levels)",
+        "noisy energies at 1.2 A: up to 4.9e-06 hartree off; tighten the SCF convergence",
+    ]
+    assert split_flags(FLAG_SEPARATOR.join(warnings)) == warnings
     assert split_flags(float("nan")) == [] and split_flags("") == []
 
 
