@@ -136,9 +136,12 @@ def cmd_plan(args) -> int:
     plan = _plan(campaign)
     store = _store(campaign)
     done = _done_keys(store)
-    batches = make_batches(plan, done, cores=args.cores or _cpu_count())
+    nbf = cost.basis_function_counts(campaign)
+    batches = make_batches(
+        plan, done, cores=args.cores or _cpu_count(), size_weight=cost.size_weights(nbf)
+    )
     table = _plan_table(plan, store, done)
-    estimate = cost.estimate(table, cost.basis_function_counts(campaign)).set_index("level")
+    estimate = cost.estimate(table, nbf).set_index("level")
     out = Table(title=f"campaign {campaign.name}: plan", title_justify="left")
     for col in ("level", "points", "cached", "to compute", "estimate (core-h)", "from"):
         out.add_column(col, justify="left" if col in ("level", "from") else "right")
@@ -218,6 +221,15 @@ def _print_status(campaign, plan, store, show_failed=10) -> tuple[int, int, int]
     return int(n.get("done", 0)), int(n.get("failed", 0)), int(n.get("pending", 0))
 
 
+def _size_weights(campaign, plan, done):
+    """Per (molecule, basis) cost weights for batching; skipped when nothing is pending."""
+    from pesflow import cost
+
+    if plan.points["key"].isin(done).all():
+        return None
+    return cost.size_weights(cost.basis_function_counts(campaign))
+
+
 def cmd_status(args) -> int:
     campaign = _load(args.spec)
     plan = _plan(campaign)
@@ -246,7 +258,11 @@ def cmd_run(args) -> int:
         if args.retry_failed and store.exists():
             recompute = store.keys() - done
         batches = make_batches(
-            plan, done, cores=args.cores or _cpu_count(), batches_per_core=options.batches_per_core
+            plan,
+            done,
+            cores=args.cores or _cpu_count(),
+            batches_per_core=options.batches_per_core,
+            size_weight=_size_weights(campaign, plan, done),
         )
         pending = set(plan.points["key"]) - done
         if not batches:

@@ -72,6 +72,14 @@ def basis_function_counts(campaign, pairs=None) -> dict[tuple[str, str], int]:
     return out
 
 
+def size_weights(nbf: dict[tuple[str, str], int]) -> dict[tuple[str, str], float]:
+    """Relative cost of one SCF point per (molecule, basis), for cutting batches evenly."""
+    return {
+        pair: OVERHEAD_S + DEFAULT_PREFACTOR_S["hf"] * (n / 50.0) ** EXPONENT["hf"]
+        for pair, n in nbf.items()
+    }
+
+
 def estimate(points: pd.DataFrame, nbf: dict[tuple[str, str], int]) -> pd.DataFrame:
     """Estimated wall seconds of the pending points, per level.
 

@@ -287,6 +287,7 @@ def make_batches(
     batches_per_core: int = 3,
     min_points_per_batch: int = 4,
     max_points_per_batch: int = 250,
+    size_weight: dict[tuple[str, str], float] | None = None,
 ) -> list[Batch]:
     """Group the points not in ``done`` into batches.
 
@@ -297,6 +298,9 @@ def make_batches(
     start-up stays a small share), never below ``min_points_per_batch``
     geometries per chunk and never above ``max_points_per_batch`` (so that a job
     stays well inside a cluster's time limit and a long walk is spread over nodes).
+    ``size_weight`` maps (molecule, basis) to a relative cost per point (e.g. from the
+    basis-set size, :func:`pesflow.cost.size_weights`), so that chunks of a walk in a
+    large basis are cut shorter than those in a small one.
     """
     pts = plan.points
     if done:
@@ -317,8 +321,11 @@ def make_batches(
             )
             ordered.append((walk, methods))
         weight = sum(max(_METHOD_WEIGHT.get(m, 1.0) for m in methods) for _, methods in ordered)
-        if plan.geometry_sets[int(set_id)].relax:
+        gs = plan.geometry_sets[int(set_id)]
+        if gs.relax:
             weight *= RELAX_WEIGHT * len(ordered[0][1])
+        if size_weight is not None:
+            weight *= size_weight.get((gs.molecule, basis), 1.0)
         groups.append((int(set_id), basis, family, ordered, weight))
     total_weight = sum(g[4] for g in groups)
     target = max(len(groups), batches_per_core * max(1, cores))

@@ -168,3 +168,26 @@ def test_fragments_are_planned_at_the_levels_of_their_molecule():
     assert len(frag) == 2 * 3
     sets = {gs.scan: gs for gs in plan.geometry_sets if gs.role == "fragment"}
     assert sets["fragment-1"].multiplicity == 2 and sets["fragment-2"].multiplicity == 2
+
+
+def test_chunks_of_a_large_basis_are_cut_shorter():
+    text = SPEC.replace("points: 9", "points: 60").replace(
+        "  - {method: b3lyp, basis: sto-3g}\n", "  - {method: hf, basis: cc-pvtz}\n"
+    )
+    plan = expand(campaign(text, "w.yaml"), version="test")
+    weights = {
+        ("hf_molecule", "sto-3g"): 1.0,
+        ("hf_molecule", "cc-pvtz"): 20.0,
+        ("water", "sto-3g"): 1.0,
+        ("water", "cc-pvtz"): 20.0,
+    }
+    batches = make_batches(plan, set(), cores=2, size_weight=weights)
+
+    def chunks(basis):
+        return [
+            len(b.entries)
+            for b in batches
+            if plan.geometry_sets[b.set_id].scan == "stretch" and b.basis == basis
+        ]
+
+    assert max(chunks("cc-pvtz")) < min(chunks("sto-3g"))
