@@ -36,6 +36,11 @@ _METHOD_WEIGHT = {"hf": 1.0, "mp2": 1.5, "ccsd": 6.0, "ccsd(t)": 9.0}
 RELAX_WEIGHT = 15.0
 
 
+#: With size weights (estimated seconds), the least work worth one Snakemake job: a job's
+#: start-up (Python, PySCF import) costs 1-2 s, so this keeps it under ~10 %.
+MIN_BATCH_S = 15.0
+
+
 def engine_version(name: str = "pyscf") -> str:
     """Version of the engine's package, read from its metadata (no import)."""
     return _dist_version(name)
@@ -298,9 +303,10 @@ def make_batches(
     start-up stays a small share), never below ``min_points_per_batch``
     geometries per chunk and never above ``max_points_per_batch`` (so that a job
     stays well inside a cluster's time limit and a long walk is spread over nodes).
-    ``size_weight`` maps (molecule, basis) to a relative cost per point (e.g. from the
-    basis-set size, :func:`pesflow.cost.size_weights`), so that chunks of a walk in a
-    large basis are cut shorter than those in a small one.
+    ``size_weight`` maps (molecule, basis) to the estimated seconds of one SCF point
+    (:func:`pesflow.cost.size_weights`), so that chunks of a walk in a large basis are
+    cut shorter than those in a small one, and no chunk holds less than
+    :data:`MIN_BATCH_S` of work unless its walk does.
     """
     pts = plan.points
     if done:
@@ -334,6 +340,9 @@ def make_batches(
         gs = plan.geometry_sets[set_id]
         n_chunks = max(1, int(round(target * weight / total_weight)))
         n_chunks = min(n_chunks, max(1, len(ordered) // min_points_per_batch))
+        if size_weight is not None:
+            # weights are then estimated seconds: a job must outweigh its start-up
+            n_chunks = min(n_chunks, max(1, int(weight // MIN_BATCH_S)))
         n_chunks = max(n_chunks, -(-len(ordered) // max_points_per_batch))
         bounds = np.linspace(0, len(ordered), n_chunks + 1).round().astype(int)
         stem = _safe(f"{gs.molecule}-{gs.scan}-{basis}-{family}")

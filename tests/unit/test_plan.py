@@ -191,3 +191,11 @@ def test_chunks_of_a_large_basis_are_cut_shorter():
         ]
 
     assert max(chunks("cc-pvtz")) < min(chunks("sto-3g"))
+
+
+def test_cheap_walks_are_not_split_below_the_start_up_cost():
+    plan = expand(campaign(SPEC.replace("points: 9", "points: 60"), "c2.yaml"), version="test")
+    cheap = {(m, "sto-3g"): 0.02 for m in ("hf_molecule", "water")}
+    batches = make_batches(plan, set(), cores=2, size_weight=cheap)
+    stretch = [b for b in batches if plan.geometry_sets[b.set_id].scan == "stretch"]
+    assert len(stretch) == 2  # one walk per SCF family: 60 points of 0.02 s are one job
