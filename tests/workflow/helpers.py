@@ -7,8 +7,25 @@ import sys
 
 import numpy as np
 
+#: A campaign of 20 tiny points (2 molecules x 5 geometries x hf and mp2 at sto-3g),
+#: a closed and an open shell, for tests of the machinery rather than the chemistry.
+SMALL_CAMPAIGN = """\
+campaign: {name}
+molecules:
+  dihydrogen: {{builtin: H2}}
+  hydroxyl: {{xyz: "O 0 0 0\\nH 0 0 0.97", multiplicity: 2}}
+scans:
+  stretch:
+    molecules: [dihydrogen, hydroxyl]
+    coordinates:
+      - {{type: distance, atoms: [1, 2], from: 0.6, to: 1.2, points: 5}}
+levels:
+  - {{method: [hf, mp2], basis: sto-3g}}
+store: store
+"""
 
-def pesflow(*args, check=None, timeout=900):
+
+def pesflow(*args, check=None, timeout=900, cwd=None):
     """Run ``python -m pesflow ARGS`` (one PySCF thread); assert the exit code if given."""
     env = dict(os.environ, OMP_NUM_THREADS="1")
     proc = subprocess.run(
@@ -17,6 +34,7 @@ def pesflow(*args, check=None, timeout=900):
         text=True,
         env=env,
         timeout=timeout,
+        cwd=cwd,
     )
     if check is not None:
         assert proc.returncode == check, proc.stdout + proc.stderr

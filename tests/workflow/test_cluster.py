@@ -21,38 +21,14 @@ import numpy as np
 import pytest
 
 from pesflow.store import PointStore
+from tests.workflow.helpers import SMALL_CAMPAIGN, pesflow
 
 REPO = Path(__file__).resolve().parents[2]
 LOCAL_CLUSTER = REPO / "configs" / "profiles" / "local-cluster"
 SLURM = REPO / "configs" / "profiles" / "slurm"
 
-SPEC = """\
-campaign: cluster-check
-molecules:
-  dihydrogen: {builtin: H2}
-  hydroxyl: {xyz: "O 0 0 0\\nH 0 0 0.97", multiplicity: 2}
-scans:
-  stretch:
-    molecules: [dihydrogen, hydroxyl]
-    coordinates:
-      - {type: distance, atoms: [1, 2], from: 0.6, to: 1.2, points: 5}
-levels:
-  - {method: [hf, mp2], basis: sto-3g}
-store: store
-"""
+SPEC = SMALL_CAMPAIGN.format(name="cluster-check")
 N_POINTS = 20  # 2 molecules x 5 geometries x 2 methods
-
-
-def pesflow(*args, cwd, timeout=300):
-    env = dict(os.environ, OMP_NUM_THREADS="1")
-    return subprocess.run(
-        [sys.executable, "-m", "pesflow", *args],
-        capture_output=True,
-        text=True,
-        env=env,
-        cwd=cwd,
-        timeout=timeout,
-    )
 
 
 def stored_energies(root) -> dict[str, float]:

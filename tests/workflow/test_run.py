@@ -17,24 +17,11 @@ import pandas as pd
 import pytest
 
 from pesflow.store import PointStore
-from tests.workflow.helpers import direct_energy, pesflow
+from tests.workflow.helpers import SMALL_CAMPAIGN, direct_energy, pesflow
 
 pytestmark = [pytest.mark.workflow, pytest.mark.integration]
 
-SMALL = """\
-campaign: wf-small
-molecules:
-  dihydrogen: {builtin: H2}
-  hydroxyl: {xyz: "O 0 0 0\\nH 0 0 0.97", multiplicity: 2}
-scans:
-  stretch:
-    molecules: [dihydrogen, hydroxyl]
-    coordinates:
-      - {type: distance, atoms: [1, 2], from: 0.6, to: 1.2, points: 5}
-levels:
-  - {method: [hf, mp2], basis: sto-3g}
-store: store
-"""
+SMALL = SMALL_CAMPAIGN.format(name="wf-small")
 
 
 def test_run_rerun_export(tmp_path):
