@@ -25,10 +25,12 @@ import logging
 import os
 import sys
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+
+from pesflow.fileio import atomic_write
 
 log = logging.getLogger("pesflow.batch")
 
@@ -71,7 +73,6 @@ class _Computed:
     index: int  # position in the task's point list
     methods: list[str]  # the methods computed here
     results: dict  # method -> PointResult
-    positions: dict = field(default_factory=dict)  # method -> positions written
 
     def lead(self):
         """The result used to judge continuity: the first requested method's."""
@@ -380,9 +381,7 @@ def run_batch(
     marker = {"batch_id": task["batch_id"], "wall_s": time.time() - t0, **counts, "points": status}
     done_path = Path(done_path)
     done_path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = done_path.with_name("." + done_path.name + ".tmp")
-    tmp.write_text(json.dumps(marker, indent=1))
-    os.replace(tmp, done_path)
+    atomic_write(done_path, json.dumps(marker, indent=1), fsync=False)
     return marker
 
 

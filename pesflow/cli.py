@@ -56,20 +56,25 @@ def _report_quarantined(store) -> None:
         )
 
 
-def _done_keys(store, retry_failed=False) -> set[str]:
+def _done_keys(store) -> set[str]:
+    """Keys of every stored point (done or failed)."""
     if not store.exists():
         return set()
     keys = store.keys()
     _report_quarantined(store)
-    if retry_failed:
-        table = store.status_table(columns=("key", "converged"))
-        failed = {
-            k
-            for k, c in zip(table.column("key").to_pylist(), table.column("converged").to_pylist())
-            if not c
-        }
-        keys -= failed
     return keys
+
+
+def _failed_keys(store) -> set[str]:
+    """Keys of the points stored as failed."""
+    if not store.exists():
+        return set()
+    table = store.status_table(columns=("key", "converged"))
+    return {
+        k
+        for k, c in zip(table.column("key").to_pylist(), table.column("converged").to_pylist())
+        if not c
+    }
 
 
 # ---------------------------------------------------------------------------
@@ -253,10 +258,8 @@ def cmd_run(args) -> int:
     )
     lock = runner.RunLock(campaign.results_path / ".pesflow" / "run.lock").acquire()
     try:
-        done = _done_keys(store, retry_failed=args.retry_failed)
-        recompute = set()
-        if args.retry_failed and store.exists():
-            recompute = store.keys() - done
+        recompute = _failed_keys(store) if args.retry_failed else set()
+        done = _done_keys(store) - recompute
         batches = make_batches(
             plan,
             done,
@@ -286,8 +289,8 @@ def cmd_run(args) -> int:
                 return EXIT_INTERRUPTED
             if outcome.returncode != 0:
                 err_console.print(f"some batch jobs failed; Snakemake's log: {outcome.log_path}")
-        stats = store.compact() if store.exists() else None
-        del stats
+        if store.exists():
+            store.compact()
     finally:
         lock.release()
     done_n, failed, pending_n = _print_status(campaign, plan, store)
@@ -371,46 +374,47 @@ def cmd_report(args) -> int:
 
 
 def cmd_export(args) -> int:
+    from pesflow.fileio import atomic_path
     from pesflow.results import points_table, write_extxyz
 
+    out = Path(args.output)
+    fmt = args.format or {".csv": "csv", ".xyz": "extxyz", ".extxyz": "extxyz"}.get(
+        out.suffix.lower(), "parquet"
+    )
+    if args.what == "geometries":
+        fmt = "extxyz"
+    elif fmt == "extxyz":
+        err_console.print(f"error: the {args.what} table has no geometries; use --what geometries")
+        return EXIT_INVALID
     campaign = _load(args.spec)
     plan = _plan(campaign)
     store = _store(campaign)
-    out = Path(args.output)
-    suffix = out.suffix.lower()
-    fmt = args.format or {".csv": "csv", ".xyz": "extxyz", ".extxyz": "extxyz"}.get(
-        suffix, "parquet"
-    )
     table = points_table(plan, store)
     _report_quarantined(store)
     if args.what == "summary":
         from pesflow.summary import summary_table
 
         table = summary_table(campaign, plan, table)
-    elif args.what == "geometries":
-        fmt = "extxyz"
     out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.with_name(f".{out.name}.tmp")
-    if fmt == "extxyz":
-        if args.what == "summary":
-            err_console.print("error: a summary has no geometries; use --what geometries")
-            return EXIT_INVALID
-        n = write_extxyz(table[table["status"] != "pending"], tmp)
-        tmp.replace(out)
-        console.print(f"wrote {n} geometries (extended XYZ) to {out}")
-        return EXIT_OK
-    if fmt == "csv":
-        if "positions_angstrom" in table.columns:
-            table = table.assign(
-                positions_angstrom=table["positions_angstrom"].map(
-                    lambda p: " ".join(f"{x:.8f}" for x in p) if p is not None and len(p) else ""
+    with atomic_path(out) as tmp:
+        if fmt == "extxyz":
+            n = write_extxyz(table[table["status"] != "pending"], tmp)
+        elif fmt == "csv":
+            if "positions_angstrom" in table.columns:
+                table = table.assign(
+                    positions_angstrom=table["positions_angstrom"].map(
+                        lambda p: (
+                            " ".join(f"{x:.8f}" for x in p) if p is not None and len(p) else ""
+                        )
+                    )
                 )
-            )
-        table.to_csv(tmp, index=False)
+            table.to_csv(tmp, index=False)
+        else:
+            table.to_parquet(tmp, index=False)
+    if fmt == "extxyz":
+        console.print(f"wrote {n} geometries (extended XYZ) to {out}")
     else:
-        table.to_parquet(tmp, index=False)
-    tmp.replace(out)
-    console.print(f"wrote {len(table)} rows ({args.what}) to {out}")
+        console.print(f"wrote {len(table)} rows ({args.what}) to {out}")
     return EXIT_OK
 
 

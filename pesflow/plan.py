@@ -268,8 +268,8 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
 def points_frame(plan: Plan) -> pd.DataFrame:
     """The points table with the coordinate values as columns (unit in each name)."""
     frames = []
-    for gs in plan.geometry_sets:
-        sub = plan.points[plan.points["set_id"] == gs.set_id]
+    for set_id, sub in plan.points.groupby("set_id", sort=True):
+        gs = plan.geometry_sets[int(set_id)]
         cols = _coordinate_columns(gs.coordinate_kinds)
         sub = sub.copy()
         for j, name in enumerate(cols):

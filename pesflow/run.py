@@ -27,6 +27,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from pesflow.errors import RunError
+from pesflow.fileio import atomic_write
 
 GRACE_S = 20.0
 
@@ -57,15 +58,6 @@ class RunOptions:
 def workdir(campaign) -> Path:
     """Snakemake's working folder of a campaign (tasks, done markers, logs, .snakemake)."""
     return campaign.results_path / ".pesflow" / "workflow"
-
-
-def _atomic_write_text(path: Path, text: str) -> None:
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    with open(tmp, "w") as fh:
-        fh.write(text)
-        fh.flush()
-        os.fsync(fh.fileno())
-    os.replace(tmp, path)
 
 
 def task_dict(plan, batch, store_root, recompute=()) -> dict:
@@ -118,7 +110,7 @@ def write_tasks(plan, batches, store_root, wd: Path, options: RunOptions, recomp
     (wd / "tasks").mkdir(parents=True, exist_ok=True)
     (wd / "done").mkdir(parents=True, exist_ok=True)
     for batch in batches:
-        _atomic_write_text(
+        atomic_write(
             wd / "tasks" / f"{batch.batch_id}.json",
             json.dumps(task_dict(plan, batch, store_root, recompute)),
         )
@@ -134,7 +126,7 @@ def write_tasks(plan, batches, store_root, wd: Path, options: RunOptions, recomp
         "runtime_min_per_batch": options.runtime_min_per_batch,
     }
     path = wd / "config.json"
-    _atomic_write_text(path, json.dumps(config, indent=1))
+    atomic_write(path, json.dumps(config, indent=1))
     return path
 
 

@@ -43,7 +43,6 @@ Example::
 from __future__ import annotations
 
 import contextlib
-import errno
 import fcntl
 import json
 import logging
@@ -64,6 +63,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from pesflow.errors import StoreError
+from pesflow.fileio import TMP_PREFIX, atomic_path, atomic_write, fsync_dir
 
 __all__ = [
     "POINT_SCHEMA",
@@ -254,51 +254,10 @@ def _utc_stamp() -> str:
     return datetime.now(UTC).strftime("%Y%m%dT%H%M%S%fZ")
 
 
-def _fsync_dir(path: Path) -> None:
-    """Make a rename or unlink in ``path`` durable.  Some filesystems refuse to fsync a folder."""
-    fd = os.open(path, os.O_RDONLY)
-    try:
-        os.fsync(fd)
-    except OSError as exc:
-        if exc.errno not in (errno.EINVAL, errno.ENOTSUP, errno.EBADF):
-            raise
-    finally:
-        os.close(fd)
-
-
 def _write_parquet_atomic(table: pa.Table, path: Path, *, fsync: bool) -> None:
     """Write ``table`` to ``path`` through a dot-named temp file in the same folder."""
-    tmp = path.with_name(f".tmp-{path.stem}-{uuid.uuid4().hex}{path.suffix}")
-    try:
-        with open(tmp, "wb") as fh:
-            pq.write_table(table, fh, compression="zstd")
-            fh.flush()
-            if fsync:
-                os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.unlink(tmp)
-        raise
-    if fsync:
-        _fsync_dir(path.parent)
-
-
-def _write_text_atomic(text: str, path: Path, *, fsync: bool) -> None:
-    tmp = path.with_name(f".tmp-{path.name}-{uuid.uuid4().hex}")
-    try:
-        with open(tmp, "w", encoding="utf-8") as fh:
-            fh.write(text)
-            fh.flush()
-            if fsync:
-                os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.unlink(tmp)
-        raise
-    if fsync:
-        _fsync_dir(path.parent)
+    with atomic_path(path, fsync=fsync) as tmp:
+        pq.write_table(table, tmp, compression="zstd")
 
 
 def _magic_problem(name, dir_fd: int | None = None) -> tuple[str | None, int | None]:
@@ -497,8 +456,8 @@ class PointStore:
             if not self._check_root():
                 self.root.mkdir(parents=True, exist_ok=True)
                 meta = {"format": STORE_FORMAT, "schema_version": SCHEMA_VERSION}
-                _write_text_atomic(
-                    json.dumps(meta, indent=2) + "\n", self.root / "STORE.json", fsync=self.fsync
+                atomic_write(
+                    self.root / "STORE.json", json.dumps(meta, indent=2) + "\n", fsync=self.fsync
                 )
                 self._checked = False
                 self._check_root()
@@ -805,7 +764,7 @@ class PointStore:
             f"original: {path}\nreason: {reason}\n"
             f"time_utc: {_utc_stamp()}\nhost: {socket.gethostname()}\npid: {os.getpid()}\n"
         )
-        _write_text_atomic(note, dest.with_name(dest.name + ".txt"), fsync=self.fsync)
+        atomic_write(dest.with_name(dest.name + ".txt"), note, fsync=self.fsync)
         if path.parent == self.fragments_dir:
             self._fragment_ok.pop(path.name, None)
         self.last_quarantined.append((path, reason))
@@ -938,7 +897,7 @@ class PointStore:
                     os.unlink(path)
                     removed += 1
         if self.fsync:
-            _fsync_dir(self.fragments_dir)
+            fsync_dir(self.fragments_dir)
         stats["fragments_compacted"] = removed
 
     def _merge_small_parts(self, small_part_bytes: int, min_small_parts: int, stats: dict):
@@ -976,7 +935,7 @@ class PointStore:
                 with contextlib.suppress(FileNotFoundError):
                     os.unlink(path)
             if self.fsync:
-                _fsync_dir(self.parts_dir)
+                fsync_dir(self.parts_dir)
             stats["parts_merged"] += len(inputs)
             stats["merged_part"] = merged
 
@@ -989,7 +948,7 @@ class PointStore:
             except FileNotFoundError:
                 continue
             for entry in entries:
-                if not entry.name.startswith(".tmp-"):
+                if not entry.name.startswith(TMP_PREFIX):
                     continue
                 with contextlib.suppress(FileNotFoundError):
                     if now - entry.stat().st_mtime > stale_tmp_s:

@@ -21,12 +21,12 @@ computed), into one folder:
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
+from pesflow.fileio import atomic_write
 from pesflow.report.stats import (
     ErrorStatistics,
     closest_levels,
@@ -74,15 +74,6 @@ _LABELS = {
 }
 
 
-def _write_atomic(path: Path, data: bytes | str) -> None:
-    tmp = path.with_name(f".{path.name}.tmp")
-    if isinstance(data, str):
-        tmp.write_text(data, encoding="utf-8")
-    else:
-        tmp.write_bytes(data)
-    os.replace(tmp, path)
-
-
 def _csv_text(frame: pd.DataFrame) -> str:
     frame = frame.copy()
     for col in frame.columns:
@@ -128,11 +119,11 @@ def build_report(
     paths: dict[str, Path] = {}
     for key, name, attr in _CSV:
         path = out / name
-        _write_atomic(path, _csv_text(getattr(data, attr)))
+        atomic_write(path, _csv_text(getattr(data, attr)), fsync=False)
         paths[key] = path
     keep = set()
     for fig in figures.values():
-        _write_atomic(fig_dir / fig.name, fig.png)
+        atomic_write(fig_dir / fig.name, fig.png, fsync=False)
         keep.add(fig.name)
     for old in fig_dir.glob("*.png"):
         if old.name not in keep:
@@ -144,9 +135,9 @@ def build_report(
     files[_LABELS["report.md"]] = "report.md"
     figure_files = {key: f"figures/{fig.name}" for key, fig in figures.items()}
     paths["markdown"] = out / "report.md"
-    _write_atomic(paths["markdown"], markdown.render(data, figure_files, md_files))
+    atomic_write(paths["markdown"], markdown.render(data, figure_files, md_files), fsync=False)
     paths["html"] = out / "report.html"
-    _write_atomic(paths["html"], html_page.render(data, figures, files))
+    atomic_write(paths["html"], html_page.render(data, figures, files), fsync=False)
     return paths
 
 

@@ -325,6 +325,22 @@ def _mark_points(ax, g):
     ax.plot(Q1[done], Q2[done], ".", color="#222222", markersize=2.5, alpha=0.6)
 
 
+def _contour_panel(ax, q1, q2, values, levels, *, cmap, extend, fmt, linewidth, empty_text):
+    """Filled contours with labelled lines of ``values`` on the (q1, q2) grid, or a note
+    when too few points are finite.  Returns the filled contour set (or None)."""
+    if np.isfinite(values).sum() < 4 or min(values.shape) < 2:
+        ax.text(
+            0.5, 0.5, empty_text, ha="center", va="center", transform=ax.transAxes, color="#555555"
+        )
+        return None
+    Q1, Q2 = np.meshgrid(q1, q2, indexing="ij")
+    masked = np.ma.masked_invalid(values)
+    filled = ax.contourf(Q1, Q2, masked, levels=levels, cmap=cmap, extend=extend)
+    lines = ax.contour(Q1, Q2, masked, levels=levels[::2], colors="black", linewidths=linewidth)
+    ax.clabel(lines, fmt=fmt, fontsize=7)
+    return filled
+
+
 @_styled
 def surface_figure(grids, *, xlabel, ylabel, title, reference_level=None) -> bytes:
     """Contour maps of a 2-D scan, one panel per level, on one energy scale (kcal/mol).
@@ -343,22 +359,20 @@ def surface_figure(grids, *, xlabel, ylabel, title, reference_level=None) -> byt
     for ax, g, rel in zip(axes.flat, grids, rels):
         label = g.level + (" (reference)" if g.level == reference_level else "")
         ax.set_title(plain(label), loc="left")
-        Q1, Q2 = np.meshgrid(g.q1, g.q2, indexing="ij")
-        masked = np.ma.masked_invalid(rel)
-        if np.isfinite(rel).sum() >= 4 and min(rel.shape) >= 2:
-            mappable = ax.contourf(Q1, Q2, masked, levels=levels, cmap="cividis", extend="max")
-            lines = ax.contour(Q1, Q2, masked, levels=levels[::2], colors="black", linewidths=0.6)
-            ax.clabel(lines, fmt="%.3g", fontsize=7)
-        else:
-            ax.text(
-                0.5,
-                0.5,
-                "not enough points\ncomputed yet",
-                ha="center",
-                va="center",
-                transform=ax.transAxes,
-                color="#555555",
-            )
+        panel = _contour_panel(
+            ax,
+            g.q1,
+            g.q2,
+            rel,
+            levels,
+            cmap="cividis",
+            extend="max",
+            fmt="%.3g",
+            linewidth=0.6,
+            empty_text="not enough points\ncomputed yet",
+        )
+        if panel is not None:
+            mappable = panel
         _mark_points(ax, g)
         if all(np.isfinite(g.q_min)):
             ax.plot(
@@ -396,23 +410,20 @@ def difference_figure(grids, reference: SurfaceGrid, *, xlabel, ylabel, title) -
     mappable = None
     for ax, g, d in zip(axes.flat, others, diffs):
         ax.set_title(plain(f"{g.level} minus {reference.level}"), loc="left")
-        Q1, Q2 = np.meshgrid(g.q1, g.q2, indexing="ij")
-        if np.isfinite(d).sum() >= 4 and min(d.shape) >= 2:
-            mappable = ax.contourf(Q1, Q2, np.ma.masked_invalid(d), levels=levels, cmap="PuOr_r")
-            lines = ax.contour(
-                Q1, Q2, np.ma.masked_invalid(d), levels=levels[::2], colors="black", linewidths=0.5
-            )
-            ax.clabel(lines, fmt="%.2g", fontsize=7)
-        else:
-            ax.text(
-                0.5,
-                0.5,
-                "not enough points\nat both levels",
-                ha="center",
-                va="center",
-                transform=ax.transAxes,
-                color="#555555",
-            )
+        panel = _contour_panel(
+            ax,
+            g.q1,
+            g.q2,
+            d,
+            levels,
+            cmap="PuOr_r",
+            extend="neither",
+            fmt="%.2g",
+            linewidth=0.5,
+            empty_text="not enough points\nat both levels",
+        )
+        if panel is not None:
+            mappable = panel
         merged = np.where(reference.status == "done", g.status, reference.status)
         _mark_points(ax, SurfaceGrid(g.level, g.q1, g.q2, d, merged))
         ax.set_xlabel(plain(xlabel))

@@ -8,13 +8,11 @@
   constrained dihedral (checked with ASE on the exported extended XYZ).
 """
 
-import os
-import subprocess
-import sys
-
 import ase.io
 import pandas as pd
 import pytest
+
+from tests.workflow.helpers import pesflow
 
 pytestmark = [pytest.mark.workflow, pytest.mark.integration]
 
@@ -59,7 +57,6 @@ def campaign(tmp_path_factory):
     folder = tmp_path_factory.mktemp("breaking")
     spec = folder / "campaign.yaml"
     spec.write_text(SPEC)
-    env = dict(os.environ, OMP_NUM_THREADS="1")
     runs = (
         ["run", str(spec), "--cores", "2"],
         ["export", str(spec), "--what", "summary", "-o", str(folder / "summary.parquet")],
@@ -67,14 +64,7 @@ def campaign(tmp_path_factory):
         ["export", str(spec), "--what", "geometries", "-o", str(folder / "points.xyz")],
     )
     for args in runs:
-        proc = subprocess.run(
-            [sys.executable, "-m", "pesflow", *args],
-            capture_output=True,
-            text=True,
-            env=env,
-            timeout=1200,
-        )
-        assert proc.returncode == 0, proc.stdout + proc.stderr
+        pesflow(*args, check=0, timeout=1200)
     return {
         "summary": pd.read_parquet(folder / "summary.parquet").set_index("scan"),
         "points": pd.read_parquet(folder / "points.parquet"),

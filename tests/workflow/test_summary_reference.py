@@ -9,15 +9,12 @@ torsion, then `pesflow export --what summary`, checked against:
 - the measured ethane torsion barrier, within the known error of rigid HF scans.
 """
 
-import os
-import subprocess
-import sys
-
 import numpy as np
 import pandas as pd
 import pytest
 
 from pesflow.units import BOHR_ANGSTROM, isotope_mass
+from tests.workflow.helpers import pesflow
 
 pytestmark = [pytest.mark.workflow, pytest.mark.integration]
 
@@ -62,19 +59,11 @@ def summary(tmp_path_factory):
     folder = tmp_path_factory.mktemp("summary")
     spec = folder / "campaign.yaml"
     spec.write_text(SPEC)
-    env = dict(os.environ, OMP_NUM_THREADS="1")
     for args in (
         ["run", str(spec), "--cores", "2"],
         ["export", str(spec), "--what", "summary", "-o", str(folder / "s.parquet")],
     ):
-        proc = subprocess.run(
-            [sys.executable, "-m", "pesflow", *args],
-            capture_output=True,
-            text=True,
-            env=env,
-            timeout=900,
-        )
-        assert proc.returncode == 0, proc.stdout + proc.stderr
+        pesflow(*args, check=0, timeout=900)
     table = pd.read_parquet(folder / "s.parquet")
     return table.set_index("molecule")
 
