@@ -190,7 +190,7 @@ def test_second_run_of_same_campaign_is_refused(tmp_path):
 
 def test_snakemake_lint_and_dry_run(tmp_path):
     """The shipped workflow passes `snakemake --lint` and a dry run with a real config."""
-    from pesflow.run import workflow_dir
+    from pesflow.run import RunOptions, snakemake_command
 
     wd = tmp_path / "wd"
     (wd / "tasks").mkdir(parents=True)
@@ -207,19 +207,8 @@ def test_snakemake_lint_and_dry_run(tmp_path):
             }
         )
     )
-    base = [
-        sys.executable,
-        "-m",
-        "snakemake",
-        "--snakefile",
-        str(workflow_dir() / "Snakefile"),
-        "--directory",
-        str(wd),
-        "--configfile",
-        str(config),
-        "--cores",
-        "1",
-    ]
+    # the same command line pesflow run uses
+    base = snakemake_command(wd, config, RunOptions(cores=1))
     dry = subprocess.run(base + ["--dry-run"], capture_output=True, text=True)
     assert dry.returncode == 0, dry.stdout + dry.stderr
     assert "batch" in dry.stdout
