@@ -85,7 +85,7 @@ def write_points(spec: Path, out: Path) -> dict:
 
 def stored_energies(store_root: Path) -> tuple[dict, float]:
     """Energies by key, and the engine's own compute seconds (SCF once, plus each MP2)."""
-    from pesflow.store import PointStore
+    from pesflow.store.point_store import PointStore
 
     table = (
         PointStore(store_root)

@@ -50,7 +50,7 @@ def main(argv=None) -> int:
     parser.add_argument("--json", default=None, help="also write the figures here")
     args = parser.parse_args(argv)
 
-    from pesflow.store import PointStore
+    from pesflow.store.point_store import PointStore
 
     work = Path(tempfile.mkdtemp(prefix="pesflow-bench-plan-"))
     spec = work / "campaign.yaml"

@@ -120,7 +120,7 @@ def synthetic_records(plan, pts, seed: int = 0):
     ``extra_json`` says ``{"synthetic": true}``.  A cached run or a plan never reads the
     energies, so they do not change what is measured.
     """
-    from pesflow.store import make_record
+    from pesflow.store.point_store import make_record
 
     rng = np.random.default_rng(seed)
     energies = -100.0 + rng.standard_normal(len(pts)) * 1e-3
@@ -152,8 +152,8 @@ def synthetic_records(plan, pts, seed: int = 0):
 
 
 def plan_of(spec_path: Path):
-    from pesflow.plan import expand
-    from pesflow.spec import load_campaign
+    from pesflow.campaign.spec import load_campaign
+    from pesflow.plan.expand import expand
 
     campaign = load_campaign(spec_path)
     return campaign, expand(campaign)
@@ -167,7 +167,7 @@ def populate_with_writes(spec_path: Path, rows=None, compact_every: int = 5000) 
     ``rows``: a slice object or index array into the plan's points (default: all).
     Written without fsync: durability is not what is measured.  Returns the count.
     """
-    from pesflow.store import PointStore
+    from pesflow.store.point_store import PointStore
 
     campaign, plan = plan_of(spec_path)
     pts = plan.points if rows is None else plan.points.iloc[rows]
@@ -186,7 +186,8 @@ def populate_with_writes(spec_path: Path, rows=None, compact_every: int = 5000) 
 def populate_parts(spec_path: Path, rows, n_parts: int) -> int:
     """Store synthetic records directly as ``n_parts`` compacted part files.
 
-    Writes ``parts/part-<utc>-<uuid>.parquet`` files of :data:`pesflow.store.POINT_SCHEMA`,
+    Writes ``parts/part-<utc>-<uuid>.parquet`` files of
+    :data:`pesflow.store.point_store.POINT_SCHEMA`,
     the layout the store documents and its compaction produces, because 100,000 single
     writes plus compaction take about 8 minutes here.  Check the result with
     ``PointStore.verify()``.  Returns the count.
@@ -196,7 +197,7 @@ def populate_parts(spec_path: Path, rows, n_parts: int) -> int:
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    from pesflow.store import POINT_SCHEMA, PointStore
+    from pesflow.store.point_store import POINT_SCHEMA, PointStore
 
     campaign, plan = plan_of(spec_path)
     pts = plan.points.iloc[rows]

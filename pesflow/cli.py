@@ -29,19 +29,19 @@ err_console = Console(stderr=True, highlight=False)
 
 
 def _load(spec):
-    from pesflow.spec import load_campaign
+    from pesflow.campaign.spec import load_campaign
 
     return load_campaign(spec)
 
 
 def _store(campaign):
-    from pesflow.store import PointStore
+    from pesflow.store.point_store import PointStore
 
     return PointStore(campaign.store_path)
 
 
 def _plan(campaign):
-    from pesflow.plan import expand
+    from pesflow.plan.expand import expand
 
     return expand(campaign)
 
@@ -134,8 +134,8 @@ def _plan_table(plan, store, done, sample_per_curve=20):
 
 
 def cmd_plan(args) -> int:
-    from pesflow import cost
-    from pesflow.plan import make_batches
+    from pesflow.plan import cost
+    from pesflow.plan.expand import make_batches
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
@@ -186,7 +186,7 @@ def _cpu_count():
 
 
 def _print_status(campaign, plan, store, show_failed=10) -> tuple[int, int, int]:
-    from pesflow.results import STATUS_COLUMNS, failed_points, points_table, status_counts
+    from pesflow.tables.points import STATUS_COLUMNS, failed_points, points_table, status_counts
 
     table = points_table(plan, store, columns=STATUS_COLUMNS)
     counts = status_counts(table)
@@ -228,7 +228,7 @@ def _print_status(campaign, plan, store, show_failed=10) -> tuple[int, int, int]
 
 def _size_weights(campaign, plan, done):
     """Per (molecule, basis) cost weights for batching; skipped when nothing is pending."""
-    from pesflow import cost
+    from pesflow.plan import cost
 
     if plan.points["key"].isin(done).all():
         return None
@@ -244,8 +244,8 @@ def cmd_status(args) -> int:
 
 
 def cmd_run(args) -> int:
-    from pesflow import run as runner
-    from pesflow.plan import make_batches
+    from pesflow.execution import driver as runner
+    from pesflow.plan.expand import make_batches
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
@@ -343,7 +343,7 @@ def _run_with_progress(runner, wd, config, options, lock, store, pending):
                 f"  {len(seen)}/{total} points, {failed} failed, {time.monotonic() - start:.0f} s"
             )
         # Keep the fragment folder small during long runs so that listing it stays cheap;
-        # compaction is safe while batches write (see pesflow.store).
+        # compaction is safe while batches write (see pesflow.store.point_store).
         if len(seen) - timing["compacted_at"] >= COMPACT_EVERY_POINTS:
             timing["compacted_at"] = len(seen)
             store.compact(merge_parts=False)
@@ -358,8 +358,8 @@ def _run_with_progress(runner, wd, config, options, lock, store, pending):
 
 def cmd_report(args) -> int:
     from pesflow.report import build_report, terminal_summary
-    from pesflow.results import points_table
-    from pesflow.summary import summary_table
+    from pesflow.tables.points import points_table
+    from pesflow.tables.summary import summary_table
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
@@ -374,8 +374,9 @@ def cmd_report(args) -> int:
 
 
 def cmd_export(args) -> int:
-    from pesflow.fileio import atomic_path
-    from pesflow.results import points_table, write_extxyz
+    from pesflow.formats.atomic import atomic_path
+    from pesflow.formats.extxyz import write_extxyz
+    from pesflow.tables.points import points_table
 
     out = Path(args.output)
     fmt = args.format or {".csv": "csv", ".xyz": "extxyz", ".extxyz": "extxyz"}.get(
@@ -392,7 +393,7 @@ def cmd_export(args) -> int:
     table = points_table(plan, store)
     _report_quarantined(store)
     if args.what == "summary":
-        from pesflow.summary import summary_table
+        from pesflow.tables.summary import summary_table
 
         table = summary_table(campaign, plan, table)
     out.parent.mkdir(parents=True, exist_ok=True)

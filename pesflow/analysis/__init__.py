@@ -9,7 +9,7 @@ Modules, one job each:
   inversion barriers, dissociation energies;
 * :mod:`pesflow.analysis.surface` - 2-D grids: minima, first-order saddle points, minimum-energy
   paths;
-* :mod:`pesflow.analysis.summary` - one flat row of unit-named columns per curve or surface.
+* :mod:`pesflow.analysis.derived` - one flat row of unit-named columns per curve or surface.
 
 No function here reads or writes a file.
 """
@@ -22,9 +22,9 @@ _EXPORTS = {
     "CurveAnalysis": "curves",
     "StationaryPoint": "curves",
     "analyze_curve": "curves",
-    "SUMMARY_COLUMNS": "summary",
-    "summarize_curve": "summary",
-    "summarize_surface": "summary",
+    "SUMMARY_COLUMNS": "derived",
+    "summarize_curve": "derived",
+    "summarize_surface": "derived",
 }
 
 __all__ = list(_EXPORTS)

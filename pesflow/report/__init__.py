@@ -26,7 +26,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from pesflow.fileio import atomic_write
+from pesflow.formats.atomic import atomic_write
 from pesflow.report.stats import (
     ErrorStatistics,
     closest_levels,
@@ -92,10 +92,10 @@ def build_report(
     """Write the comparison report of ``campaign`` into ``out_dir`` (created if needed).
 
     Args:
-        campaign: the loaded :class:`~pesflow.spec.Campaign`.
-        plan: its :class:`~pesflow.plan.Plan` (:func:`pesflow.plan.expand`).
-        points: :func:`pesflow.results.points_table` of the campaign, all columns.
-        summary: :func:`pesflow.summary.summary_table` of the same points.
+        campaign: the loaded :class:`~pesflow.campaign.spec.Campaign`.
+        plan: its :class:`~pesflow.plan.expand.Plan` (:func:`pesflow.plan.expand.expand`).
+        points: :func:`pesflow.tables.points.points_table` of the campaign, all columns.
+        summary: :func:`pesflow.tables.summary.summary_table` of the same points.
         out_dir: output folder; ``pesflow report`` uses ``campaign.results_path / "report"``.
 
     Returns:

@@ -17,9 +17,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from pesflow.plan import coordinate_columns
+from pesflow.plan.expand import coordinate_columns
 from pesflow.report.stats import level_statistics
-from pesflow.results import status_counts
+from pesflow.tables.points import status_counts
 
 
 @dataclass(frozen=True)
@@ -105,12 +105,12 @@ _FLAG_TOPICS = (
 
 def split_flags(text) -> list[str]:
     """Split the summary's ``flags`` text into single warnings (joined with
-    :data:`pesflow.analysis.summary.FLAG_SEPARATOR`).  NaN or empty text gives ``[]``.
+    :data:`pesflow.analysis.derived.FLAG_SEPARATOR`).  NaN or empty text gives ``[]``.
 
     >>> split_flags("a (x; y): z | b; extend the scan")
     ['a (x; y): z', 'b; extend the scan']
     """
-    from pesflow.analysis.summary import FLAG_SEPARATOR
+    from pesflow.analysis.derived import FLAG_SEPARATOR
 
     if not isinstance(text, str) or not text.strip():
         return []
@@ -483,7 +483,7 @@ def _cost_table(points, levels, reference_level):
 
 def _basis_counts(campaign, pairs) -> dict[tuple[str, str], int]:
     """Number of basis functions of each (molecule, basis) pair (PySCF's count)."""
-    from pesflow.cost import basis_function_counts
+    from pesflow.plan.cost import basis_function_counts
 
     return basis_function_counts(campaign, pairs)
 
@@ -530,12 +530,12 @@ def collect(
     """Assemble :class:`ReportData` from the points table and the summary table.
 
     Args:
-        campaign: the :class:`~pesflow.spec.Campaign`.
-        plan: its :class:`~pesflow.plan.Plan` (checked to be of the same campaign).
-        points: :func:`pesflow.results.points_table` of the campaign (all columns).
-        summary: :func:`pesflow.summary.summary_table` of the campaign.
+        campaign: the :class:`~pesflow.campaign.spec.Campaign`.
+        plan: its :class:`~pesflow.plan.expand.Plan` (checked to be of the same campaign).
+        points: :func:`pesflow.tables.points.points_table` of the campaign (all columns).
+        summary: :func:`pesflow.tables.summary.summary_table` of the campaign.
         basis_counts: optional ``{(molecule, basis): n_basis_functions}``; default: computed
-            with :func:`pesflow.cost.basis_function_counts`, and only when some method was
+            with :func:`pesflow.plan.cost.basis_function_counts`, and only when some method was
             run with two or more basis sets.
 
     Nothing is computed except table arithmetic; every deviation from the reference level is

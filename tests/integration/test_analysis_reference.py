@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 from pesflow.analysis.curves import analyze_curve
-from pesflow.analysis.summary import summarize_curve
+from pesflow.analysis.derived import summarize_curve
 from pesflow.analysis.vibration import reduced_mass_amu
 from pesflow.units import BOHR_ANGSTROM, HARTREE_TO_KCAL_MOL, isotope_mass
 

@@ -9,10 +9,11 @@ import json
 import numpy as np
 import pytest
 
-from pesflow import batch, keys
 from pesflow.engine import EngineSettings
-from pesflow.plan import engine_version
-from pesflow.store import PointStore
+from pesflow.execution import batch
+from pesflow.plan import keys
+from pesflow.plan.expand import engine_version
+from pesflow.store.point_store import PointStore
 
 pytestmark = pytest.mark.integration
 

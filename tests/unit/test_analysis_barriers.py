@@ -12,7 +12,7 @@ from pesflow.analysis.barriers import (
     torsion_barrier,
 )
 from pesflow.analysis.curves import analyze_curve
-from pesflow.analysis.summary import summarize_curve
+from pesflow.analysis.derived import summarize_curve
 from pesflow.units import HARTREE_TO_KCAL_MOL, convert_energy
 from tests.unit.test_analysis_curves import D_E_HARTREE, R_E_ANGSTROM, morse
 

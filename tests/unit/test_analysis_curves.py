@@ -11,7 +11,7 @@ from pesflow.analysis.curves import (
     prepare_curve,
     wrap_degrees,
 )
-from pesflow.analysis.summary import SUMMARY_COLUMNS, summarize_curve
+from pesflow.analysis.derived import SUMMARY_COLUMNS, summarize_curve
 from pesflow.units import AMU_TO_ME, ANGSTROM_BOHR, HARTREE_TO_CM1, isotope_mass
 
 # Hydrogen fluoride, Huber & Herzberg, Constants of Diatomic Molecules (1979) (values from

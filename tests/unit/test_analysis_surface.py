@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from pesflow.analysis.summary import summarize_surface
+from pesflow.analysis.derived import summarize_surface
 from pesflow.analysis.surface import (
     connecting_barrier,
     find_minima,

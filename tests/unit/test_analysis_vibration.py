@@ -7,7 +7,7 @@ import pytest
 import scipy.constants as sc
 
 from pesflow.analysis.curves import analyze_curve
-from pesflow.analysis.summary import ONE_D_FLAG, RESTRICTED_FLAG, summarize_curve
+from pesflow.analysis.derived import ONE_D_FLAG, RESTRICTED_FLAG, summarize_curve
 from pesflow.analysis.vibration import (
     HARTREE_BOHR2_TO_MDYN_ANGSTROM,
     analyze_stretch,

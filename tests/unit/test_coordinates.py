@@ -13,7 +13,7 @@ import ase.build
 import numpy as np
 import pytest
 
-from pesflow.coordinates import (
+from pesflow.coordinates.geometry import (
     KINDS,
     UNITS,
     CoordinateError,

@@ -4,7 +4,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pesflow import cost
+from pesflow.plan import cost
 
 
 def table(rows):

@@ -14,7 +14,7 @@ import pytest
 import scipy.constants as sc
 from ase.collections import g2
 
-from pesflow.molecules import (
+from pesflow.campaign.molecules import (
     DEUTERIUM_MASS_DALTON,
     TRITIUM_MASS_DALTON,
     builtin_names,

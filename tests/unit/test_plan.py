@@ -5,9 +5,10 @@ from pathlib import Path
 
 import numpy as np
 
-from pesflow import coordinates, keys
-from pesflow.plan import expand, make_batches, points_frame
-from pesflow.spec import load_campaign
+from pesflow.campaign.spec import load_campaign
+from pesflow.coordinates import geometry as coordinates
+from pesflow.plan import keys
+from pesflow.plan.expand import expand, make_batches, points_frame
 
 SPEC = """\
 campaign: plan-test

@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pesflow.analysis.summary import ONE_D_FLAG, RESTRICTED_FLAG
+from pesflow.analysis.derived import ONE_D_FLAG, RESTRICTED_FLAG
 from pesflow.report.stats import closest_levels, error_statistics, level_statistics
 from pesflow.report.tables import cardinal_number, flag_concerns, split_flags
 
@@ -110,7 +110,7 @@ def test_closest_level_is_the_smallest_mean_absolute_deviation():
 
 
 def test_split_flags_splits_on_the_separator_only():
-    from pesflow.analysis.summary import FLAG_SEPARATOR
+    from pesflow.analysis.derived import FLAG_SEPARATOR
 
     warnings = [
         "only 0 vibrational level(s) converged within the scanned range (0.75-1.25 A; "

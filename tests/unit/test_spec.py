@@ -11,9 +11,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from pesflow.campaign.spec import json_schema, load_campaign
 from pesflow.cli import main
 from pesflow.errors import SpecError
-from pesflow.spec import json_schema, load_campaign
 
 GOOD = """\
 campaign: unit-spec

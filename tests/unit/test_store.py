@@ -21,7 +21,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from pesflow.errors import StoreError
-from pesflow.store import POINT_SCHEMA, SCHEMA_VERSION, PointStore, make_record
+from pesflow.store.point_store import POINT_SCHEMA, SCHEMA_VERSION, PointStore, make_record
 
 
 def point_key(label) -> str:

@@ -16,7 +16,7 @@ from pathlib import Path
 
 import pyarrow as pa
 
-from pesflow.store import PointStore
+from pesflow.store.point_store import PointStore
 from tests.unit.test_store import assert_tables_equal, point_record, records_table
 
 N_WRITERS = 4
@@ -113,7 +113,7 @@ def test_parallel_writers_with_compaction_lose_nothing(tmp_path):
 
 KILLED_CHILD = """
 import sys
-from pesflow.store import PointStore
+from pesflow.store.point_store import PointStore
 from tests.unit.test_store import point_record
 store = PointStore(sys.argv[1])
 if sys.argv[2] == "write":

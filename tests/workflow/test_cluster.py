@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from pesflow.store import PointStore
+from pesflow.store.point_store import PointStore
 from tests.workflow.helpers import SMALL_CAMPAIGN, pesflow
 
 REPO = Path(__file__).resolve().parents[2]

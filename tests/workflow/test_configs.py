@@ -5,9 +5,9 @@ from pathlib import Path
 
 import pytest
 
-from pesflow import run as runner
-from pesflow.plan import expand, make_batches
-from pesflow.spec import load_campaign
+from pesflow.campaign.spec import load_campaign
+from pesflow.execution import driver as runner
+from pesflow.plan.expand import expand, make_batches
 
 CONFIGS = sorted((Path(__file__).resolve().parents[2] / "configs").glob("*.yaml"))
 

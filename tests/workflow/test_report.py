@@ -20,13 +20,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pesflow.plan import expand
+from pesflow.campaign.spec import load_campaign
+from pesflow.plan.expand import expand
 from pesflow.report import build_report, terminal_summary
 from pesflow.report.tables import QUANTITY, fmt_dev, split_flags
-from pesflow.results import points_table
-from pesflow.spec import load_campaign
-from pesflow.store import PointStore, make_record
-from pesflow.summary import summary_table
+from pesflow.store.point_store import PointStore, make_record
+from pesflow.tables.points import points_table
+from pesflow.tables.summary import summary_table
 from tests.workflow.helpers import pesflow
 
 pytestmark = [

@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pesflow.store import PointStore
+from pesflow.store.point_store import PointStore
 from tests.workflow.helpers import SMALL_CAMPAIGN, direct_energy, pesflow
 
 pytestmark = [pytest.mark.workflow, pytest.mark.integration]
@@ -173,7 +173,7 @@ def test_failed_point_is_recorded_and_exit_code_is_1(tmp_path):
 
 def test_second_run_of_same_campaign_is_refused(tmp_path):
     from pesflow.errors import RunError
-    from pesflow.run import RunLock
+    from pesflow.execution.driver import RunLock
 
     spec = tmp_path / "small.yaml"
     spec.write_text(SMALL)
@@ -190,7 +190,7 @@ def test_second_run_of_same_campaign_is_refused(tmp_path):
 
 def test_snakemake_lint_and_dry_run(tmp_path):
     """The shipped workflow passes `snakemake --lint` and a dry run with a real config."""
-    from pesflow.run import RunOptions, snakemake_command
+    from pesflow.execution.driver import RunOptions, snakemake_command
 
     wd = tmp_path / "wd"
     (wd / "tasks").mkdir(parents=True)

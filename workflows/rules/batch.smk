@@ -1,5 +1,5 @@
 # One batch = an ordered walk of single points at one basis and SCF family.
-# Each finished point is written to the store by pesflow.batch; the done marker
+# Each finished point is written to the store by pesflow.execution.batch; the done marker
 # only tells Snakemake that the job ended.
 
 
@@ -17,5 +17,5 @@ rule batch:
         mem_mb=get_mem_mb(),
         runtime=get_runtime_min(),
     shell:
-        'OMP_NUM_THREADS={threads} "{params.python}" -m pesflow.batch {input.task} {output.done} '
+        'OMP_NUM_THREADS={threads} "{params.python}" -m pesflow.execution.batch {input.task} {output.done} '
         "--threads {threads} --max-memory-mb {resources.mem_mb} > {log} 2>&1"

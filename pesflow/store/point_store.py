@@ -63,7 +63,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from pesflow.errors import StoreError
-from pesflow.fileio import TMP_PREFIX, atomic_path, atomic_write, fsync_dir
+from pesflow.formats.atomic import TMP_PREFIX, atomic_path, atomic_write, fsync_dir
 
 __all__ = [
     "POINT_SCHEMA",

@@ -1,7 +1,7 @@
 """Pure expansion of a campaign into points and batches (no I/O, no Snakemake).
 
 A *point* is one geometry at one level of theory; its key is a content hash
-(:mod:`pesflow.keys`).  A *geometry set* is the walk of one scan for one
+(:mod:`pesflow.plan.keys`).  A *geometry set* is the walk of one scan for one
 molecule (or a molecule's fragments for dissociation energies).  A *batch* is
 the unit of one Snakemake job: an ordered walk along part of one geometry set at
 one basis set and one SCF family (all wavefunction methods share one SCF per
@@ -21,8 +21,9 @@ from importlib.metadata import version as _dist_version
 import numpy as np
 import pandas as pd
 
-from pesflow import coordinates, keys
+from pesflow.coordinates import geometry as coordinates
 from pesflow.engine import scf_family
+from pesflow.plan import keys
 
 #: Methods whose points are made from one shared SCF, in the order they are computed.
 _METHOD_ORDER = {"hf": 0, "mp2": 1, "ccsd": 2, "ccsd(t)": 3}
@@ -203,7 +204,7 @@ def point_settings_key(settings, method, gs) -> dict:
 
 
 def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
-    """Expand a validated :class:`~pesflow.spec.Campaign` into every point.
+    """Expand a validated :class:`~pesflow.campaign.spec.Campaign` into every point.
 
     Returns a :class:`Plan`; geometries are computed with vectorised rigid
     displacements and rounded to the key precision.
@@ -304,7 +305,7 @@ def make_batches(
     geometries per chunk and never above ``max_points_per_batch`` (so that a job
     stays well inside a cluster's time limit and a long walk is spread over nodes).
     ``size_weight`` maps (molecule, basis) to the estimated seconds of one SCF point
-    (:func:`pesflow.cost.size_weights`), so that chunks of a walk in a large basis are
+    (:func:`pesflow.plan.cost.size_weights`), so that chunks of a walk in a large basis are
     cut shorter than those in a small one, and no chunk holds less than
     :data:`MIN_BATCH_S` of work unless its walk does.
     """

@@ -27,15 +27,15 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from pesflow.errors import RunError
-from pesflow.fileio import atomic_write
+from pesflow.formats.atomic import atomic_write
 
 GRACE_S = 20.0
 
 
 def workflow_dir() -> Path:
     """Folder of the Snakefile (the repository's ``workflows/``, or the installed copy)."""
-    here = Path(__file__).resolve().parent
-    for candidate in (here.parent / "workflows", here / "workflows"):
+    package = Path(__file__).resolve().parents[1]  # pesflow/
+    for candidate in (package.parent / "workflows", package / "workflows"):
         if (candidate / "Snakefile").exists():
             return candidate
     raise RunError("cannot find the pesflow workflow (workflows/Snakefile); reinstall pesflow")
@@ -62,8 +62,8 @@ def workdir(campaign) -> Path:
 
 def task_dict(plan, batch, store_root, recompute=()) -> dict:
     """The task file content of one batch (everything the worker needs)."""
-    from pesflow.batch import TASK_FORMAT, TASK_VERSION
-    from pesflow.plan import relax_key
+    from pesflow.execution.batch import TASK_FORMAT, TASK_VERSION
+    from pesflow.plan.expand import relax_key
 
     gs = plan.geometry_sets[batch.set_id]
     keys = {k for _, methods in batch.entries for k in methods.values()}

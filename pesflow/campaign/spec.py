@@ -571,7 +571,7 @@ class _Errors:
 
 
 def _resolve_molecule(name, spec: MoleculeSpec, base: Path, err) -> Molecule:
-    from pesflow import molecules as mol
+    from pesflow.campaign import molecules as mol
 
     loc = ("molecules", name)
     try:
@@ -681,7 +681,7 @@ def _check_values(kind, values, loc, err):
 
 
 def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
-    from pesflow import coordinates as coords
+    from pesflow.coordinates import geometry as coords
 
     loc = ("scans", name)
     for i, mname in enumerate(spec.molecules):
@@ -840,7 +840,7 @@ def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
 def _check_reference_values(spec: CampaignSpec, err) -> None:
     if not spec.compare.reference_values:
         return  # (the summary module is heavy to import; only load it when needed)
-    from pesflow.summary import DEVIATION_COLUMNS
+    from pesflow.tables.summary import DEVIATION_COLUMNS
 
     for i, ref in enumerate(spec.compare.reference_values):
         loc = ("compare", "reference_values", i)

@@ -1,7 +1,7 @@
 """Run one batch: an ordered walk of single points, each made durable at once.
 
-This is what one Snakemake job executes (``python -m pesflow.batch TASK DONE``).
-A batch reads its task file (written by :func:`pesflow.run.write_tasks`), skips
+This is what one Snakemake job executes (``python -m pesflow.execution.batch TASK DONE``).
+A batch reads its task file (written by :func:`pesflow.execution.driver.write_tasks`), skips
 every point already in the store, computes the rest in walk order with each
 point starting from its neighbour's converged density, and writes one store
 record per point as soon as it is finished.  A killed batch therefore loses
@@ -30,9 +30,9 @@ from pathlib import Path
 
 import numpy as np
 
-from pesflow.fileio import atomic_write
+from pesflow.formats.atomic import atomic_write
 
-log = logging.getLogger("pesflow.batch")
+log = logging.getLogger("pesflow.execution.batch")
 
 TASK_FORMAT = "pesflow-batch"
 TASK_VERSION = 1
@@ -42,7 +42,7 @@ LOWER_BY_HARTREE = 1e-7
 
 
 def read_task(path) -> dict:
-    """Read a batch task file written by :func:`pesflow.run.write_tasks`."""
+    """Read a batch task file written by :func:`pesflow.execution.driver.write_tasks`."""
     task = json.loads(Path(path).read_text())
     if task.get("format") != TASK_FORMAT or task.get("version") != TASK_VERSION:
         raise ValueError(f"{path}: not a pesflow batch task of version {TASK_VERSION}")
@@ -84,7 +84,7 @@ class _Walk:
 
     def __init__(self, task, threads, max_memory_mb=None):
         from pesflow.engine import EngineSettings, get_engine
-        from pesflow.store import PointStore
+        from pesflow.store.point_store import PointStore
 
         self.task = task
         self.engine = get_engine(task["engine"])
@@ -139,7 +139,7 @@ class _Walk:
     def start_from(self, point, previous_positions):
         """The neighbour's relaxed geometry with the scan coordinates set to this point's
         values (the planned rigid geometry if that fails)."""
-        from pesflow import coordinates
+        from pesflow.coordinates import geometry as coordinates
 
         if previous_positions is None:
             return np.asarray(point["positions"], dtype=float)
@@ -167,7 +167,7 @@ class _Walk:
             return {m: _failure(m, message) for m in methods}, None
 
     def key(self, point, method):
-        from pesflow import keys
+        from pesflow.plan import keys
 
         if method in point["keys"]:
             return point["keys"][method]
@@ -185,7 +185,7 @@ class _Walk:
         )
 
     def write(self, point, result, positions=None):
-        from pesflow.store import make_record
+        from pesflow.store.point_store import make_record
 
         task = self.task
         self.store.write(
@@ -387,7 +387,8 @@ def run_batch(
 
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(
-        prog="python -m pesflow.batch", description="Run one pesflow batch (used by Snakemake)."
+        prog="python -m pesflow.execution.batch",
+        description="Run one pesflow batch (used by Snakemake).",
     )
     parser.add_argument("task", help="batch task JSON")
     parser.add_argument("done", help="done marker to write")

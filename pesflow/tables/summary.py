@@ -1,6 +1,6 @@
 """The summary table: one row per curve (molecule x scan x level) of derived quantities.
 
-Takes the points table (:func:`pesflow.results.points_table`) and hands each
+Takes the points table (:func:`pesflow.tables.points.points_table`) and hands each
 curve's arrays to the pure functions of :mod:`pesflow.analysis`.  Masses are
 the exact masses of the most abundant isotopes, with the spec's per-atom
 overrides.  For a bond of a diatomic the reduced mass gives omega_e; for a
@@ -15,8 +15,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from pesflow.analysis.summary import summarize_curve, summarize_surface
-from pesflow.plan import coordinate_columns
+from pesflow.analysis.derived import summarize_curve, summarize_surface
+from pesflow.plan.expand import coordinate_columns
 
 #: Quantities that get a deviation column against the reference level.
 DEVIATION_COLUMNS = (

@@ -1,0 +1,2 @@
+"""Scan coordinates: the registry of coordinate kinds and the geometry that measures and
+displaces them."""

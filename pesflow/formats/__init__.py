@@ -1,0 +1,1 @@
+"""File formats in one place: atomic writes, extended XYZ export."""

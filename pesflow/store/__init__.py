@@ -1,0 +1,1 @@
+"""Stage 5, the store: one durable Parquet record per point, keyed by content."""
