@@ -35,6 +35,7 @@ from pydantic import (
 )
 from pydantic_core import PydanticCustomError
 
+from pesflow.coordinates.kinds import KINDS
 from pesflow.errors import EngineSetupError, SpecError
 
 NAME_PATTERN = r"^[a-z0-9][a-z0-9_-]*$"
@@ -105,7 +106,7 @@ class MoleculeSpec(_Strict):
 class CoordinateSpec(_Strict):
     """One scan coordinate: ``from``/``to`` with ``points`` or ``step``, or ``values``."""
 
-    type: Literal["distance", "angle", "dihedral"]
+    type: Literal[tuple(KINDS)]  # type: ignore[valid-type]  # the coordinate-kind registry
     atoms: list[int]
     from_: float | None = Field(default=None, alias="from")
     to: float | None = None
@@ -669,15 +670,9 @@ def _resolve_molecule(name, spec: MoleculeSpec, base: Path, err) -> Molecule:
 
 
 def _check_values(kind, values, loc, err):
-    if kind == "distance" and np.any(values <= 0):
-        raise err(
-            loc, f"distances must be positive (got {values.min():g}); lengths are in angstrom"
-        )
-    if kind == "angle" and (np.any(values <= 0) or np.any(values > 180)):
-        bad = values[(values <= 0) | (values > 180)][0]
-        raise err(loc, f"angle {bad:g} is outside the allowed range 0 < angle <= 180 degrees")
-    if kind == "dihedral" and (np.any(values < -360) or np.any(values > 360)):
-        raise err(loc, "dihedral angles must lie within -360..360 degrees")
+    problem = KINDS[kind].range_problem(values)
+    if problem:
+        raise err(loc, problem)
 
 
 def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
@@ -696,7 +691,7 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
     resolved = []
     for c, cspec in enumerate(spec.coordinates):
         cloc = loc + ("coordinates", c)
-        need = coords.KINDS[cspec.type]
+        need = KINDS[cspec.type].n_atoms
         if len(cspec.atoms) != need:
             raise err(
                 cloc + ("atoms",), f"a {cspec.type} takes {need} atoms (got {len(cspec.atoms)})"

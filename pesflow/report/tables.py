@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from pesflow.plan.expand import coordinate_columns
+from pesflow.coordinates.kinds import column_names
 from pesflow.report.stats import level_statistics
 from pesflow.tables.points import status_counts
 
@@ -604,7 +604,7 @@ def curve_arrays(campaign, points: pd.DataFrame, molecule: str, scan: str, level
     (k = 1 or 2), energies NaN where not done, ``status`` the points' status strings.
     """
     kinds = tuple(c.kind for c in campaign.scans[scan].coordinates)
-    cols = coordinate_columns(kinds)
+    cols = column_names(kinds)
     sub = points[
         (points["molecule"] == molecule) & (points["scan"] == scan) & (points["level"] == level)
     ]

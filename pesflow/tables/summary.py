@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 
 from pesflow.analysis.derived import summarize_curve, summarize_surface
-from pesflow.plan.expand import coordinate_columns
+from pesflow.coordinates.kinds import column_names
 
 #: Quantities that get a deviation column against the reference level.
 DEVIATION_COLUMNS = (
@@ -73,7 +73,7 @@ def _stretch_mass(campaign, molecule, scan):
 
 def _curve_row(campaign, gs, sub, table):
     kind = gs.coordinate_kinds[0]
-    column = coordinate_columns(gs.coordinate_kinds)[0]
+    column = column_names(gs.coordinate_kinds)[0]
     sub = sub.sort_values("walk")
     energies = np.where(sub["status"] == "done", sub["energy_hartree"], np.nan).astype(float)
     refs = set(sub.loc[sub["status"] == "done", "reference"].dropna())
