@@ -13,7 +13,6 @@ import ase.build
 import numpy as np
 import pytest
 
-from pesflow.coordinates.kinds import KINDS
 from pesflow.coordinates.geometry import (
     CoordinateError,
     apply_grid,
@@ -23,6 +22,7 @@ from pesflow.coordinates.geometry import (
     measure_many,
     moving_atoms,
 )
+from pesflow.coordinates.kinds import KINDS
 
 # Chains without rings, from ASE's g2 set, and the g2 molecules with rings.
 CHAINS = ["H2O", "NH3", "CH3CH2OH", "H2O2", "CH3OH", "butadiene", "trans-butane"]
