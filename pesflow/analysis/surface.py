@@ -46,6 +46,7 @@ from scipy.sparse.csgraph import breadth_first_order, minimum_spanning_tree
 
 from pesflow.analysis.barriers import ENERGY_UNITS
 from pesflow.analysis.curves import _degree_for, covers_full_circle, wrap_degrees
+from pesflow.analysis.flags import Flag
 from pesflow.units import convert_energy
 
 
@@ -229,7 +230,11 @@ def prepare_surface(
     if surface.n_failed:
         e = _fill_failed(u_axes, e, per, periods_u, order)
         surface.energy_hartree = e
-        surface.notes.append(f"{surface.n_failed} failed grid point(s) filled by interpolation")
+        surface.notes.append(
+            Flag(
+                "failed-points", f"{surface.n_failed} failed grid point(s) filled by interpolation"
+            )
+        )
     k = [_degree_for(len(q[ax]), order, per[ax]) for ax in (0, 1)]
     kk = min(k)
     s1 = _axis_spline(u_axes[0], e, kk, per[0], periods_u[0], axis=0)

@@ -327,12 +327,11 @@ class Coordinate:
 
     @property
     def unit(self) -> str:
-        return "angstrom" if self.kind == "distance" else "degree"
+        return KINDS[self.kind].unit
 
     @property
     def label(self) -> str:
-        symbol = {"distance": "r", "angle": "angle", "dihedral": "dihedral"}[self.kind]
-        return f"{symbol}({'-'.join(str(i + 1) for i in self.atoms)})"
+        return f"{KINDS[self.kind].stem}({'-'.join(str(i + 1) for i in self.atoms)})"
 
 
 @dataclass
@@ -835,7 +834,7 @@ def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
 def _check_reference_values(spec: CampaignSpec, err) -> None:
     if not spec.compare.reference_values:
         return  # (the summary module is heavy to import; only load it when needed)
-    from pesflow.tables.summary import DEVIATION_COLUMNS
+    from pesflow.analysis.quantities import COMPARED
 
     for i, ref in enumerate(spec.compare.reference_values):
         loc = ("compare", "reference_values", i)
@@ -855,10 +854,10 @@ def _check_reference_values(spec: CampaignSpec, err) -> None:
             raise err(
                 loc + ("scan",), f"scan '{ref.scan}' does not include molecule '{ref.molecule}'"
             )
-        if ref.quantity not in DEVIATION_COLUMNS:
+        if ref.quantity not in COMPARED:
             raise err(
                 loc + ("quantity",),
-                f"unknown quantity '{ref.quantity}'; allowed: {', '.join(DEVIATION_COLUMNS)}",
+                f"unknown quantity '{ref.quantity}'; allowed: {', '.join(COMPARED)}",
             )
 
 

@@ -172,9 +172,11 @@ class _Notes:
         self.prefix = prefix
         self.items: dict[str, list[str]] = {}
 
-    def mark(self, flags: str, where: str) -> Markup:
+    def mark(self, flags, where: str) -> Markup:
+        """Footnote marks for ``flags`` (the :class:`~pesflow.analysis.flags.Flag` objects that
+        concern one cell), each numbered once per distinct message."""
         out = []
-        for flag in (f for f in flags.split(" | ") if f):
+        for flag in dict.fromkeys(str(f) for f in flags):
             self.items.setdefault(flag, [])
             if where not in self.items[flag]:
                 self.items[flag].append(where)
