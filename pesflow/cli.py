@@ -189,7 +189,7 @@ def _print_status(campaign, plan, store, show_failed=10) -> tuple[int, int, int]
     from pesflow.tables.points import STATUS_COLUMNS, failed_points, points_table, status_counts
 
     table = points_table(plan, store, columns=STATUS_COLUMNS)
-    counts = status_counts(table)
+    counts = status_counts(table, list(campaign.molecules), [lvl.label for lvl in campaign.levels])
     out = Table(title=f"campaign {campaign.name}: status", title_justify="left")
     for col in ("molecule", "level", "done", "failed", "pending"):
         out.add_column(col, justify="left" if col in ("molecule", "level") else "right")

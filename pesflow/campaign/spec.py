@@ -17,7 +17,10 @@ hartree; atoms are numbered from 1, as chemists write them.
 
 from __future__ import annotations
 
+import difflib
+import functools
 import json
+import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -29,6 +32,7 @@ from pydantic import (
     BaseModel,
     ConfigDict,
     Field,
+    FiniteFloat,
     ValidationError,
     field_validator,
     model_validator,
@@ -43,6 +47,27 @@ _NAME_HELP = "lower-case letters, digits, '_' and '-', starting with a letter or
 
 #: Smallest distance (angstrom) two atoms of an input geometry may have.
 MIN_ATOM_DISTANCE_ANGSTROM = 0.5
+
+#: Most points one campaign may plan (scan grid x molecules x levels, summed over scans), and
+#: most values of one coordinate or one grid.  Planning holds every point's geometry and key
+#: in memory (about 5 kB a point) and takes about 4 s per 100,000 points (benchmarks/
+#: bench_plan.py), so 200,000 points is twice the benchmarked campaign; a larger study is
+#: split into several campaigns that share one store.  Checked before any array is built.
+MAX_POINTS = 200_000
+
+
+def did_you_mean(word, choices, n=3) -> str:
+    """``" (did you mean 'x'?)"`` naming the closest of ``choices`` to ``word``, or ``""``.
+
+    >>> did_you_mean("pionts", ["points", "step", "values"])
+    " (did you mean 'points'?)"
+    """
+    close = difflib.get_close_matches(str(word), [str(c) for c in choices], n=n)
+    if not close:
+        return ""
+    quoted = [f"'{c}'" for c in close]
+    listed = quoted[0] if len(quoted) == 1 else ", ".join(quoted[:-1]) + " or " + quoted[-1]
+    return f" (did you mean {listed}?)"
 
 
 # ---------------------------------------------------------------------------
@@ -66,8 +91,12 @@ class _Strict(BaseModel):
                 if key not in allowed and key not in cls.model_fields:
                     raise PydanticCustomError(
                         "unknown_key",
-                        "unknown key '{key}'; allowed: {allowed}",
-                        {"key": str(key), "allowed": ", ".join(allowed)},
+                        "unknown key '{key}'{hint}; allowed: {allowed}",
+                        {
+                            "key": str(key),
+                            "hint": did_you_mean(key, allowed),
+                            "allowed": ", ".join(allowed),
+                        },
                     )
         return data
 
@@ -108,11 +137,11 @@ class CoordinateSpec(_Strict):
 
     type: Literal[tuple(KINDS)]  # type: ignore[valid-type]  # the coordinate-kind registry
     atoms: list[int]
-    from_: float | None = Field(default=None, alias="from")
-    to: float | None = None
+    from_: FiniteFloat | None = Field(default=None, alias="from")
+    to: FiniteFloat | None = None
     points: int | None = None
-    step: float | None = None
-    values: list[float] | None = None
+    step: FiniteFloat | None = None
+    values: list[FiniteFloat] | None = None
     move: list[int] | None = None
 
     @model_validator(mode="after")
@@ -157,6 +186,15 @@ class CoordinateSpec(_Strict):
                     {"step": self.step, "lo": self.from_, "hi": self.to},
                 )
         return self
+
+    def n_values(self) -> float:
+        """How many values :meth:`grid_values` gives, without building them (a float, so
+        that an absurd ``points`` or ``step`` is counted, not allocated)."""
+        if self.values is not None:
+            return float(len(self.values))
+        if self.points is not None:
+            return float(self.points)
+        return math.floor(abs(self.to - self.from_) / self.step + 1e-9) + 1.0
 
     def grid_values(self) -> np.ndarray:
         """The scan values in walk order (angstrom or degree)."""
@@ -522,7 +560,9 @@ def _message(err: dict) -> tuple[tuple, str]:
     if kind == "missing":
         return loc, "this key is required"
     if kind == "literal_error":
-        return loc, f"got {err.get('input')!r}; {err['msg'].lower()}"
+        allowed = re.findall(r"'([^']*)'", str(ctx.get("expected", "")))
+        hint = did_you_mean(err.get("input"), allowed)
+        return loc, f"got {err.get('input')!r}{hint}; {err['msg'].lower()}"
     # Union errors repeat the location with the member type; keep the first, plainest.
     loc = tuple(
         p
@@ -668,6 +708,14 @@ def _resolve_molecule(name, spec: MoleculeSpec, base: Path, err) -> Molecule:
     )
 
 
+def _too_many(what: str) -> str:
+    return (
+        f"{what}; at most {MAX_POINTS:,} points are allowed (planning holds every point in "
+        "memory); use fewer points or a larger step, or split the study into several "
+        "campaigns that share one store"
+    )
+
+
 def _check_values(kind, values, loc, err):
     problem = KINDS[kind].range_problem(values)
     if problem:
@@ -683,7 +731,8 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
             defined = ", ".join(sorted(molecules))
             raise err(
                 loc + ("molecules", i),
-                f"molecule '{mname}' is not defined under molecules; defined: {defined}",
+                f"molecule '{mname}' is not defined under molecules"
+                f"{did_you_mean(mname, molecules)}; defined: {defined}",
             )
     if len(set(spec.molecules)) != len(spec.molecules):
         raise err(loc + ("molecules",), "a molecule is listed twice")
@@ -697,11 +746,24 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
             )
         if len(set(cspec.atoms)) != len(cspec.atoms):
             raise err(cloc + ("atoms",), "an atom is listed twice")
+        count = cspec.n_values()
+        if count > MAX_POINTS:
+            given = "values" if cspec.values is not None else "points" if cspec.points else "step"
+            raise err(cloc + (given,), _too_many(f"this coordinate has {count:,.0f} values"))
+        if cspec.values is not None:
+            for v, value in enumerate(cspec.values):
+                _check_values(cspec.type, [value], cloc + ("values", v), err)
+        else:
+            _check_values(cspec.type, [cspec.from_], cloc + ("from",), err)
+            _check_values(cspec.type, [cspec.to], cloc + ("to",), err)
         values = cspec.grid_values()
-        field_name = "values" if cspec.values is not None else "to"
-        _check_values(cspec.type, values, cloc + (field_name,), err)
         resolved.append(
             Coordinate(kind=cspec.type, atoms=tuple(a - 1 for a in cspec.atoms), values=values)
+        )
+    if len(resolved) == 2 and len(resolved[0].values) * len(resolved[1].values) > MAX_POINTS:
+        n1, n2 = (len(co.values) for co in resolved)
+        raise err(
+            loc + ("coordinates",), _too_many(f"this grid has {n1} x {n2} = {n1 * n2:,} points")
         )
     moving = {}
     for mname in spec.molecules:
@@ -726,25 +788,34 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
                             f"'{mname}', which has atoms 1-{n}",
                         )
                 move = [a - 1 for a in cspec.move]
+            if coord.kind == "dihedral":
+                problem = coords.undefined_dihedral(
+                    [atoms.positions[i] for i in coord.atoms], coord.atoms
+                )
+                if problem:
+                    raise err(cloc + ("atoms",), f"molecule '{mname}': {problem}")
             try:
                 per.append(coords.moving_atoms(atoms, coord.kind, coord.atoms, move=move))
             except ValueError as exc:
                 raise err(
                     cloc + ("move" if move is not None else "atoms",), f"molecule '{mname}': {exc}"
                 ) from None
+        # Trial geometries at the ends of the range (the corners of a grid) catch coupled
+        # coordinates and undefined dihedrals before anything runs.
         if len(resolved) == 2:
-            # A trial grid corner catches coupled coordinates before anything runs.
             corners = np.array(
                 [[resolved[0].values[i], resolved[1].values[j]] for i in (0, -1) for j in (0, -1)]
             )
-            try:
-                coords.apply_grid(
-                    atoms.get_positions(),
-                    [(co.kind, co.atoms, mv) for co, mv in zip(resolved, per)],
-                    corners,
-                )
-            except ValueError as exc:
-                raise err(loc + ("coordinates",), f"molecule '{mname}': {exc}") from None
+        else:
+            corners = resolved[0].values[[0, -1], None]
+        try:
+            coords.apply_grid(
+                atoms.get_positions(),
+                [(co.kind, co.atoms, mv) for co, mv in zip(resolved, per)],
+                corners,
+            )
+        except ValueError as exc:
+            raise err(loc + ("coordinates",), f"molecule '{mname}': {exc}") from None
         moving[mname] = per
     return Scan(
         name=name,
@@ -764,7 +835,8 @@ def _resolve_level_list(lspecs, loc, elements, err, checked_basis) -> list[Level
             try:
                 method_c = engine.canonical_method(method)
             except EngineSetupError as exc:
-                raise err(loc + (i, "method"), str(exc)) from None
+                hint = did_you_mean(str(method).strip().lower(), _method_names())
+                raise err(loc + (i, "method"), _with_hint(str(exc), hint)) from None
             basis_c = basis.strip().lower()
             for element in elements:
                 if (basis_c, element) not in checked_basis:
@@ -772,7 +844,7 @@ def _resolve_level_list(lspecs, loc, elements, err, checked_basis) -> list[Level
                         engine.check_basis(basis_c, [element])
                         checked_basis[(basis_c, element)] = None
                     except EngineSetupError as exc:
-                        checked_basis[(basis_c, element)] = str(exc)
+                        checked_basis[(basis_c, element)] = str(exc) + _basis_hint(basis_c)
                 if checked_basis[(basis_c, element)] is not None:
                     raise err(loc + (i, "basis"), checked_basis[(basis_c, element)])
             level = Level(method_c, basis_c)
@@ -780,6 +852,62 @@ def _resolve_level_list(lspecs, loc, elements, err, checked_basis) -> list[Level
                 raise err(loc + (i,), f"level {level.label} is listed twice")
             levels.append(level)
     return levels
+
+
+def _with_hint(message: str, hint: str) -> str:
+    """``message`` with a did-you-mean ``hint`` placed before its list of what is allowed."""
+    if not hint:
+        return message
+    for sep in ("; allowed", ": use one of"):
+        if sep in message:
+            head, tail = message.split(sep, 1)
+            return f"{head}{hint}{sep}{tail}"
+    return message + hint
+
+
+@functools.lru_cache(maxsize=1)
+def _method_names() -> tuple[str, ...]:
+    """Method names to suggest from: the wavefunction methods and libxc's functionals."""
+    from pyscf.dft import libxc
+
+    from pesflow.engine import WAVEFUNCTION_METHODS
+
+    names = {*WAVEFUNCTION_METHODS, *(k.lower() for k in libxc.XC_ALIAS)}
+    names |= {k.lower() for k in libxc.XC_CODES}
+    return tuple(sorted(names))
+
+
+def _basis_hint(basis: str) -> str:
+    """Did-you-mean for a basis name, among PySCF's library names (written as PySCF
+    normalises them: lower case without '-', '_' or spaces, which it accepts as given)."""
+    from pyscf.gto import basis as pyscf_basis
+
+    normalised = basis.lower().replace("-", "").replace("_", "").replace(" ", "")
+    if normalised in pyscf_basis.ALIAS:  # a known basis that lacks an element: no guess
+        return ""
+    return did_you_mean(normalised, pyscf_basis.ALIAS)
+
+
+def _check_point_count(spec: CampaignSpec, scans, err) -> None:
+    """Refuse a campaign whose scans x molecules x levels exceed :data:`MAX_POINTS`."""
+    sizes = {
+        name: math.prod(len(c.values) for c in scan.coordinates)
+        * len(scan.molecules)
+        * len(scan.levels)
+        for name, scan in scans.items()
+    }
+    total = sum(sizes.values())
+    if total > MAX_POINTS:
+        largest = max(sizes, key=sizes.get)
+        scan = scans[largest]
+        raise err(
+            ("scans", largest),
+            _too_many(
+                f"the campaign has {total:,} points (this scan: "
+                f"{sizes[largest] // (len(scan.molecules) * len(scan.levels)):,} grid points x "
+                f"{len(scan.molecules)} molecule(s) x {len(scan.levels)} level(s))"
+            ),
+        )
 
 
 def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
@@ -826,7 +954,8 @@ def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
         if ref.strip().lower() not in labels:
             raise err(
                 ("compare", "reference_level"),
-                f"'{ref}' is not one of the levels; allowed: {', '.join(labels)}",
+                f"'{ref}' is not one of the levels{did_you_mean(ref.strip().lower(), labels)}; "
+                f"allowed: {', '.join(labels)}",
             )
     return union
 
@@ -841,14 +970,16 @@ def _check_reference_values(spec: CampaignSpec, err) -> None:
         if ref.molecule not in spec.molecules:
             raise err(
                 loc + ("molecule",),
-                f"molecule '{ref.molecule}' is not defined; "
+                f"molecule '{ref.molecule}' is not defined"
+                f"{did_you_mean(ref.molecule, spec.molecules)}; "
                 f"defined: {', '.join(sorted(spec.molecules))}",
             )
         scan = spec.scans.get(ref.scan)
         if scan is None:
             raise err(
                 loc + ("scan",),
-                f"scan '{ref.scan}' is not defined; defined: {', '.join(sorted(spec.scans))}",
+                f"scan '{ref.scan}' is not defined{did_you_mean(ref.scan, spec.scans)}; "
+                f"defined: {', '.join(sorted(spec.scans))}",
             )
         if ref.molecule not in scan.molecules:
             raise err(
@@ -857,7 +988,9 @@ def _check_reference_values(spec: CampaignSpec, err) -> None:
         if ref.quantity not in COMPARED:
             raise err(
                 loc + ("quantity",),
-                f"unknown quantity '{ref.quantity}'; allowed: {', '.join(COMPARED)}",
+                f"unknown quantity '{ref.quantity}'"
+                f"{did_you_mean(ref.quantity, COMPARED)}; "
+                f"allowed: {', '.join(COMPARED)}",
             )
 
 
@@ -877,6 +1010,7 @@ def load_campaign(path) -> Campaign:
     }
     scans = {name: _resolve_scan(name, s, molecules, err) for name, s in spec.scans.items()}
     levels = _resolve_levels(spec, molecules, scans, err)
+    _check_point_count(spec, scans, err)
     campaign = Campaign(spec=spec, path=path, molecules=molecules, scans=scans, levels=levels)
     for name in [None, *(n for n, s in spec.scans.items() if s.engine is not None)]:
         try:
