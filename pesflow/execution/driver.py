@@ -267,16 +267,16 @@ class RunOutcome:
 class _AllBatchesEnded:
     """Says when every batch of the run has written its done marker, and since when."""
 
-    def __init__(self, done_dir: Path, batches, grace_s: float):
-        self.done_dir, self.grace_s = done_dir, grace_s
+    def __init__(self, done_dir: Path, batches, grace_s: float, look_every_s: float = 2.0):
+        self.done_dir, self.grace_s, self.look_every_s = done_dir, grace_s, look_every_s
         self.wanted = {f"{b}.json" for b in batches}
         self.since = None
         self.next_look = 0.0
 
     def overdue(self) -> bool:
         now = time.monotonic()
-        if now >= self.next_look:  # one directory listing every 2 s at most
-            self.next_look = now + 2.0
+        if now >= self.next_look:  # one directory listing every look_every_s at most
+            self.next_look = now + self.look_every_s
             try:
                 ended = self.wanted <= set(os.listdir(self.done_dir))
             except OSError:

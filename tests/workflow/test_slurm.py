@@ -10,8 +10,8 @@ account, runtime, memory), as a user would.
 References outside pesflow: the same campaign computed by a local ``pesflow run``
 (point for point, to 1e-10 Eh: same code, same geometries, one thread), and SLURM's
 own ``squeue``/``scancel`` for the jobs.  A run waits for the plugin's status checks
-(10 s after submitting, then 20 s later, ...): the first test takes about 30 s, the
-cancel-and-rerun test about 90 s (marked slow).
+(10 s after submitting, then 20 s later, ...): the first test takes about 30 s; the
+cancel-and-rerun test (about 90 s) and the sacct test (about 35 s) are marked slow.
 """
 
 import os
@@ -89,9 +89,13 @@ pytestmark = [
 ]
 
 
-def filled_profile(dest: Path) -> Path:
-    """A copy of the shipped SLURM profile with its EDIT placeholders filled in."""
+def filled_profile(dest: Path, drop: str = "") -> Path:
+    """A copy of the shipped SLURM profile with its EDIT placeholders filled in (and
+    the line ``drop`` deleted, if given)."""
     text = (SLURM_PROFILE / "config.yaml").read_text()
+    if drop:
+        assert drop + "\n" in text
+        text = text.replace(drop + "\n", "")
     memory = int(float(MEMORY_OR_REASON.rstrip("+")))
     account = os.environ.get("PESFLOW_SLURM_ACCOUNT", "pesflow-test")
     edits = {
@@ -239,3 +243,32 @@ def test_scancel_mid_run_then_rerun_computes_only_what_is_missing(tmp_path):
     assert len(new) == missing
     assert all(after[key] >= rerun_start for key in new)
     assert len(stored(tmp_path / "store")) == N_KILL_POINTS
+
+
+@pytest.mark.slow  # a run that only the stuck-run guard ends: about 40 s
+def test_sacct_without_accounting_is_caught_by_the_stuck_run_guard(tmp_path):
+    """The issue the profile's ``squeue`` line fixes, reproduced: with the plugin's
+    default status command (sacct) on a cluster without accounting storage, the jobs
+    end but the plugin never learns it; the guard stops the run, says why, exits 0."""
+    config = _slurm("scontrol", "show", "config") or ""
+    if "accounting_storage/none" not in config:
+        pytest.skip("this cluster has accounting storage: sacct works on it")
+    (tmp_path / "campaign.yaml").write_text(SPEC)
+    profile = filled_profile(tmp_path / "profile", drop="slurm-status-command: squeue")
+    env = dict(os.environ, OMP_NUM_THREADS="1", PESFLOW_STALL_GRACE_S="15")
+    run = subprocess.run(
+        [sys.executable, "-m", "pesflow", "run", "campaign.yaml", "--cores", "2"]
+        + ["--profile", str(profile)],
+        cwd=tmp_path,
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=600,
+    )
+    assert run.returncode == 0, run.stdout + run.stderr
+    assert f"all {N_POINTS} points are stored but the scheduler still reported" in run.stderr
+    assert f"{N_POINTS} done, 0 failed, 0 pending" in run.stdout
+    wd = tmp_path / "results" / "slurm-check" / ".pesflow" / "workflow"
+    log = "\n".join(p.read_text() for p in (wd / "logs").glob("snakemake-*.log"))
+    assert "Finished jobid" not in log  # Snakemake never saw a batch job end
+    assert len(stored(tmp_path / "store")) == N_POINTS
