@@ -43,6 +43,23 @@ GRACE_S = 20.0
 STALL_GRACE_S = 240.0
 
 
+def stall_grace_s() -> float:
+    """The stuck-run grace period: ``PESFLOW_STALL_GRACE_S`` if set, else STALL_GRACE_S."""
+    text = os.environ.get("PESFLOW_STALL_GRACE_S", "").strip()
+    if not text:
+        return STALL_GRACE_S
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not value > 0 or value == float("inf"):
+        raise RunError(
+            f"environment variable PESFLOW_STALL_GRACE_S: {text!r} is not allowed; "
+            "give a number of seconds greater than 0"
+        )
+    return value
+
+
 def workflow_dir() -> Path:
     """Folder of the Snakefile (the repository's ``workflows/``, or the installed copy)."""
     package = Path(__file__).resolve().parents[1]  # pesflow/
@@ -64,9 +81,7 @@ class RunOptions:
     retry_failed: bool = False
     batches_per_core: int = 3
     extra_args: list[str] = field(default_factory=list)
-    stall_grace_s: float = field(
-        default_factory=lambda: float(os.environ.get("PESFLOW_STALL_GRACE_S", STALL_GRACE_S))
-    )
+    stall_grace_s: float = field(default_factory=stall_grace_s)
 
 
 def workdir(campaign) -> Path:

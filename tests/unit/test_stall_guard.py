@@ -4,7 +4,10 @@ end-to-end check is in tests/workflow/test_cluster.py)."""
 
 import time
 
-from pesflow.execution.driver import _AllBatchesEnded
+import pytest
+
+from pesflow.errors import RunError
+from pesflow.execution.driver import STALL_GRACE_S, RunOptions, _AllBatchesEnded
 
 
 def test_guard_waits_for_every_marker_and_then_for_the_grace_period(tmp_path):
@@ -32,3 +35,14 @@ def test_guard_looks_at_the_folder_at_most_once_per_interval(tmp_path):
     (done / "a.json").write_text("{}")
     time.sleep(0.05)
     assert not guard.overdue()  # not looked again within the interval
+
+
+def test_grace_period_from_the_environment(monkeypatch):
+    monkeypatch.delenv("PESFLOW_STALL_GRACE_S", raising=False)
+    assert RunOptions().stall_grace_s == STALL_GRACE_S
+    monkeypatch.setenv("PESFLOW_STALL_GRACE_S", "15")
+    assert RunOptions().stall_grace_s == 15.0
+    for bad in ("soon", "0", "-3", "nan", "inf"):
+        monkeypatch.setenv("PESFLOW_STALL_GRACE_S", bad)
+        with pytest.raises(RunError, match="PESFLOW_STALL_GRACE_S: .* greater than 0"):
+            RunOptions()
