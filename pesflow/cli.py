@@ -286,7 +286,15 @@ def cmd_run(args) -> int:
                     "run the same command again to continue"
                 )
                 return EXIT_INTERRUPTED
-            if outcome.returncode != 0:
+            if outcome.stalled:
+                err_console.print(
+                    f"all {len(pending)} points are stored but the scheduler still reported jobs "
+                    f"running {options.stall_grace_s:.0f} s after the last batch ended, so "
+                    "Snakemake was stopped; the executor's status query may not work on this "
+                    "cluster (see configs/profiles/slurm/README.md)",
+                    soft_wrap=True,
+                )
+            elif outcome.returncode != 0:
                 err_console.print(f"some batch jobs failed; Snakemake's log: {outcome.log_path}")
         if store.exists():
             store.compact()

@@ -12,6 +12,13 @@ markers (left by a kill) are cleared before the run; if one is, the run is
 refused.  Signals: SIGINT, SIGTERM and SIGHUP to the driver are passed to
 Snakemake as SIGINT (which stops its jobs cleanly); if Snakemake has not ended
 after a grace period it is killed.  Every finished point is already durable.
+
+A stuck status query: when every batch of the run has written its done marker (so
+all its points are stored) and Snakemake still has not ended ``stall_grace_s``
+seconds later, the executor is not learning that its jobs ended (e.g. the SLURM
+plugin asking ``sacct`` on a cluster without accounting storage).  Snakemake is then
+stopped as on SIGINT and the outcome says ``stalled``; nothing is lost, since the
+points are in the store before the markers are written.
 """
 
 from __future__ import annotations
@@ -30,6 +37,27 @@ from pesflow.errors import RunError
 from pesflow.formats.atomic import atomic_write
 
 GRACE_S = 20.0
+#: Seconds Snakemake may go on after every batch has ended before the run is stopped as
+#: stuck: longer than the SLURM executor plugin's longest pause between status checks
+#: (180 s).  ``PESFLOW_STALL_GRACE_S`` overrides it.
+STALL_GRACE_S = 240.0
+
+
+def stall_grace_s() -> float:
+    """The stuck-run grace period: ``PESFLOW_STALL_GRACE_S`` if set, else STALL_GRACE_S."""
+    text = os.environ.get("PESFLOW_STALL_GRACE_S", "").strip()
+    if not text:
+        return STALL_GRACE_S
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not value > 0 or value == float("inf"):
+        raise RunError(
+            f"environment variable PESFLOW_STALL_GRACE_S: {text!r} is not allowed; "
+            "give a number of seconds greater than 0"
+        )
+    return value
 
 
 def workflow_dir() -> Path:
@@ -52,6 +80,7 @@ class RunOptions:
     runtime_min_per_batch: int = 600
     batches_per_core: int = 3
     extra_args: list[str] = field(default_factory=list)
+    stall_grace_s: float = field(default_factory=stall_grace_s)
 
 
 def workdir(campaign) -> Path:
@@ -246,6 +275,31 @@ class RunOutcome:
     returncode: int  # Snakemake's exit code
     interrupted: bool
     log_path: Path
+    stalled: bool = False  # stopped: every batch had ended, yet Snakemake kept waiting
+
+
+class _AllBatchesEnded:
+    """Says when every batch of the run has written its done marker, and since when."""
+
+    def __init__(self, done_dir: Path, batches, grace_s: float, look_every_s: float = 2.0):
+        self.done_dir, self.grace_s, self.look_every_s = done_dir, grace_s, look_every_s
+        self.wanted = {f"{b}.json" for b in batches}
+        self.since = None
+        self.next_look = 0.0
+
+    def overdue(self) -> bool:
+        now = time.monotonic()
+        if now >= self.next_look:  # one directory listing every look_every_s at most
+            self.next_look = now + self.look_every_s
+            try:
+                ended = self.wanted <= set(os.listdir(self.done_dir))
+            except OSError:
+                ended = False
+            if not ended:
+                self.since = None
+            elif self.since is None:
+                self.since = now
+        return self.since is not None and now - self.since > self.grace_s
 
 
 def run_snakemake(
@@ -264,6 +318,9 @@ def run_snakemake(
     logs.mkdir(parents=True, exist_ok=True)
     log_path = logs / f"snakemake-{time.strftime('%Y%m%dT%H%M%S')}-{os.getpid()}.log"
     interrupted = {"flag": False, "at": None}
+    batches = json.loads(Path(config_path).read_text()).get("batches", [])
+    ended = _AllBatchesEnded(wd / "done", batches, options.stall_grace_s)
+    stalled = False
     with open(log_path, "w") as log:
         _clear_stale_snakemake_locks(wd, config_path, log)
         log.flush()
@@ -297,6 +354,10 @@ def run_snakemake(
                     pass
                 if on_poll is not None:
                     on_poll()
+                if not stalled and batches and ended.overdue():
+                    stalled = True  # stop it as on SIGINT (and kill it after GRACE_S)
+                    interrupted["at"] = interrupted["at"] or time.monotonic()
+                    proc.send_signal(signal.SIGINT)
                 if interrupted["at"] is not None and time.monotonic() - interrupted["at"] > GRACE_S:
                     kill_tree(proc.pid)
         finally:
@@ -304,4 +365,6 @@ def run_snakemake(
                 signal.signal(s, handler)
     if on_poll is not None:
         on_poll()
-    return RunOutcome(returncode=rc, interrupted=interrupted["flag"], log_path=log_path)
+    return RunOutcome(
+        returncode=rc, interrupted=interrupted["flag"], log_path=log_path, stalled=stalled
+    )
