@@ -79,6 +79,9 @@ class RunOptions:
     mem_mb_per_batch: int = 4000
     runtime_min_per_batch: int = 600
     batches_per_core: int = 3
+    #: estimated seconds of work per Snakemake job (None: a local or a cluster default,
+    #: see :mod:`pesflow.plan.batches`)
+    target_job_s: float | None = None
     extra_args: list[str] = field(default_factory=list)
     stall_grace_s: float = field(default_factory=stall_grace_s)
 
@@ -133,22 +136,44 @@ def task_dict(plan, batch, store_root, recompute=()) -> dict:
     }
 
 
-def write_tasks(plan, batches, store_root, wd: Path, options: RunOptions, recompute=()):
-    """Write the task files and the Snakemake config; clear stale done markers."""
+def job_dict(plan, job, store_root, recompute=()) -> dict:
+    """The task file content of one job: the task of each of its walks, run in order."""
+    from pesflow.execution.batch import JOB_FORMAT, JOB_VERSION
+
+    return {
+        "format": JOB_FORMAT,
+        "version": JOB_VERSION,
+        "job_id": job.job_id,
+        "walks": [task_dict(plan, batch, store_root, recompute) for batch in job.batches],
+    }
+
+
+def write_tasks(plan, jobs, store_root, wd: Path, options: RunOptions, recompute=()):
+    """Write one task file per job and the Snakemake config; clear stale done markers.
+
+    ``jobs`` are :class:`pesflow.plan.batches.Job` objects; a plain
+    :class:`~pesflow.plan.expand.Batch` is taken as a job of one walk.
+    """
+    from pesflow.plan.batches import Job
+
+    jobs = [
+        j if isinstance(j, Job) else Job(job_id=j.batch_id, batches=[j], weight=j.weight)
+        for j in jobs
+    ]
     (wd / "tasks").mkdir(parents=True, exist_ok=True)
     (wd / "done").mkdir(parents=True, exist_ok=True)
-    for batch in batches:
+    for job in jobs:
         atomic_write(
-            wd / "tasks" / f"{batch.batch_id}.json",
-            json.dumps(task_dict(plan, batch, store_root, recompute)),
+            wd / "tasks" / f"{job.job_id}.json",
+            json.dumps(job_dict(plan, job, store_root, recompute)),
         )
-        marker = wd / "done" / f"{batch.batch_id}.json"
+        marker = wd / "done" / f"{job.job_id}.json"
         if marker.exists():
             marker.unlink()
     config = {
         "campaign": plan.campaign,
         "python": sys.executable,
-        "batches": [b.batch_id for b in batches],
+        "batches": [j.job_id for j in jobs],
         "threads_per_batch": options.threads_per_batch,
         "mem_mb_per_batch": options.mem_mb_per_batch,
         "runtime_min_per_batch": options.runtime_min_per_batch,
