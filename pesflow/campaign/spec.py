@@ -222,26 +222,33 @@ class ScanSpec(_Strict):
 
 
 class LevelSpec(_Strict):
-    """Levels of theory: every method with every basis set listed."""
+    """Levels of theory: every method with every basis set listed.  A tight-binding
+    level (``gfn2-xtb``, ``gfn1-xtb``) has its own basis and is given without one."""
 
     method: str | list[str]
-    basis: str | list[str]
+    basis: str | list[str] | None = None
 
-    def pairs(self) -> list[tuple[str, str]]:
+    def pairs(self) -> list[tuple[str, str | None]]:
         methods = [self.method] if isinstance(self.method, str) else list(self.method)
+        if self.basis is None:
+            return [(m, None) for m in methods]
         bases = [self.basis] if isinstance(self.basis, str) else list(self.basis)
         return [(m, b) for m in methods for b in bases]
 
 
 class EngineSpec(_Strict):
-    """Backend settings.  Those that change a number are part of every point's key."""
+    """Backend settings.  Those that change a number are part of every point's key
+    (see :class:`pesflow.engine.EngineSettings`, whose field names these are)."""
 
     name: Literal["pyscf"] = "pyscf"
-    conv_tol: float = Field(default=1e-10, gt=0, le=1e-5)
-    max_cycle: int = Field(default=100, ge=1)
+    #: SCF energy convergence in hartree (also CCSD's, and tight binding's SCC)
+    scf_energy_tolerance_hartree: float = Field(default=1e-10, gt=0, le=1e-5)
+    #: SCF iterations per ladder rung
+    scf_max_iterations: int = Field(default=100, ge=1)
     reference: Literal["auto", "restricted", "unrestricted", "restricted-open"] = "auto"
     frozen_core: bool = False
-    grid_level: int = Field(default=3, ge=0, le=9)
+    #: DFT integration grid level (PySCF's grid level, 0 coarse - 9 fine)
+    dft_grid_level: int = Field(default=3, ge=0, le=9)
     scf_ladder: list[Literal["default", "damped", "level-shift", "second-order"]] = Field(
         default=["default", "damped", "level-shift", "second-order"], min_length=1
     )
@@ -249,6 +256,19 @@ class EngineSpec(_Strict):
     broken_symmetry: bool = False
     #: stability analysis of each converged SCF, following instabilities downhill
     stability: bool = False
+
+    @model_validator(mode="before")
+    @classmethod
+    def _renamed(cls, data):
+        if isinstance(data, dict):
+            for old, new in _RENAMED_ENGINE_KEYS.items():
+                if old in data:
+                    raise PydanticCustomError(
+                        "unknown_key",
+                        "unknown key '{key}'; it is now called '{new}'",
+                        {"key": old, "new": new},
+                    )
+        return data
 
     @model_validator(mode="after")
     def _bs_reference(self):
@@ -260,6 +280,14 @@ class EngineSpec(_Strict):
                 {},
             )
         return self
+
+
+#: Engine keys of earlier versions and their names now.
+_RENAMED_ENGINE_KEYS = {
+    "conv_tol": "scf_energy_tolerance_hartree",
+    "max_cycle": "scf_max_iterations",
+    "grid_level": "dft_grid_level",
+}
 
 
 class ReferenceValueSpec(_Strict):
@@ -329,14 +357,15 @@ def json_schema() -> dict:
 
 @dataclass(frozen=True)
 class Level:
-    """A level of theory."""
+    """A level of theory; ``basis`` is ``""`` for a level with a built-in basis."""
 
     method: str
     basis: str
 
     @property
     def label(self) -> str:
-        return f"{self.method}/{self.basis}"
+        """``method/basis``, or the method alone for a level without basis set."""
+        return f"{self.method}/{self.basis}" if self.basis else self.method
 
 
 @dataclass
@@ -441,11 +470,11 @@ class Campaign:
             own = self.spec.scans[scan].engine
             e = e.model_copy(update={k: getattr(own, k) for k in own.model_fields_set})
         return EngineSettings(
-            conv_tol=e.conv_tol,
-            max_cycle=e.max_cycle,
+            scf_energy_tolerance_hartree=e.scf_energy_tolerance_hartree,
+            scf_max_iterations=e.scf_max_iterations,
             reference=e.reference,
             frozen_core=e.frozen_core,
-            grid_level=e.grid_level,
+            dft_grid_level=e.dft_grid_level,
             scf_ladder=tuple(e.scf_ladder),
             broken_symmetry=e.broken_symmetry,
             stability=e.stability,
@@ -826,28 +855,33 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
     )
 
 
-def _resolve_level_list(lspecs, loc, elements, err, checked_basis) -> list[Level]:
+def _resolve_level_list(lspecs, loc, elements, err, checked) -> list[Level]:
     from pesflow import engine
 
     levels = []
     for i, lspec in enumerate(lspecs):
         for method, basis in lspec.pairs():
             try:
-                method_c = engine.canonical_method(method)
+                info = engine.method_info(method)
             except EngineSetupError as exc:
                 hint = did_you_mean(str(method).strip().lower(), _method_names())
                 raise err(loc + (i, "method"), _with_hint(str(exc), hint)) from None
-            basis_c = basis.strip().lower()
+            where = loc + (i, "basis") if basis is not None else loc + (i,)
+            basis_c = ""
             for element in elements:
-                if (basis_c, element) not in checked_basis:
+                if (info.name, basis, element) not in checked:
                     try:
-                        engine.check_basis(basis_c, [element])
-                        checked_basis[(basis_c, element)] = None
+                        _, basis_c = engine.check_level(info.name, basis, [element])
+                        checked[(info.name, basis, element)] = (basis_c, None)
                     except EngineSetupError as exc:
-                        checked_basis[(basis_c, element)] = str(exc) + _basis_hint(basis_c)
-                if checked_basis[(basis_c, element)] is not None:
-                    raise err(loc + (i, "basis"), checked_basis[(basis_c, element)])
-            level = Level(method_c, basis_c)
+                        hint = _basis_hint(basis.strip().lower()) if basis else ""
+                        checked[(info.name, basis, element)] = (None, str(exc) + hint)
+                basis_c, problem = checked[(info.name, basis, element)]
+                if problem is not None:
+                    raise err(where, problem)
+            if not elements:
+                basis_c = "" if basis is None else basis.strip().lower()
+            level = Level(info.name, basis_c)
             if level in levels:
                 raise err(loc + (i,), f"level {level.label} is listed twice")
             levels.append(level)
@@ -870,9 +904,9 @@ def _method_names() -> tuple[str, ...]:
     """Method names to suggest from: the wavefunction methods and libxc's functionals."""
     from pyscf.dft import libxc
 
-    from pesflow.engine import WAVEFUNCTION_METHODS
+    from pesflow.engine import TIGHT_BINDING_METHODS, WAVEFUNCTION_METHODS
 
-    names = {*WAVEFUNCTION_METHODS, *(k.lower() for k in libxc.XC_ALIAS)}
+    names = {*WAVEFUNCTION_METHODS, *TIGHT_BINDING_METHODS, *(k.lower() for k in libxc.XC_ALIAS)}
     names |= {k.lower() for k in libxc.XC_CODES}
     return tuple(sorted(names))
 
@@ -938,13 +972,15 @@ def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
                 own, ("scans", name, "levels"), elements_of(scan.molecules), err, checked_basis
             )
         if scan.relax:
+            from pesflow.engine import method_info
+
             for lvl in scan.levels:
-                if lvl.method == "ccsd(t)":
+                if not method_info(lvl.method).has_gradients:
                     where = ("scans", name, "levels") if own is not None else ("levels",)
                     raise err(
                         where,
-                        "a relaxed scan needs analytic gradients; ccsd(t) has "
-                        "none here (allowed: hf, DFT functionals, mp2, ccsd)",
+                        f"a relaxed scan needs analytic gradients; {lvl.method} has "
+                        "none here (allowed: hf, DFT functionals, mp2, ccsd, gfn2-xtb, gfn1-xtb)",
                     )
         union += [lvl for lvl in scan.levels if lvl not in union]
     _check_reference_values(spec, err)

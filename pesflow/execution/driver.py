@@ -98,6 +98,7 @@ def task_dict(plan, batch, store_root, recompute=()) -> dict:
 
     gs = plan.geometry_sets[batch.set_id]
     keys = {k for _, methods in batch.entries for k in methods.values()}
+    engine, engine_version = plan.batch_engine(batch)
     return {
         "format": TASK_FORMAT,
         "version": TASK_VERSION,
@@ -106,8 +107,8 @@ def task_dict(plan, batch, store_root, recompute=()) -> dict:
         "molecule": gs.molecule,
         "scan": gs.scan,
         "store": str(store_root),
-        "engine": plan.engine,
-        "engine_version": plan.engine_version,
+        "engine": engine,
+        "engine_version": engine_version,
         "settings": gs.settings_key,
         "basis": batch.basis,
         "family": batch.family,
@@ -129,6 +130,7 @@ def task_dict(plan, batch, store_root, recompute=()) -> dict:
                 "walk": walk,
                 "positions": gs.positions[walk].tolist(),
                 "keys": methods,
+                "byproduct_keys": plan.byproduct_keys(batch, walk),
                 "values": gs.values[walk].tolist(),
             }
             for walk, methods in batch.entries

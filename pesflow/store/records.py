@@ -101,7 +101,8 @@ def make_record(**fields) -> dict:
 
     Inputs (all keyword; see :data:`POINT_SCHEMA`):
         key: 32 lowercase hex digits (the point's content hash, computed elsewhere).
-        method, basis, reference, engine, engine_version: non-empty text.
+        method, basis, reference, engine, engine_version: non-empty text (basis ``""``
+            for a level with a built-in basis set).
         charge, multiplicity, scf_cycles: integers (multiplicity >= 1, scf_cycles >= 0).
         symbols: element symbols separated by single spaces, e.g. ``"O H H"``.
         positions_angstrom: n_atoms*3 (or n_atoms x 3) Cartesian coordinates in Å, finite.
@@ -131,7 +132,8 @@ def make_record(**fields) -> dict:
     out = {"key": _check_key(fields["key"])}
     for name in _STR_FIELDS:
         value = fields[name]
-        if not isinstance(value, str) or not value.strip():
+        # (basis is "" for a level with a built-in basis, e.g. tight binding)
+        if not isinstance(value, str) or not (value.strip() or (name == "basis" and not value)):
             raise TypeError(f"record field {name!r} must be non-empty text, got {value!r}")
         out[name] = value
     for name in _INT_FIELDS:

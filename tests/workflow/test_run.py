@@ -165,7 +165,7 @@ def test_failed_point_is_recorded_and_exit_code_is_1(tmp_path):
               - {type: distance, atoms: [1, 2], values: [0.97, 3.5]}
         levels:
           - {method: hf, basis: 6-31g}
-        engine: {max_cycle: 1, scf_ladder: [default]}
+        engine: {scf_max_iterations: 1, scf_ladder: [default]}
         store: store
         """)
     )
