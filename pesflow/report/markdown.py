@@ -153,7 +153,7 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
             "",
         ]
     lines += ["## Which level is closest to the reference", ""]
-    best = closest_levels(d.statistics)
+    best = closest_levels(d.ranking)
     cost = d.cost.set_index("level")
     if best.empty:
         lines += ["No deviations to rank yet.", ""]
@@ -162,7 +162,8 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
         per_point = cost.loc[b["level"], "core_s_per_point"] if b["level"] in cost.index else np.nan
         lines.append(
             f"- {q.name} ({md(q.unit)}), closest to {md(b['against'])}: **{md(b['level'])}**, "
-            f"MAD {fmt_value(b['mean_absolute'], q.decimals)} over {int(b['n'])} curve(s), "
+            f"MAD {fmt_value(b['mean_absolute'], q.decimals)} over the {int(b['n'])} curve(s) "
+            "every ranked level has, "
             f"max {fmt_value(b['max_absolute'], q.decimals)} ({md(b['max_absolute_at'])}); "
             f"{fmt_seconds(per_point)} core-s per point."
         )
@@ -178,9 +179,13 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
         ]
     for q in d.quantities:
         lines += _quantity(d, q)
-    lines += ["## Basis-set convergence", ""]
     if d.convergence.empty:
-        lines += ["No method was computed with two or more basis sets.", ""]
+        lines += [
+            "(Basis-set convergence: left out, each method was computed with one basis set.)",
+            "",
+        ]
+    else:
+        lines += ["## Basis-set convergence", ""]
     for column in dict.fromkeys(d.convergence["quantity"]):
         key = f"convergence:{column}"
         if key in figure_files:
