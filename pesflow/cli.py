@@ -236,8 +236,7 @@ def _print_status(campaign, counts, failed, columns, *, spec=None, show_failed=1
     for row in failed.head(show_failed).itertuples(index=False):
         console.print(
             f"[red]failed[/red] {escape(row.molecule)} {escape(row.scan)} "
-            f"{escape(row.level)} {_where(row, columns)}: {escape(str(row.error))}",
-            soft_wrap=True,
+            f"{escape(row.level)} {_where(row, columns)}: {escape(str(row.error))}"
         )
     if len(failed) > show_failed:
         console.print(
