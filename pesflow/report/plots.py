@@ -39,6 +39,8 @@ LINESTYLES = (
 )
 REFERENCE_STYLE = {"color": "#000000", "marker": "o", "linestyle": "-"}
 DPI = 120
+#: The relative energy on the axes, written as the tables write symbols (mathtext subscript).
+_E_REL = r"E − E$_{\mathregular{min}}$"
 _KCAL_TO_CM1 = HARTREE_TO_CM1 / HARTREE_TO_KCAL_MOL
 _RC = {
     "font.size": 9.5,
@@ -302,11 +304,11 @@ def curve_plot(lines, styles, *, xlabel, unit, title, reference_level=None) -> F
             label="pending point (top of the plot)",
         )
     ax.set_xlabel(plain(xlabel))
-    ax.set_ylabel("E − E_min (kcal/mol)")
+    ax.set_ylabel(f"{_E_REL} (kcal/mol)")
     sec = ax.secondary_yaxis(
         "right", functions=(lambda x: x * _KCAL_TO_CM1, lambda x: x / _KCAL_TO_CM1)
     )
-    sec.set_ylabel("E − E_min (cm⁻¹)")
+    sec.set_ylabel(f"{_E_REL} (cm⁻¹)")
     ax.set_title(plain(title), loc="left")
     ax.legend(loc="upper center", ncol=3, bbox_to_anchor=(0.5, -0.14))
     return fig
@@ -412,7 +414,7 @@ def surface_plot(grids, *, xlabel, ylabel, title, reference_level=None) -> Figur
     for ax in list(axes.flat)[len(grids) :]:
         ax.set_visible(False)
     if mappable is not None:
-        fig.colorbar(mappable, ax=axes, label="E − E_min (kcal/mol)", shrink=0.9)
+        fig.colorbar(mappable, ax=axes, label=f"{_E_REL} (kcal/mol)", shrink=0.9)
     fig.suptitle(plain(title), x=0.02, ha="left")
     return fig
 
