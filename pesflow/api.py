@@ -339,11 +339,11 @@ class Campaign:
     Made by :func:`load`.  Nothing is computed until :meth:`run`; every other method reads
     the spec and the store only.  Attributes: ``spec_path``, ``name``, ``molecules`` and
     ``levels`` (labels, spec order), ``store_path``, ``results_path``, and ``campaign`` (the
-    resolved :class:`pesflow.campaign.spec.Campaign`).
+    resolved :class:`pesflow.campaign.Campaign`).
     """
 
     def __init__(self, spec):
-        from pesflow.campaign.spec import load_campaign
+        from pesflow.campaign import load_campaign
 
         self.spec_path = Path(spec)
         self.campaign = load_campaign(self.spec_path)
@@ -392,7 +392,7 @@ class Campaign:
     def check(self) -> pd.DataFrame:
         """Read the spec again and check it (raises :class:`~pesflow.errors.SpecError`);
         returns one row per molecule (``molecule, formula, charge, multiplicity, scans``)."""
-        from pesflow.campaign.spec import load_campaign
+        from pesflow.campaign import load_campaign
         from pesflow.plan.expand import expand
 
         self.campaign = load_campaign(self.spec_path)

@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pesflow.campaign.spec import load_campaign
+from pesflow.campaign import load_campaign
 from pesflow.plan.expand import expand
 from pesflow.report import CLOSEST_MARK, build_report, terminal_summary
 from pesflow.report.html import SECTIONS
