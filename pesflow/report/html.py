@@ -509,17 +509,22 @@ def _curve_sections(d: ReportData, figures) -> Markup:
 def _convergence_section(d: ReportData, figures) -> Markup:
     if d.convergence.empty:
         return Omitted("each method was computed with one basis set only")
-    parts = []
+    out = []
     for column in dict.fromkeys(d.convergence["quantity"]):
         q = QUANTITY[column]
-        parts.append(tag("h3", join([Markup(q.html), f" ({q.unit})"])))
+        parts = []
         fig = figures.get(f"convergence:{column}")
         parts.append(
             figure(
                 fig,
-                f"{q.name} against the number of basis functions of each "
-                "molecule, one line per method; dotted: the reference level; "
-                "dashed: the user's reference value.",
+                join(
+                    [
+                        Markup(q.html),
+                        " against the number of basis functions of each molecule, one line "
+                        "per method; dotted: the reference level; dashed: the user's "
+                        "reference value.",
+                    ]
+                ),
             )
         )
         sub = d.convergence[d.convergence["quantity"] == column]
@@ -555,7 +560,15 @@ def _convergence_section(d: ReportData, figures) -> Markup:
                 ],
             )
         )
-    return join(parts)
+        out.append(
+            _fold(
+                join([Markup(q.html), f" ({q.unit})"]),
+                join(parts),
+                anchor=_anchor("convergence", column),
+                open_=not out,
+            )
+        )
+    return join(out)
 
 
 def _cost_section(d: ReportData) -> Markup:
