@@ -228,6 +228,24 @@ def status_of(campaign, plan, store):
     return counts, failed_points(table), table
 
 
+def warning_counts(campaign, plan, store) -> pd.DataFrame:
+    """Warnings of the analysis (severity ``warning``, not notes) per molecule and level:
+    ``molecule, level, warnings`` (reads the store and analyses every curve)."""
+    from pesflow.analysis.flags import flags_from_records
+    from pesflow.tables.points import points_table
+    from pesflow.tables.summary import summary_table
+
+    summary = summary_table(campaign, plan, points_table(plan, store))
+    if summary.empty:
+        return pd.DataFrame(columns=["molecule", "level", "warnings"])
+    n = [
+        sum(f.severity == "warning" for f in flags_from_records(text))
+        for text in summary["flag_records"]
+    ]
+    frame = summary[["molecule", "level"]].assign(warnings=n)
+    return frame.groupby(["molecule", "level"], sort=False, as_index=False)["warnings"].sum()
+
+
 def run_campaign(
     campaign,
     plan,

@@ -184,10 +184,15 @@ def _where(row, columns) -> str:
     )
 
 
-def _print_status(campaign, counts, failed, columns, *, spec=None, show_failed=10) -> None:
+def _print_status(
+    campaign, counts, failed, columns, *, spec=None, warnings=None, show_failed=10
+) -> None:
     """The status table (all rows; or, with ``spec`` and a large campaign, per-level totals
-    and the rows with failed or pending points), then the first failed points."""
+    and only the rows that need attention: failed or pending points, or curves with warnings
+    when ``warnings`` (a callable returning :func:`pesflow.api.warning_counts`) is given),
+    then the first failed points."""
     rows = counts
+    flagged = None
     if spec is not None and len(counts) > MAX_STATUS_ROWS:
         totals = counts.groupby("level", sort=False)[["done", "failed", "pending"]].sum()
         out = table(
@@ -206,33 +211,45 @@ def _print_status(campaign, counts, failed, columns, *, spec=None, show_failed=1
                 str(r["pending"]),
             )
         console.print(out)
-        rows = counts[(counts["failed"] > 0) | (counts["pending"] > 0)]
+        attention = (counts["failed"] > 0) | (counts["pending"] > 0)
+        if warnings is not None:
+            flagged = counts.merge(warnings(), on=["molecule", "level"], how="left")
+            flagged = flagged["warnings"].fillna(0).astype(int).to_numpy()
+            attention = attention | (flagged > 0)
+            flagged = flagged[attention.to_numpy()]
+        rows = counts[attention]
     if len(rows):
+        names = ["molecule", "level", "done", "failed", "pending"]
+        if flagged is not None:
+            names.append("warnings")
         out = table(
-            "molecule",
-            "level",
-            "done",
-            "failed",
-            "pending",
+            *names,
             title=f"campaign {campaign.name}: "
-            + ("status" if rows is counts else "molecules with failed or pending points"),
-            numeric=("done", "failed", "pending"),
+            + ("status" if rows is counts else "rows that need attention"),
+            numeric=("done", "failed", "pending", "warnings"),
         )
-        for row in rows.itertuples(index=False):
-            out.add_row(
+        for k, row in enumerate(rows.itertuples(index=False)):
+            cells = [
                 escape(row.molecule),
                 escape(row.level),
                 str(row.done),
                 f"[red]{row.failed}[/red]" if row.failed else "0",
                 str(row.pending),
-            )
+            ]
+            if flagged is not None:
+                cells.append(str(flagged[k]))
+            out.add_row(*cells)
         console.print(out)
     if rows is not counts:
         console.print(
-            f"{len(counts)} molecule x level rows; `pesflow status {spec}` shows every one.",
+            f"{len(counts)} molecule x level rows; every one: pesflow status {spec}",
             markup=False,
             soft_wrap=True,
         )
+        if flagged is not None:
+            console.print(
+                f"what the warnings say: pesflow report {spec}", markup=False, soft_wrap=True
+            )
     for row in failed.head(show_failed).itertuples(index=False):
         console.print(
             f"[red]failed[/red] {escape(row.molecule)} {escape(row.scan)} "
@@ -338,7 +355,14 @@ def cmd_run(args) -> int:
             f"some batch jobs failed; Snakemake's log: {result.log_path}", soft_wrap=True
         )
     failed = result.failed_points
-    _print_status(campaign, result.status, failed, failed.columns, spec=args.spec)
+    _print_status(
+        campaign,
+        result.status,
+        failed,
+        failed.columns,
+        spec=args.spec,
+        warnings=lambda: api.warning_counts(campaign, plan, store),
+    )
     console.print(f"{result.done} done, {result.failed} failed, {result.pending} pending")
     if result.failed or result.pending:
         return EXIT_FAILED

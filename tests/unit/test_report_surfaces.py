@@ -119,7 +119,12 @@ def test_end_of_a_large_run_shows_level_totals_and_only_rows_that_need_attention
     class Campaign:
         name = "big"
 
-    cli._print_status(Campaign(), counts, counts.iloc[:0], [], spec="big.yaml")
+    warnings = pd.DataFrame(
+        {"molecule": ["molecule_03"], "level": ["hf/6-31g"], "warnings": [2]}
+    )  # e.g. noisy energies and a minimum not bracketed on that curve
+    cli._print_status(
+        Campaign(), counts, counts.iloc[:0], [], spec="big.yaml", warnings=lambda: warnings
+    )
     out = console.export_text()
     assert all(len(line) <= 80 for line in out.splitlines())
     # Per-level totals: 20 x 12 points, one failed at mp2/cc-pvtz.
@@ -127,7 +132,9 @@ def test_end_of_a_large_run_shows_level_totals_and_only_rows_that_need_attention
     assert re.search(r"mp2/cc-pvtz\s+│\s+239\s+│\s+1\s+│\s+0", out), out
     # Only the row that needs attention, and the command that shows the rest.
     assert "molecule_07" in out and "molecule_08" not in out
-    assert "pesflow status big.yaml" in out
+    assert re.search(r"molecule_03\s+│\s+hf/6-31g\s+│\s+12\s+│\s+0\s+│\s+0\s+│\s+2", out), out
+    assert "molecule_03 │ mp2" not in out
+    assert "pesflow status big.yaml" in out and "pesflow report big.yaml" in out
     # A small campaign prints every row.
     console = Console(width=80, record=True)
     monkeypatch.setattr(cli, "console", console)
