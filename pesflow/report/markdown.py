@@ -60,7 +60,6 @@ def _cell(row, q) -> str:
 def _quantity(d: ReportData, q) -> list[str]:
     lines = [f"### {q.name} ({q.unit})", ""]
     sub = d.values[d.values["quantity"] == q.column]
-    notes: dict[str, list[str]] = {}
     rows = []
     for (molecule, scan), curve in sub.groupby(["molecule", "scan"], sort=False):
         by_level = curve.set_index("level")
@@ -72,8 +71,7 @@ def _quantity(d: ReportData, q) -> list[str]:
             row = by_level.loc[lvl]
             text = _cell(row, q)
             for flag in dict.fromkeys(str(f) for f in row["flags"]):
-                notes.setdefault(flag, []).append(f"{lvl}, {molecule} {scan}")
-                text += f" [{list(notes).index(flag) + 1}]"
+                text += f" [{d.notes[flag]['n']}]"
             dev = fmt_dev(row["dev_reference_level"], q.decimals)
             if lvl != d.reference_level and dev:
                 text += f" (Δ {dev})"
@@ -83,10 +81,6 @@ def _quantity(d: ReportData, q) -> list[str]:
         md(lvl) + (" (reference)" if lvl == d.reference_level else "") for lvl in d.levels
     ]
     lines += _table(head, rows)
-    for n, (flag, where) in enumerate(notes.items(), start=1):
-        lines.append(f"{n}. {md(flag)} ({md('; '.join(where))})")
-    if notes:
-        lines.append("")
     refs = d.reference_values[d.reference_values["quantity"] == q.column]
     if len(refs):
         lines += ["Deviation from the reference values (level minus value):", ""]
@@ -174,7 +168,7 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
     if d.reference_level:
         lines += [
             f"Δ: value minus the value at the reference level {md(d.reference_level)} "
-            "(same molecule and scan); [n]: warnings of the analysis below each table.",
+            "(same molecule and scan); [n]: the warnings of the analysis under *Notes*.",
             "",
         ]
     for q in d.quantities:
@@ -203,10 +197,27 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
         flags = d.curve_flags[
             (d.curve_flags["molecule"] == molecule) & (d.curve_flags["scan"] == scan)
         ]
+        grouped: dict[str, list[str]] = {}
         for _, r in flags.iterrows():
-            lines.append(f"- warning, {md(r['level'])}: {md(r['flag'])}")
+            grouped.setdefault(str(r["flag"]), []).append(r["level"])
+        for message, lvls in grouped.items():
+            note = d.notes[message]
+            lines.append(f"- [{note['n']}] {md(note['title'])}: {md(', '.join(lvls))}")
         if len(flags):
             lines.append("")
+    if d.notes:
+        lines += [
+            "## Notes",
+            "",
+            "Every warning of the analysis once; [n] elsewhere points here.",
+            "",
+        ]
+        for message, note in d.notes.items():
+            lines.append(
+                f"{note['n']}. **{md(note['title'])}** ({note['severity']}): {md(message)} "
+                f"(applies to: {md('; '.join(note['where']))})"
+            )
+        lines.append("")
     lines += ["## Compute cost per level", ""]
     lines += _table(
         ["level", "core-s", "core-s per point", "vs reference", "done", "failed", "pending"],
