@@ -145,6 +145,13 @@ def test_every_warning_is_listed_once_and_referenced_where_it_applies(partial):
     body = page.replace(notes, "")
     for message in messages:
         assert html_lib.escape(message, quote=True) not in body
+    # The Markdown report numbers them the same way, once, under Notes.
+    from pesflow.report.markdown import md
+
+    text = paths["markdown"].read_text()
+    assert text.count("## Notes") == 1
+    for message in messages:
+        assert text.count(md(message)) == 1
 
 
 def test_long_sections_fold_and_empty_sections_say_why(partial):
