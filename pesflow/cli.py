@@ -254,7 +254,6 @@ def cmd_run(args) -> int:
         cores=args.cores,
         profile=args.profile,
         threads_per_batch=args.threads_per_batch,
-        retry_failed=args.retry_failed,
     )
     lock = runner.RunLock(campaign.results_path / ".pesflow" / "run.lock").acquire()
     try:

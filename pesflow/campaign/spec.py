@@ -35,6 +35,7 @@ from pydantic import (
 )
 from pydantic_core import PydanticCustomError
 
+from pesflow.coordinates.kinds import KINDS
 from pesflow.errors import EngineSetupError, SpecError
 
 NAME_PATTERN = r"^[a-z0-9][a-z0-9_-]*$"
@@ -105,7 +106,7 @@ class MoleculeSpec(_Strict):
 class CoordinateSpec(_Strict):
     """One scan coordinate: ``from``/``to`` with ``points`` or ``step``, or ``values``."""
 
-    type: Literal["distance", "angle", "dihedral"]
+    type: Literal[tuple(KINDS)]  # type: ignore[valid-type]  # the coordinate-kind registry
     atoms: list[int]
     from_: float | None = Field(default=None, alias="from")
     to: float | None = None
@@ -355,12 +356,11 @@ class Coordinate:
 
     @property
     def unit(self) -> str:
-        return "angstrom" if self.kind == "distance" else "degree"
+        return KINDS[self.kind].unit
 
     @property
     def label(self) -> str:
-        symbol = {"distance": "r", "angle": "angle", "dihedral": "dihedral"}[self.kind]
-        return f"{symbol}({'-'.join(str(i + 1) for i in self.atoms)})"
+        return f"{KINDS[self.kind].stem}({'-'.join(str(i + 1) for i in self.atoms)})"
 
 
 @dataclass
@@ -698,15 +698,9 @@ def _resolve_molecule(name, spec: MoleculeSpec, base: Path, err) -> Molecule:
 
 
 def _check_values(kind, values, loc, err):
-    if kind == "distance" and np.any(values <= 0):
-        raise err(
-            loc, f"distances must be positive (got {values.min():g}); lengths are in angstrom"
-        )
-    if kind == "angle" and (np.any(values <= 0) or np.any(values > 180)):
-        bad = values[(values <= 0) | (values > 180)][0]
-        raise err(loc, f"angle {bad:g} is outside the allowed range 0 < angle <= 180 degrees")
-    if kind == "dihedral" and (np.any(values < -360) or np.any(values > 360)):
-        raise err(loc, "dihedral angles must lie within -360..360 degrees")
+    problem = KINDS[kind].range_problem(values)
+    if problem:
+        raise err(loc, problem)
 
 
 def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
@@ -725,7 +719,7 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
     resolved = []
     for c, cspec in enumerate(spec.coordinates):
         cloc = loc + ("coordinates", c)
-        need = coords.KINDS[cspec.type]
+        need = KINDS[cspec.type].n_atoms
         if len(cspec.atoms) != need:
             raise err(
                 cloc + ("atoms",), f"a {cspec.type} takes {need} atoms (got {len(cspec.atoms)})"
@@ -875,7 +869,7 @@ def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
 def _check_reference_values(spec: CampaignSpec, err) -> None:
     if not spec.compare.reference_values:
         return  # (the summary module is heavy to import; only load it when needed)
-    from pesflow.tables.summary import DEVIATION_COLUMNS
+    from pesflow.analysis.quantities import COMPARED
 
     for i, ref in enumerate(spec.compare.reference_values):
         loc = ("compare", "reference_values", i)
@@ -895,10 +889,10 @@ def _check_reference_values(spec: CampaignSpec, err) -> None:
             raise err(
                 loc + ("scan",), f"scan '{ref.scan}' does not include molecule '{ref.molecule}'"
             )
-        if ref.quantity not in DEVIATION_COLUMNS:
+        if ref.quantity not in COMPARED:
             raise err(
                 loc + ("quantity",),
-                f"unknown quantity '{ref.quantity}'; allowed: {', '.join(DEVIATION_COLUMNS)}",
+                f"unknown quantity '{ref.quantity}'; allowed: {', '.join(COMPARED)}",
             )
 
 

@@ -26,10 +26,7 @@ from ase.geometry import get_dihedrals
 from scipy.sparse import csgraph
 from scipy.spatial.transform import Rotation
 
-#: Number of atoms each kind of coordinate is measured over.
-KINDS = {"distance": 2, "angle": 3, "dihedral": 4}
-#: Unit of each kind of coordinate (as values are given and stored).
-UNITS = {"distance": "angstrom", "angle": "degree", "dihedral": "degree"}
+from pesflow.coordinates.kinds import KINDS
 
 #: Tolerance on sin(angle) below which three atoms count as collinear, so that the
 #: plane a-b-c (and the rotation axis normal to it) is taken from a fixed rule.
@@ -55,9 +52,9 @@ def _check(kind, indices, n_atoms=None):
     if kind not in KINDS:
         raise CoordinateError(f"unknown coordinate kind {kind!r}; allowed: {', '.join(KINDS)}")
     indices = tuple(int(i) for i in indices)
-    if len(indices) != KINDS[kind]:
+    if len(indices) != KINDS[kind].n_atoms:
         raise CoordinateError(
-            f"a {kind} needs {KINDS[kind]} atoms, got {len(indices)}: {list(indices)}"
+            f"a {kind} needs {KINDS[kind].n_atoms} atoms, got {len(indices)}: {list(indices)}"
         )
     if len(set(indices)) != len(indices):
         raise CoordinateError(f"{_label(kind, indices)} (atoms numbered from 1) repeats an atom")
@@ -70,7 +67,7 @@ def _check(kind, indices, n_atoms=None):
 
 def _fixed_atoms(kind, indices):
     """Atoms of the coordinate that must not move (c of a dihedral may: it is on the axis)."""
-    return {"distance": indices[:1], "angle": indices[:2], "dihedral": indices[:2]}[kind]
+    return indices[: KINDS[kind].n_fixed]
 
 
 def _norm(v):
@@ -102,15 +99,21 @@ def measure_many(positions_stack, kind, atoms):
     if stack.ndim == 2:
         stack = stack[None]
     idx = _check(kind, atoms, stack.shape[1])
-    p = [stack[:, i] for i in idx]
-    if kind == "distance":
-        return _norm(p[1] - p[0])
-    if kind == "angle":
-        return _angle_degree(p[0] - p[1], p[2] - p[1])
+    return _MEASURE[kind]([stack[:, i] for i in idx])
+
+
+def _measure_distance(p):
+    return _norm(p[1] - p[0])
+
+
+def _measure_angle(p):
+    return _angle_degree(p[0] - p[1], p[2] - p[1])
+
+
+def _measure_dihedral(p):
     # ASE's arctan2 formula for dihedrals; it returns [0, 360] and may give 360.0
     # after rounding, so fold that back to 0.
-    dihedral = get_dihedrals(p[1] - p[0], p[2] - p[1], p[3] - p[2])
-    return np.mod(dihedral, 360.0)
+    return np.mod(get_dihedrals(p[1] - p[0], p[2] - p[1], p[3] - p[2]), 360.0)
 
 
 def measure(positions, kind, atoms):
@@ -187,7 +190,7 @@ def moving_atoms(atoms, kind, indices, move=None):
 
     graph = bond_graph(atoms).tolil()
     # The bond that the coordinate stretches or turns about: its two sides separate.
-    cut = indices[:2] if kind == "distance" else indices[1:3]
+    cut = [indices[i] for i in KINDS[kind].cut]
     graph[cut[0], cut[1]] = 0
     graph[cut[1], cut[0]] = 0
     graph = graph.tocsr()
@@ -213,11 +216,11 @@ def _check_targets(kind, indices, values):
     label = _label(kind, indices)
     if not np.all(np.isfinite(values)):
         raise CoordinateError(f"{label}: target values must be finite numbers")
-    if kind == "distance" and np.any(values <= 0.0):
-        raise CoordinateError(f"{label}: a distance must be > 0 angstrom, got {values.min()}")
-    if kind == "angle" and np.any((values <= 0.0) | (values > 180.0)):
-        bad = values[(values <= 0.0) | (values > 180.0)][0]
-        raise CoordinateError(f"{label}: an angle must lie in (0, 180] degrees, got {bad}")
+    # A periodic coordinate is set modulo its period, so only its folded value is checked.
+    kind_ = KINDS[kind]
+    problem = kind_.range_problem(values if kind_.period is None else values % kind_.period)
+    if problem:
+        raise CoordinateError(f"{label}: {problem}")
     return values
 
 
@@ -239,32 +242,46 @@ def _perpendicular(v):
 def _set_stack(stack, kind, indices, moving, values):
     """Set the coordinate in each geometry of ``stack`` (m, n, 3) to ``values`` (m,),
     in place.  Each row has its own starting geometry (needed for grids)."""
-    p = [stack[:, i] for i in indices]
-    if kind == "distance":
-        bond = p[1] - p[0]
-        length = _norm(bond)
-        shift = ((values - length) / length)[:, None] * bond
-        stack[:, moving] += shift[:, None]
-    elif kind == "angle":
-        v0 = p[0] - p[1]
-        v1 = p[2] - p[1]
-        normal = np.cross(v0, v1)
-        sin = _norm(normal) / (_norm(v0) * _norm(v1))
-        # Rotating about v0 x v1 by a positive angle opens the angle (as ASE's set_angle);
-        # a collinear a-b-c has no plane, so any axis normal to b->c does, chosen by rule.
-        collinear = sin < _COLLINEAR_SIN
-        axis = np.empty_like(normal)
-        axis[~collinear] = normal[~collinear] / _norm(normal[~collinear])[:, None]
-        if np.any(collinear):
-            axis[collinear] = _perpendicular(v1[collinear])
-        delta = np.radians(values - _angle_degree(v0, v1))
-        _rotate(stack, moving, p[1].copy(), axis * delta[:, None])
-    else:
-        axis = p[2] - p[1]
-        axis = axis / _norm(axis)[:, None]
-        current = measure_many(stack, kind, indices)
-        delta = np.radians(values - current)
-        _rotate(stack, moving, p[2].copy(), axis * delta[:, None])
+    _SET[kind](stack, [stack[:, i] for i in indices], moving, values)
+
+
+def _set_distance(stack, p, moving, values):
+    """Translate the moving atoms along a->b."""
+    bond = p[1] - p[0]
+    length = _norm(bond)
+    shift = ((values - length) / length)[:, None] * bond
+    stack[:, moving] += shift[:, None]
+
+
+def _set_angle(stack, p, moving, values):
+    """Rotate the moving atoms about the vertex b, normal to the plane a-b-c."""
+    v0 = p[0] - p[1]
+    v1 = p[2] - p[1]
+    normal = np.cross(v0, v1)
+    sin = _norm(normal) / (_norm(v0) * _norm(v1))
+    # Rotating about v0 x v1 by a positive angle opens the angle (as ASE's set_angle);
+    # a collinear a-b-c has no plane, so any axis normal to b->c does, chosen by rule.
+    collinear = sin < _COLLINEAR_SIN
+    axis = np.empty_like(normal)
+    axis[~collinear] = normal[~collinear] / _norm(normal[~collinear])[:, None]
+    if np.any(collinear):
+        axis[collinear] = _perpendicular(v1[collinear])
+    delta = np.radians(values - _angle_degree(v0, v1))
+    _rotate(stack, moving, p[1].copy(), axis * delta[:, None])
+
+
+def _set_dihedral(stack, p, moving, values):
+    """Rotate the moving atoms about the b->c axis."""
+    axis = p[2] - p[1]
+    axis = axis / _norm(axis)[:, None]
+    delta = np.radians(values - _measure_dihedral(p))
+    _rotate(stack, moving, p[2].copy(), axis * delta[:, None])
+
+
+#: How each kind in :data:`pesflow.coordinates.kinds.KINDS` is measured and set: functions of
+#: the atoms' position arrays ``p`` (one (m, 3) array per atom of the coordinate).
+_MEASURE = {"distance": _measure_distance, "angle": _measure_angle, "dihedral": _measure_dihedral}
+_SET = {"distance": _set_distance, "angle": _set_angle, "dihedral": _set_dihedral}
 
 
 def displace(positions, kind, indices, moving, values):
@@ -298,8 +315,9 @@ def displace(positions, kind, indices, moving, values):
 def _deviation(kind, measured, target):
     """|measured - target|, taking a dihedral modulo 360 degrees."""
     diff = measured - target
-    if kind == "dihedral":
-        diff = (diff + 180.0) % 360.0 - 180.0
+    period = KINDS[kind].period
+    if period is not None:
+        diff = (diff + period / 2) % period - period / 2
     return np.abs(diff)
 
 
@@ -339,12 +357,12 @@ def apply_grid(positions, coords, grid_values):
                 if i == j:
                     raise CoordinateError(
                         f"{_label(kind_i, indices_i)} (atoms numbered from 1) misses its "
-                        f"target by {np.max(error):.3g} {UNITS[kind_i]}"
+                        f"target by {np.max(error):.3g} {KINDS[kind_i].unit}"
                     )
                 raise CoordinateError(
                     f"coordinates {_label(kind_i, indices_i)} and {_label(kind, indices)} "
                     f"(atoms numbered from 1) are coupled: setting the second changes the "
-                    f"first by up to {np.max(error):.3g} {UNITS[kind_i]}; choose atoms that "
+                    f"first by up to {np.max(error):.3g} {KINDS[kind_i].unit}; choose atoms that "
                     "move independently"
                 )
     return stack

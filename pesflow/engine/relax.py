@@ -30,6 +30,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from pesflow.coordinates.kinds import KINDS
 from pesflow.errors import EngineSetupError
 from pesflow.units import BOHR_ANGSTROM
 
@@ -38,8 +39,9 @@ RELAX_MAX_STEPS = 100
 #: geomeTRIC's ``enforce`` threshold: once every constraint is within it (bohr or
 #: radian), the constraints are met exactly on every further step.
 RELAX_ENFORCE = 0.1
-#: Constraint kinds of a relaxed point and the number of atoms each takes.
-CONSTRAINT_ATOMS = {"distance": 2, "angle": 3, "dihedral": 4}
+#: Constraint kinds of a relaxed point (geomeTRIC's names, from the coordinate-kind
+#: registry) and the number of atoms each takes.
+CONSTRAINT_ATOMS = {kind.constraint: kind.n_atoms for kind in KINDS.values()}
 
 
 def check_constraints(constraints, n_atoms: int) -> list[tuple[str, tuple[int, ...], float]]:

@@ -50,7 +50,6 @@ class RunOptions:
     threads_per_batch: int = 1
     mem_mb_per_batch: int = 4000
     runtime_min_per_batch: int = 600
-    retry_failed: bool = False
     batches_per_core: int = 3
     extra_args: list[str] = field(default_factory=list)
 

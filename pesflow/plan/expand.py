@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 from pesflow.coordinates import geometry as coordinates
+from pesflow.coordinates.kinds import column_names
 from pesflow.engine import method_info
 from pesflow.plan import keys
 
@@ -124,21 +125,6 @@ class Batch:
     #: (walk index, {method: key}) in walk order
     entries: list[tuple[int, dict[str, str]]]
     weight: float = 1.0
-
-
-def _coordinate_columns(kinds) -> list[str]:
-    """Column names of a scan's coordinates, unit in the name (r_angstrom, angle_degree, ...)."""
-    base = {"distance": "r", "angle": "angle", "dihedral": "dihedral"}
-    unit = {"distance": "angstrom", "angle": "degree", "dihedral": "degree"}
-    names, seen = [], {}
-    for kind in kinds:
-        seen[kind] = seen.get(kind, 0) + 1
-        suffix = "" if seen[kind] == 1 else str(seen[kind])
-        names.append(f"{base[kind]}{suffix}_{unit[kind]}")
-    return names
-
-
-coordinate_columns = _coordinate_columns
 
 
 def _scan_sets(campaign, start_id):
@@ -311,7 +297,7 @@ def points_frame(plan: Plan) -> pd.DataFrame:
     frames = []
     for set_id, sub in plan.points.groupby("set_id", sort=True):
         gs = plan.geometry_sets[int(set_id)]
-        cols = _coordinate_columns(gs.coordinate_kinds)
+        cols = column_names(gs.coordinate_kinds)
         sub = sub.copy()
         for j, name in enumerate(cols):
             sub[name] = gs.values[sub["walk"].to_numpy(), j]

@@ -14,8 +14,6 @@ import numpy as np
 import pytest
 
 from pesflow.coordinates.geometry import (
-    KINDS,
-    UNITS,
     CoordinateError,
     apply_grid,
     bond_graph,
@@ -24,6 +22,7 @@ from pesflow.coordinates.geometry import (
     measure_many,
     moving_atoms,
 )
+from pesflow.coordinates.kinds import KINDS
 
 # Chains without rings, from ASE's g2 set, and the g2 molecules with rings.
 CHAINS = ["H2O", "NH3", "CH3CH2OH", "H2O2", "CH3OH", "butadiene", "trans-butane"]
@@ -81,8 +80,9 @@ def _assert_angles_kept(atoms, after, moving):
 
 
 def test_kinds_and_units():
-    assert KINDS == {"distance": 2, "angle": 3, "dihedral": 4}
-    assert UNITS == {"distance": "angstrom", "angle": "degree", "dihedral": "degree"}
+    assert {k: v.n_atoms for k, v in KINDS.items()} == {"distance": 2, "angle": 3, "dihedral": 4}
+    units = {k: v.unit for k, v in KINDS.items()}
+    assert units == {"distance": "angstrom", "angle": "degree", "dihedral": "degree"}
 
 
 @pytest.mark.parametrize("name", CHAINS + ["C6H6", "CH3CN"])
