@@ -31,15 +31,19 @@ from pesflow.coordinates.kinds import KINDS
 #: Tolerance on sin(angle) below which three atoms count as collinear, so that the
 #: plane a-b-c (and the rotation axis normal to it) is taken from a fixed rule.
 _COLLINEAR_SIN = 1e-8
+#: A dihedral a-b-c-d is undefined when a-b-c or b-c-d is this close to a line (sine of the
+#: bond angle; 1e-4 is 0.006 degree from linear): there is no plane to measure it from.
+DIHEDRAL_MIN_SIN = 1e-4
 #: Tolerance of :func:`apply_grid` when it checks every coordinate of a grid row.
 GRID_TOLERANCE = 1e-6
 
 
 class CoordinateError(ValueError):
     """Raised when a scan coordinate cannot be set as asked: the atoms that should
-    move are connected back to the fixed ones (a ring), a ``move:`` list is
-    inconsistent with the coordinate, a target value is out of range, or two
-    coordinates of a grid are coupled."""
+    move are connected back to the fixed ones (a ring, or two atoms that are not bonded
+    to each other), a ``move:`` list is inconsistent with the coordinate, a dihedral
+    has three atoms on a line, a target value is out of range, or two coordinates of a
+    grid are coupled."""
 
 
 def _label(kind, indices):
@@ -99,7 +103,12 @@ def measure_many(positions_stack, kind, atoms):
     if stack.ndim == 2:
         stack = stack[None]
     idx = _check(kind, atoms, stack.shape[1])
-    return _MEASURE[kind]([stack[:, i] for i in idx])
+    p = [stack[:, i] for i in idx]
+    if kind == "dihedral":  # name the atoms when the dihedral has no plane
+        problem = undefined_dihedral(p, idx)
+        if problem:
+            raise CoordinateError(problem)
+    return _MEASURE[kind](p)
 
 
 def _measure_distance(p):
@@ -114,6 +123,40 @@ def _measure_dihedral(p):
     # ASE's arctan2 formula for dihedrals; it returns [0, 360] and may give 360.0
     # after rounding, so fold that back to 0.
     return np.mod(get_dihedrals(p[1] - p[0], p[2] - p[1], p[3] - p[2]), 360.0)
+
+
+def undefined_dihedral(p, atoms=None):
+    """None when the dihedral is defined in every geometry, else a sentence saying why not.
+
+    p: the four atoms' positions, one (m, 3) (or (3,)) array per atom, in angstrom.
+    atoms: their 0-based indices, for the message (default: "a, b, c, d").
+    A dihedral a-b-c-d is measured between the planes a-b-c and b-c-d; when three
+    consecutive atoms lie on a line (sine of the angle below :data:`DIHEDRAL_MIN_SIN`)
+    that plane does not exist.
+
+    >>> import ase.build
+    >>> acetylene = ase.build.molecule("C2H2").positions
+    >>> undefined_dihedral([acetylene[i] for i in (3, 0, 1, 2)], [3, 0, 1, 2])[:82]
+    'dihedral 4-1-2-3 (atoms numbered from 1) is undefined: atoms 4, 1, 2 lie on a line'
+    """
+    p = [np.atleast_2d(np.asarray(x, dtype=float)) for x in p]
+    names = ["a", "b", "c", "d"] if atoms is None else [str(int(i) + 1) for i in atoms]
+    for first in (0, 1):
+        v0 = p[first] - p[first + 1]
+        v1 = p[first + 2] - p[first + 1]
+        lengths = _norm(v0) * _norm(v1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sin = _norm(np.cross(v0, v1)) / lengths
+        bad = ~(sin >= DIHEDRAL_MIN_SIN)  # NaN (two atoms on top of each other) counts too
+        if np.any(bad):
+            angle = float(np.asarray(_angle_degree(v0, v1))[bad][0])
+            label = "dihedral " + "-".join(names) if atoms is not None else "the dihedral"
+            return (
+                f"{label}{' (atoms numbered from 1)' if atoms is not None else ''} is "
+                f"undefined: atoms {', '.join(names[first : first + 3])} lie on a line "
+                f"(angle {angle:.4g} degree); a dihedral needs a-b-c and b-c-d bent"
+            )
+    return None
 
 
 def measure(positions, kind, atoms):
@@ -175,9 +218,10 @@ def moving_atoms(atoms, kind, indices, move=None):
     Rule: the side of the LAST listed atom moves.  distance [a, b]: cut the bond
     a-b (if any) and take b's fragment; angle [a, b, c] (vertex b): cut b-c, take c's
     fragment; dihedral [a, b, c, d]: cut b-c, take the fragment of c (and of d, in
-    case d is not bonded to c).  If that fragment still holds a fixed atom the
-    coordinate lies in a ring (or the fragment is bonded back some other way) and
-    :class:`CoordinateError` says so.  Returns the sorted 0-based indices.
+    case d is not bonded to c).  If that fragment still holds a fixed atom there is
+    no side to move: the cut bond lies in a ring, or the two atoms are not bonded to
+    each other but joined through others (ammonia's H...H); :class:`CoordinateError`
+    says which, with the path that joins them.  Returns the sorted 0-based indices.
 
     >>> import ase.build
     >>> moving_atoms(ase.build.molecule("CH3OH"), "dihedral", [2, 0, 1, 3]).tolist()
@@ -191,6 +235,7 @@ def moving_atoms(atoms, kind, indices, move=None):
     graph = bond_graph(atoms).tolil()
     # The bond that the coordinate stretches or turns about: its two sides separate.
     cut = [indices[i] for i in KINDS[kind].cut]
+    bonded = graph[cut[0], cut[1]] != 0
     graph[cut[0], cut[1]] = 0
     graph[cut[1], cut[0]] = 0
     graph = graph.tocsr()
@@ -202,13 +247,37 @@ def moving_atoms(atoms, kind, indices, move=None):
     moving = np.flatnonzero(np.isin(labels, list(sides)))
     fixed = [i for i in _fixed_atoms(kind, indices) if i in moving]
     if fixed:
-        raise CoordinateError(
-            f"{_label(kind, indices)} (atoms numbered from 1) lies in a ring: the side of "
-            f"atom {indices[-1] + 1} is bonded back to atom(s) "
-            f"{', '.join(str(i + 1) for i in fixed)}; name the atoms that move with the "
-            "coordinate's move: list"
-        )
+        raise CoordinateError(_no_side_message(kind, indices, cut, bonded, graph, fixed))
     return moving
+
+
+def _no_side_message(kind, indices, cut, bonded, graph, fixed):
+    """Why the side of the last atom cannot move alone, and what to write instead."""
+    label = f"{_label(kind, indices)} (atoms numbered from 1)"
+    # The shortest bonded path from the cut's first atom to its second, as a chemist reads it.
+    _, previous = csgraph.shortest_path(
+        graph, directed=False, indices=cut[1], return_predecessors=True
+    )
+    path, atom = [], cut[0]
+    while atom >= 0:
+        path.append(atom + 1)
+        atom = previous[atom]
+    via = "-".join(str(a) for a in path)
+    a, b = cut[0] + 1, cut[1] + 1
+    if bonded:
+        reason = (
+            f"the bond {a}-{b} lies in a ring ({via} closes it), so the side of atom "
+            f"{indices[-1] + 1} is bonded back to atom(s) {', '.join(str(i + 1) for i in fixed)}"
+        )
+    else:
+        reason = (
+            f"atoms {a} and {b} are not bonded to each other (they are joined through {via}), "
+            f"so there is no side of atom {indices[-1] + 1} that moves alone"
+        )
+    return (
+        f"{label} has no side to move: {reason}; list the atoms that move with the "
+        f"coordinate's move: [...] (e.g. move: [{indices[-1] + 1}])"
+    )
 
 
 def _check_targets(kind, indices, values):
@@ -272,6 +341,9 @@ def _set_angle(stack, p, moving, values):
 
 def _set_dihedral(stack, p, moving, values):
     """Rotate the moving atoms about the b->c axis."""
+    problem = undefined_dihedral(p)
+    if problem:
+        raise CoordinateError(problem)
     axis = p[2] - p[1]
     axis = axis / _norm(axis)[:, None]
     delta = np.radians(values - _measure_dihedral(p))

@@ -17,6 +17,12 @@ two solutions is kept (the record's ``attempts`` says so).
 
 The done marker written at the end lists the batch's points and their status;
 Snakemake uses it as the job's output.
+
+A Snakemake job usually holds several walks (a *job* file, :data:`JOB_FORMAT`, packed by
+:mod:`pesflow.plan.batches`): :func:`run_job` runs :func:`run_batch` on each of them in
+turn in this one process, so the interpreter and PySCF start once per job, and writes
+one done marker for the job.  Durability is that of each walk: every point is stored
+the moment it is finished.
 """
 
 from __future__ import annotations
@@ -38,14 +44,18 @@ log = logging.getLogger("pesflow.execution.batch")
 
 TASK_FORMAT = "pesflow-batch"
 TASK_VERSION = 1
+#: A job file: several walk tasks (each of :data:`TASK_FORMAT`) run one after the other.
+JOB_FORMAT = "pesflow-job"
+JOB_VERSION = 1
 
 #: A solution found walking backwards must be lower by this much to replace the first.
 LOWER_BY_HARTREE = 1e-7
 
 
 def read_task(path) -> dict:
-    """Read a batch task file written by :func:`pesflow.execution.driver.write_tasks`."""
-    task = json.loads(Path(path).read_text())
+    """Read a batch task file (or check a task already read, a dict; e.g. one walk of a
+    job file) written by :func:`pesflow.execution.driver.write_tasks`."""
+    task = path if isinstance(path, dict) else json.loads(Path(path).read_text())
     if task.get("format") != TASK_FORMAT or task.get("version") != TASK_VERSION:
         raise ValueError(f"{path}: not a pesflow batch task of version {TASK_VERSION}")
     return task
@@ -351,6 +361,55 @@ def run_batch(
             counts["improved"] += _backward_sweep(walk, run, points, status)
     counts["failed"] = sum(1 for v in status.values() if v == "failed")
     marker = {"batch_id": task["batch_id"], "wall_s": time.time() - t0, **counts, "points": status}
+    if done_path is not None:  # None: one walk of a job, whose marker run_job writes
+        done_path = Path(done_path)
+        done_path.parent.mkdir(parents=True, exist_ok=True)
+        atomic_write(done_path, json.dumps(marker, indent=1), fsync=False)
+    return marker
+
+
+def run_job(
+    job_path,
+    done_path,
+    threads: int = 1,
+    continuity: bool = True,
+    max_memory_mb: int | None = None,
+) -> dict:
+    """Run every walk of a job file in order (:func:`run_batch` on each); write one marker.
+
+    A plain walk task file (:data:`TASK_FORMAT`) is run as a job of one walk.  Returns
+    the marker's content: the job id, summed counts, the status of every point, and
+    each walk's id and seconds.
+    """
+    job = json.loads(Path(job_path).read_text())
+    if job.get("format") == TASK_FORMAT:
+        return run_batch(job_path, done_path, threads, continuity, max_memory_mb)
+    if job.get("format") != JOB_FORMAT or job.get("version") != JOB_VERSION:
+        raise ValueError(f"{job_path}: not a pesflow job or batch task of a known version")
+    t0 = time.time()
+    counts = {"computed": 0, "skipped": 0, "failed": 0, "improved": 0}
+    status, walks = {}, []
+    for task in job["walks"]:
+        marker = run_batch(task, None, threads, continuity, max_memory_mb)
+        for name in counts:
+            counts[name] += marker[name]
+        status.update(marker["points"])
+        walks.append({"batch_id": marker["batch_id"], "wall_s": marker["wall_s"]})
+        log.info(
+            "walk %s: %d computed, %d failed, %d cached, %.1f s",
+            marker["batch_id"],
+            marker["computed"],
+            marker["failed"],
+            marker["skipped"],
+            marker["wall_s"],
+        )
+    marker = {
+        "batch_id": job["job_id"],
+        "wall_s": time.time() - t0,
+        **counts,
+        "walks": walks,
+        "points": status,
+    }
     done_path = Path(done_path)
     done_path.parent.mkdir(parents=True, exist_ok=True)
     atomic_write(done_path, json.dumps(marker, indent=1), fsync=False)
@@ -360,9 +419,9 @@ def run_batch(
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(
         prog="python -m pesflow.execution.batch",
-        description="Run one pesflow batch (used by Snakemake).",
+        description="Run one pesflow job: its walks in order (used by Snakemake).",
     )
-    parser.add_argument("task", help="batch task JSON")
+    parser.add_argument("task", help="job (or single batch) task JSON")
     parser.add_argument("done", help="done marker to write")
     parser.add_argument("--threads", type=int, default=1)
     parser.add_argument(
@@ -374,7 +433,7 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
     logging.basicConfig(level=logging.INFO, format="%(asctime)s %(levelname)s %(message)s")
     os.environ.setdefault("OMP_NUM_THREADS", str(args.threads))
-    marker = run_batch(args.task, args.done, threads=args.threads, max_memory_mb=args.max_memory_mb)
+    marker = run_job(args.task, args.done, threads=args.threads, max_memory_mb=args.max_memory_mb)
     log.info(
         "batch %s: %d computed, %d failed, %d cached, %d improved walking back, %.1f s",
         marker["batch_id"],

@@ -99,7 +99,7 @@ def build_report(
     """Write the comparison report of ``campaign`` into ``out_dir`` (created if needed).
 
     Args:
-        campaign: the loaded :class:`~pesflow.campaign.spec.Campaign`.
+        campaign: the loaded :class:`~pesflow.campaign.resolved.Campaign`.
         plan: its :class:`~pesflow.plan.expand.Plan` (:func:`pesflow.plan.expand.expand`).
         points: :func:`pesflow.tables.points.points_table` of the campaign, all columns.
         summary: :func:`pesflow.tables.summary.summary_table` of the same points.
@@ -171,12 +171,14 @@ def terminal_summary(campaign, summary: pd.DataFrame, console, *, paths=None) ->
         )
     )
     per_level = (
-        summary.groupby("level").agg(
+        summary.groupby("level", sort=False)
+        .agg(
             core_s=("cost_core_s", "sum"),
             done=("n_done", "sum"),
-            failed=("n_failed_points", "sum"),
+            failed=("n_failed", "sum"),
             pending=("n_pending", "sum"),
         )
+        .reindex([lvl for lvl in data.levels if lvl in set(summary["level"])])  # spec's order
         if len(summary)
         else pd.DataFrame(columns=["core_s", "done", "failed", "pending"])
     )

@@ -1,13 +1,16 @@
 """The Markdown summary of a report: the same verdicts and tables as the HTML page, figures
 referenced as PNG files next to it.
 
-User text is made inert for Markdown renderers that pass HTML through: ``<``, ``>`` and ``&``
-become entities, ``|`` is escaped (it would split a table cell) and line breaks are removed.
+User text stays plain text (``Huber & Herzberg``, ``6-31g*``), readable in the file itself, and
+is made inert only where Markdown would read it as markup, with CommonMark backslash escapes:
+``|`` (it would split a table cell), ``<`` that would open an HTML tag, ``&`` that would form
+an entity reference, and a backslash before punctuation; line breaks become spaces.  (The HTML
+page escapes the same text with :func:`html.escape`.)
 """
 
 from __future__ import annotations
 
-import html
+import re
 
 import numpy as np
 
@@ -21,11 +24,21 @@ from pesflow.report.tables import (
     scan_label,
 )
 
+#: Characters Markdown would read as markup in user text: a backslash before ASCII punctuation,
+#: ``|``, ``<`` opening a tag (``<b``, ``</``, ``<!``, ``<?``), ``&`` opening an entity.
+_MARKUP = re.compile(r"\\(?=[!-/:-@\[-`{-~])|\||<(?=[A-Za-z/!?])|&(?=#?\w+;)")
+
 
 def md(text) -> str:
-    """User text safe inside Markdown (and inside a table cell)."""
-    text = html.escape(str(text), quote=False)
-    return text.replace("|", "\\|").replace("\r", " ").replace("\n", " ")
+    """User text as plain text inside Markdown (and inside a table cell).
+
+    >>> md("Huber & Herzberg (1979)")
+    'Huber & Herzberg (1979)'
+    >>> md("<b>x</b> | &amp;")
+    '\\\\<b>x\\\\</b> \\\\| \\\\&amp;'
+    """
+    text = _MARKUP.sub(lambda m: "\\" + m.group(0), str(text))
+    return text.replace("\r", " ").replace("\n", " ")
 
 
 def _table(head, rows) -> list[str]:

@@ -66,7 +66,7 @@ class ReportData:
         level_method, level_basis: method and basis of each level.
         quantities: the quantities shown, in order.
         values: one row per curve x level x quantity: ``molecule, scan, kind, level, method,
-            basis, quantity, value, dev_reference_level, state, n_done, n_failed_points,
+            basis, quantity, value, dev_reference_level, state, n_done, n_failed,
             n_pending, flags`` (``state``: ``value`` / ``pending`` / ``failed`` /
             ``not determined``; ``flags``: the warnings that concern this number, joined by
             ``" | "``).
@@ -131,7 +131,7 @@ def _state(value, row) -> str:
 
 
 def _partial_flag(row) -> Flag | None:
-    pending, failed = int(row.get("n_pending", 0)), int(row.get("n_failed_points", 0))
+    pending, failed = int(row.get("n_pending", 0)), int(row.get("n_failed", 0))
     if not pending and not failed:
         return None
     total = int(row.get("n_done", 0)) + pending + failed
@@ -196,7 +196,7 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
                     "reference_level": reference_level or "",
                     "state": _state(value, row),
                     "n_done": int(row.get("n_done", 0)),
-                    "n_failed_points": int(row.get("n_failed_points", 0)),
+                    "n_failed": int(row.get("n_failed", 0)),
                     "n_pending": int(row.get("n_pending", 0)),
                     "flags": tuple(concern),
                 }
@@ -214,7 +214,7 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
         "reference_level",
         "state",
         "n_done",
-        "n_failed_points",
+        "n_failed",
         "n_pending",
         "flags",
     ]
@@ -324,17 +324,7 @@ def _ordered_status(points, molecules, levels):
     """Done / failed / pending per molecule and level, in the spec's order."""
     if not len(points):
         return pd.DataFrame(columns=["molecule", "level", "done", "failed", "pending"])
-    counts = status_counts(points)
-    rank_m = {m: i for i, m in enumerate(molecules)}
-    rank_l = {lvl: i for i, lvl in enumerate(levels)}
-    order = sorted(
-        range(len(counts)),
-        key=lambda i: (
-            rank_m.get(counts["molecule"].iloc[i], len(rank_m)),
-            rank_l.get(counts["level"].iloc[i], len(rank_l)),
-        ),
-    )
-    return counts.iloc[order].reset_index(drop=True)
+    return status_counts(points, molecules, levels)
 
 
 def _cost_table(points, levels, reference_level):
@@ -433,7 +423,7 @@ def collect(
     """Assemble :class:`ReportData` from the points table and the summary table.
 
     Args:
-        campaign: the :class:`~pesflow.campaign.spec.Campaign`.
+        campaign: the :class:`~pesflow.campaign.resolved.Campaign`.
         plan: its :class:`~pesflow.plan.expand.Plan` (checked to be of the same campaign).
         points: :func:`pesflow.tables.points.points_table` of the campaign (all columns).
         summary: :func:`pesflow.tables.summary.summary_table` of the campaign.
@@ -460,7 +450,7 @@ def collect(
                 "method",
                 "basis",
                 "n_done",
-                "n_failed_points",
+                "n_failed",
                 "n_pending",
                 "flags",
             ]

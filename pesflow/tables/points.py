@@ -59,7 +59,9 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
         frame = frame.merge(rec, on="key", how="left")
     else:
         frame["converged"] = pd.Series([pd.NA] * len(frame), dtype="object")
-    for col in wanted or ():
+    # An empty (or not yet created) store still gives every column, so that a report or
+    # a summary before the first run shows pending points instead of failing.
+    for col in wanted if wanted is not None else [c for c in TRAILING if c != "status"]:
         if col not in frame.columns:
             frame[col] = np.nan
     frame["status"] = _status_of(frame["converged"])
@@ -75,14 +77,35 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
     return frame[order]
 
 
-def status_counts(table: pd.DataFrame) -> pd.DataFrame:
-    """Counts of done / failed / pending points per molecule and level."""
-    counts = table.groupby(["molecule", "level", "status"]).size().unstack("status", fill_value=0)
+def status_counts(table: pd.DataFrame, molecules=None, levels=None) -> pd.DataFrame:
+    """Counts of done / failed / pending points per molecule and level.
+
+    Rows follow ``molecules`` and ``levels`` (the spec's order, as ``plan`` shows them);
+    names not listed, or all when none are given, follow in the table's own order.
+    """
+    counts = (
+        table.groupby(["molecule", "level", "status"], sort=False)
+        .size()
+        .unstack("status", fill_value=0)
+    )
     for col in ("done", "failed", "pending"):
         if col not in counts.columns:
             counts[col] = 0
     counts = counts[["done", "failed", "pending"]].reset_index()
-    return counts
+    rank_m = {m: i for i, m in enumerate(molecules or ())}
+    rank_l = {lvl: i for i, lvl in enumerate(levels or ())}
+    first_m = {m: i for i, m in enumerate(dict.fromkeys(counts["molecule"]))}
+    first_l = {lvl: i for i, lvl in enumerate(dict.fromkeys(counts["level"]))}
+    order = sorted(
+        range(len(counts)),
+        key=lambda i: (
+            rank_m.get(
+                counts["molecule"].iloc[i], len(rank_m) + first_m[counts["molecule"].iloc[i]]
+            ),
+            rank_l.get(counts["level"].iloc[i], len(rank_l) + first_l[counts["level"].iloc[i]]),
+        ),
+    )
+    return counts.iloc[order].reset_index(drop=True)
 
 
 def failed_points(table: pd.DataFrame) -> pd.DataFrame:

@@ -100,12 +100,12 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
             "basis": sub["basis"].iloc[0],
             "coordinates": ", ".join(c.label for c in campaign.scans[gs.scan].coordinates),
             "n_done": int((sub["status"] == "done").sum()),
-            "n_failed_points": int((sub["status"] == "failed").sum()),
+            "n_failed": int((sub["status"] == "failed").sum()),
             "n_pending": int((sub["status"] == "pending").sum()),
             "cost_core_s": float(sub["wall_s"].fillna(0).sum()) if "wall_s" in sub else np.nan,
         }
-        row["n_failed"] = head["n_failed_points"]  # the analysis counts pending points too
-        rows.append({**head, **row})
+        # The analysis counts pending points as failed too; the status is what counts here.
+        rows.append({**head, **row, "n_failed": head["n_failed"]})
     summary = pd.DataFrame(rows)
     if summary.empty:
         return summary

@@ -11,7 +11,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from pesflow.campaign.spec import json_schema, load_campaign
+from pesflow.campaign import load_campaign
+from pesflow.campaign.spec import json_schema
 from pesflow.cli import main
 from pesflow.errors import SpecError
 
@@ -313,6 +314,242 @@ def test_json_schema_in_sync():
     """workflows/schemas/campaign.schema.json is the schema exported from the models."""
     path = Path(__file__).resolve().parents[2] / "workflows" / "schemas" / "campaign.schema.json"
     assert json.loads(path.read_text()) == json.loads(json.dumps(json_schema(), sort_keys=True))
+
+
+# ---------------------------------------------------------------------------
+# odd input: clear one-line errors, never a traceback or a hang (issue 9)
+# ---------------------------------------------------------------------------
+
+
+def test_start_value_out_of_range_is_reported_under_from(capsys):
+    msg = refused(
+        GOOD.replace("from: 0.7, to: 1.4", "from: -0.5, to: 1.4"),
+        capsys,
+        "scans.stretch.coordinates[0].from:",
+        "got -0.5",
+        "distances must be positive",
+        "campaign.yaml:10:",
+    )
+    assert ".to:" not in msg
+
+
+def test_end_value_out_of_range_is_reported_under_to(capsys):
+    refused(
+        GOOD.replace("from: 90, to: 120", "from: 90, to: 200"),
+        capsys,
+        "scans.bend.coordinates[0].to:",
+        "got 200",
+    )
+
+
+def test_value_out_of_range_in_a_list_names_its_index(capsys):
+    refused(
+        GOOD.replace("from: 90, to: 120, step: 5", "values: [90, 100, 181]"),
+        capsys,
+        "scans.bend.coordinates[0].values[2]:",
+        "got 181",
+        "(0, 180]",
+    )
+
+
+ACETYLENE = """\
+campaign: unit-spec
+molecules:
+  acetylene: {builtin: C2H2}
+scans:
+  twist:
+    molecules: [acetylene]
+    coordinates:
+      - {type: dihedral, atoms: [4, 1, 2, 3], from: 0, to: 180, points: 7}
+levels:
+  - {method: hf, basis: sto-3g}
+"""
+
+
+def test_dihedral_over_collinear_atoms_is_a_spec_error_not_a_traceback(capsys):
+    # ASE's g2 acetylene is linear (H-C-C-H on the z axis): no plane, so no dihedral.
+    refused(
+        ACETYLENE,
+        capsys,
+        "campaign.yaml:8:",
+        "scans.twist.coordinates[0].atoms:",
+        "dihedral 4-1-2-3",
+        "lie on a line",
+        "a dihedral needs a-b-c and b-c-d bent",
+    )
+
+
+def test_angle_grid_reaching_180_with_a_dihedral_over_it_is_refused(capsys):
+    # Water's H-O-H opened to 180 degrees leaves the dihedral 3-1-2-... undefined: caught
+    # at the trial corner of the grid, before planning.
+    spec = """\
+    campaign: unit-spec
+    molecules:
+      peroxide: {builtin: H2O2}
+    scans:
+      grid:
+        molecules: [peroxide]
+        coordinates:
+          - {type: angle, atoms: [2, 1, 3], from: 100, to: 180, points: 5}
+          - {type: dihedral, atoms: [3, 1, 2, 4], from: 0, to: 180, points: 5}
+    levels:
+      - {method: hf, basis: sto-3g}
+    """
+    refused(spec, capsys, "scans.grid.coordinates:", "lie on a line")
+
+
+@pytest.mark.parametrize(
+    ("range_", "field"),
+    [
+        ("from: 0.7, to: 1.4, points: 30000000", "points"),
+        ("from: 0.7, to: 1.4, step: 0.0000000001", "step"),
+    ],
+)
+def test_absurd_point_count_is_refused_before_any_array_is_built(capsys, range_, field):
+    # 7e9 values would need 56 GB; the count is checked from points/step alone.
+    refused(
+        GOOD.replace("from: 0.7, to: 1.4, points: 15", range_),
+        capsys,
+        f"scans.stretch.coordinates[0].{field}:",
+        "at most 200,000 points are allowed",
+        "split the study into several campaigns",
+    )
+
+
+def test_grid_whose_product_explodes_is_refused(capsys):
+    grid = GOOD.replace(
+        "      - {type: angle, atoms: [2, 1, 3], from: 90, to: 120, step: 5}",
+        "      - {type: angle, atoms: [2, 1, 3], from: 90, to: 120, points: 1000}\n"
+        "      - {type: distance, atoms: [1, 2], from: 0.8, to: 1.2, points: 1000}",
+    )
+    refused(grid, capsys, "scans.bend.coordinates:", "1000 x 1000 = 1,000,000 points", "200,000")
+
+
+def test_campaign_total_over_the_limit_names_the_largest_scan(capsys):
+    # 60,000 grid points x 2 molecules x 3 levels = 360,000 points.
+    refused(
+        GOOD.replace("points: 15", "points: 60000"),
+        capsys,
+        "scans.stretch:",
+        "the campaign has 360,021 points",  # + 7 bend points x 1 molecule x 3 levels
+        "60,000 grid points x 2 molecule(s) x 3 level(s)",
+    )
+
+
+AMMONIA = """\
+campaign: unit-spec
+molecules:
+  ammonia: {builtin: NH3}
+scans:
+  hh:
+    molecules: [ammonia]
+    coordinates:
+      - {type: distance, atoms: [2, 3], from: 1.5, to: 1.8, points: 4}
+levels:
+  - {method: hf, basis: sto-3g}
+"""
+
+
+def test_distance_between_atoms_that_are_not_bonded_says_so_and_how_to_fix_it(capsys):
+    # ASE's g2 ammonia: N is atom 1, the hydrogens 2-4; H...H is 1.6 A, no bond.
+    msg = refused(
+        AMMONIA,
+        capsys,
+        "campaign.yaml:8:",
+        "scans.hh.coordinates[0].atoms:",
+        "atoms 2 and 3 are not bonded to each other",
+        "joined through 2-1-3",
+        "move: [3]",
+    )
+    assert "ring" not in msg
+    ok = AMMONIA.replace("points: 4}", "points: 4, move: [3]}")
+    assert main(["check", str(write(ok))]) == 0
+
+
+def test_misspelt_key_gets_did_you_mean_and_the_allowed_list(capsys):
+    refused(
+        GOOD.replace("points: 15}", "pionts: 15}"),
+        capsys,
+        "scans.stretch.coordinates[0].pionts:",
+        "did you mean 'points'?",
+        "allowed: type, atoms, from, to, points, step, values, move",
+    )
+
+
+def test_misspelt_coordinate_type_gets_did_you_mean(capsys):
+    refused(
+        GOOD.replace("type: distance", "type: distnace"),
+        capsys,
+        "scans.stretch.coordinates[0].type:",
+        "did you mean 'distance'?",
+        "'distance', 'angle' or 'dihedral'",
+    )
+
+
+def test_misspelt_basis_gets_did_you_mean(capsys):
+    refused(
+        GOOD.replace("basis: sto-3g}", "basis: sto-3gg}"),
+        capsys,
+        "levels[1].basis:",
+        "unknown basis 'sto-3gg'",
+        "did you mean 'sto3g'",
+    )
+
+
+def test_misspelt_method_gets_did_you_mean_and_the_allowed_list(capsys):
+    refused(
+        GOOD.replace("method: b3lyp", "method: b3lpy"),
+        capsys,
+        "levels[1].method:",
+        "did you mean 'b3lyp'",
+        "use one of hf, mp2, ccsd, ccsd(t)",
+    )
+
+
+def test_misspelt_builtin_molecule_gets_did_you_mean(capsys):
+    refused(
+        GOOD.replace("{builtin: HF}", "{builtin: NH4}"),
+        capsys,
+        "molecules.hf_molecule.builtin:",
+        "did you mean",
+        "NH3",
+    )
+
+
+def test_misspelt_molecule_reference_in_a_scan_gets_did_you_mean(capsys):
+    refused(
+        GOOD.replace("molecules: [water]", "molecules: [watter]"),
+        capsys,
+        "scans.bend.molecules[0]:",
+        "did you mean 'water'?",
+        "defined: hf_molecule, oh_radical, water",
+    )
+
+
+def test_misspelt_reference_level_gets_did_you_mean(capsys):
+    refused(
+        GOOD.replace("reference_level: hf/6-31g", "reference_level: hf/6-31gg"),
+        capsys,
+        "compare.reference_level:",
+        "did you mean 'hf/6-31g'",
+        "allowed: hf/sto-3g, hf/6-31g, b3lyp/sto-3g",
+    )
+
+
+def test_misspelt_scan_and_quantity_in_reference_values_get_did_you_mean(capsys):
+    values = GOOD + (
+        "  reference_values:\n"
+        "    - {molecule: hf_molecule, scan: strech, quantity: r_e_angstrom, value: 0.9168,"
+        " source: Huber & Herzberg 1979}\n"
+    )
+    refused(values, capsys, "reference_values[0].scan:", "did you mean 'stretch'?")
+    refused(
+        values.replace("scan: strech", "scan: stretch").replace("r_e_angstrom", "r_e_angstom"),
+        capsys,
+        "reference_values[0].quantity:",
+        "did you mean 'r_e_angstrom'",
+        "allowed:",
+    )
 
 
 def test_tight_binding_level_has_no_basis_and_its_label_is_the_method():

@@ -133,5 +133,5 @@ def test_summary_columns_carry_units_and_costs(summary):
         "flags",
     ):
         assert col in summary.columns
-    assert (summary["n_pending"] == 0).all() and (summary["n_failed_points"] == 0).all()
+    assert (summary["n_pending"] == 0).all() and (summary["n_failed"] == 0).all()
     assert (summary["cost_core_s"] > 0).all()
