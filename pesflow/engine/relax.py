@@ -90,8 +90,8 @@ def check_constraints(constraints, n_atoms: int) -> list[tuple[str, tuple[int, .
             # Not a range rule but a limit of the optimiser: geomeTRIC's angle coordinate is
             # singular at a linear arrangement, so a linear angle cannot be held there.
             raise EngineSetupError(
-                f"{where}: a relaxed scan cannot hold an angle at exactly {value:g} degree "
-                "(the optimiser's angle coordinate is undefined there); stop just short of it"
+                f"{where}: a relaxed scan's angle must lie in (0, 180) degrees, got {value:g}: "
+                "the optimiser's angle coordinate is undefined at a linear arrangement"
             )
         if registered.period is not None:
             value = _wrap_degree(value)
