@@ -42,7 +42,7 @@ class Measured:
     load_before: float = 0.0
 
 
-def run_child(cmd, cwd=None, env=None, timeout_s=3600) -> Measured:
+def run_child(cmd, cwd=None, env=None, timeout_s=3600, on_tick=None) -> Measured:
     """Run ``cmd`` to the end; return its wall time, peak RSS (MiB) and output.
 
     Inputs:
@@ -50,6 +50,8 @@ def run_child(cmd, cwd=None, env=None, timeout_s=3600) -> Measured:
         cwd: working folder (default: this process's).
         env: extra environment variables; OMP_NUM_THREADS defaults to 1.
         timeout_s: kill the child after this many seconds (default 3600).
+        on_tick: called with the seconds since the start every ~10 ms while the child
+            runs (e.g. to note when the first point appears in the store).
     """
     full_env = dict(os.environ)
     full_env.setdefault("OMP_NUM_THREADS", "1")
@@ -75,6 +77,8 @@ def run_child(cmd, cwd=None, env=None, timeout_s=3600) -> Measured:
                 proc.kill()
                 pid, status, usage = os.wait4(proc.pid, 0)
                 break
+            if on_tick is not None:
+                on_tick(time.perf_counter() - start)
             time.sleep(0.01)
         wall_s = time.perf_counter() - start
         proc.returncode = os.waitstatus_to_exitcode(status)
@@ -152,7 +156,7 @@ def synthetic_records(plan, pts, seed: int = 0):
 
 
 def plan_of(spec_path: Path):
-    from pesflow.campaign.spec import load_campaign
+    from pesflow.campaign import load_campaign
     from pesflow.plan.expand import expand
 
     campaign = load_campaign(spec_path)

@@ -29,7 +29,7 @@ err_console = Console(stderr=True, highlight=False)
 
 
 def _load(spec):
-    from pesflow.campaign.spec import load_campaign
+    from pesflow.campaign import load_campaign
 
     return load_campaign(spec)
 
@@ -135,14 +135,14 @@ def _plan_table(plan, store, done, sample_per_curve=20):
 
 def cmd_plan(args) -> int:
     from pesflow.plan import cost
-    from pesflow.plan.expand import make_batches
+    from pesflow.plan.batches import plan_jobs
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
     store = _store(campaign)
     done = _done_keys(store)
     nbf = cost.basis_function_counts(campaign)
-    batches = make_batches(
+    jobs = plan_jobs(
         plan, done, cores=args.cores or _cpu_count(), size_weight=cost.size_weights(nbf)
     )
     table = _plan_table(plan, store, done)
@@ -166,7 +166,8 @@ def cmd_plan(args) -> int:
     total_h = float(estimate["estimate_core_h"].sum()) if len(estimate) else 0.0
     console.print(
         f"{len(table)} points, {n_cached} cached, {len(table) - n_cached} to compute "
-        f"in {len(batches)} batches; about {total_h:.3g} core-hours left; store: "
+        f"in {len(jobs)} jobs ({sum(len(j.batches) for j in jobs)} walks); "
+        f"about {total_h:.3g} core-hours left; store: "
         f"{campaign.store_path}",
         soft_wrap=True,
     )
@@ -245,7 +246,7 @@ def cmd_status(args) -> int:
 
 def cmd_run(args) -> int:
     from pesflow.execution import driver as runner
-    from pesflow.plan.expand import make_batches
+    from pesflow.plan import batches as packing
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
@@ -254,25 +255,27 @@ def cmd_run(args) -> int:
         cores=args.cores,
         profile=args.profile,
         threads_per_batch=args.threads_per_batch,
-        retry_failed=args.retry_failed,
     )
     lock = runner.RunLock(campaign.results_path / ".pesflow" / "run.lock").acquire()
     try:
         recompute = _failed_keys(store) if args.retry_failed else set()
         done = _done_keys(store) - recompute
-        batches = make_batches(
+        target_job_s = options.target_job_s or (
+            packing.TARGET_JOB_S_CLUSTER if options.profile else packing.TARGET_JOB_S_LOCAL
+        )
+        batches = packing.plan_jobs(
             plan,
             done,
             cores=args.cores or _cpu_count(),
-            batches_per_core=options.batches_per_core,
             size_weight=_size_weights(campaign, plan, done),
+            target_job_s=target_job_s,
         )
         pending = set(plan.points["key"]) - done
         if not batches:
             console.print("nothing to compute: every point is in the store")
         else:
             console.print(
-                f"{len(pending)} points to compute in {len(batches)} batches "
+                f"{len(pending)} points to compute in {len(batches)} jobs "
                 f"({len(plan.points) - len(pending)} cached); store: "
                 f"{campaign.store_path}"
             )
@@ -287,7 +290,15 @@ def cmd_run(args) -> int:
                     "run the same command again to continue"
                 )
                 return EXIT_INTERRUPTED
-            if outcome.returncode != 0:
+            if outcome.stalled:
+                err_console.print(
+                    f"all {len(pending)} points are stored but the scheduler still reported jobs "
+                    f"running {options.stall_grace_s:.0f} s after the last batch ended, so "
+                    "Snakemake was stopped; the executor's status query may not work on this "
+                    "cluster (see configs/profiles/slurm/README.md)",
+                    soft_wrap=True,
+                )
+            elif outcome.returncode != 0:
                 err_console.print(f"some batch jobs failed; Snakemake's log: {outcome.log_path}")
         if store.exists():
             store.compact()

@@ -25,6 +25,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from pesflow.analysis.flags import Flag
 from pesflow.units import convert_energy
 
 #: Units in which relative energies and barriers are reported.
@@ -202,17 +203,25 @@ def dissociation_energy(
         d_e = e_frag - p.energy_hartree
         if flat and abs(e_last - e_frag) > asymptote_tol_hartree:
             flags.append(
-                f"the scan levels off {convert_energy(e_last - e_frag, 'ev'):+.3g} eV away from "
-                "the sum of the fragment energies: it does not reach those fragments (another "
-                "state, or a reference that cannot dissociate correctly)"
+                Flag(
+                    "fragments-not-reached",
+                    f"the scan levels off {convert_energy(e_last - e_frag, 'ev'):+.3g} eV away "
+                    "from the sum of the fragment energies: it does not reach those fragments "
+                    "(another state, or a reference that cannot dissociate correctly)",
+                    (r_last,),
+                )
             )
         return Dissociation(d_e, "fragments", slope, missing, flat, tuple(flags))
     d_e = e_last - p.energy_hartree
     if not flat:
         more = "" if not np.isfinite(missing) else f", about {convert_energy(missing, 'ev'):.2g} eV"
         flags.append(
-            f"the curve has not flattened at {r_last:.4g} A (slope {slope:.2g} hartree/A{more} "
-            "still to come): D_e from the last point is a lower bound; extend the scan or give "
-            "fragment energies"
+            Flag(
+                "asymptote-not-reached",
+                f"the curve has not flattened at {r_last:.4g} A (slope {slope:.2g} "
+                f"hartree/A{more} still to come): D_e from the last point is a lower bound; "
+                "extend the scan or give fragment energies",
+                (r_last,),
+            )
         )
     return Dissociation(d_e, "asymptote", slope, missing, flat, tuple(flags))

@@ -52,6 +52,8 @@ import numpy as np
 from scipy.interpolate import BSpline, PPoly, make_interp_spline
 from scipy.signal import find_peaks
 
+from pesflow.analysis.flags import Flag
+
 #: Default degree of the interpolating spline (see the module docstring).
 DEFAULT_ORDER = 5
 #: A coarse grid is flagged when the force constants from the main and the companion
@@ -207,7 +209,12 @@ def prepare_curve(values, energies_hartree, *, periodic=False, period=360.0, uni
     if failed_q:
         where = ", ".join(f"{x:g}" for x in failed_q)
         notes.append(
-            f"{len(failed_q)} failed point(s) excluded (at {where} {_UNIT_LABEL.get(unit, unit)})"
+            Flag(
+                "failed-points",
+                f"{len(failed_q)} failed point(s) excluded "
+                f"(at {where} {_UNIT_LABEL.get(unit, unit)})",
+                failed_q,
+            )
         )
     q, e = q[~failed], e[~failed]
     if periodic:
@@ -221,8 +228,11 @@ def prepare_curve(values, energies_hartree, *, periodic=False, period=360.0, uni
         spread = max(np.ptp(e[g]) for g in groups)
         if spread > 1e-8:
             notes.append(
-                f"repeated coordinates with energies differing by up to {spread:.2e} hartree; "
-                "the first of each was kept"
+                Flag(
+                    "repeated-points",
+                    f"repeated coordinates with energies differing by up to {spread:.2e} "
+                    "hartree; the first of each was kept",
+                )
             )
         q, e = q[start], e[start]
     return Curve(
@@ -435,9 +445,13 @@ def grid_quality(
         )
         new_step = max(0.7 * step / max(ratios) ** (1.0 / power), step / 8.0)
         flags.append(
-            f"grid too coarse near the {p.kind} at {_fmt(p.q)} {unit} "
-            f"({', '.join(reasons)}): add points between "
-            f"{_fmt(left)} and {_fmt(right)} {unit}, step {new_step:.2g} {unit} or finer"
+            Flag(
+                "grid-coarse",
+                f"grid too coarse near the {p.kind} at {_fmt(p.q)} {unit} "
+                f"({', '.join(reasons)}): add points between "
+                f"{_fmt(left)} and {_fmt(right)} {unit}, step {new_step:.2g} {unit} or finer",
+                (p.q,),
+            )
         )
     return flags
 
@@ -601,17 +615,21 @@ def analyze_curve(
             side = "below" if i_low == 0 else "above"
             where_low = "start" if i_low == 0 else "end"
             flags.append(
-                f"minimum not bracketed: the lowest energy is at the {where_low}"
-                f" of the scan ({_fmt(q[i_low])} {label}); extend the scan {side} "
-                f"{_fmt(q[i_low])} {label}"
-                + (
-                    f" (the reported minimum at {_fmt(minimum.q)} {label} is only local)"
-                    if minimum is not None
-                    else ""
+                Flag(
+                    "minimum-not-bracketed",
+                    f"minimum not bracketed: the lowest energy is at the {where_low}"
+                    f" of the scan ({_fmt(q[i_low])} {label}); extend the scan {side} "
+                    f"{_fmt(q[i_low])} {label}"
+                    + (
+                        f" (the reported minimum at {_fmt(minimum.q)} {label} is only local)"
+                        if minimum is not None
+                        else ""
+                    ),
+                    (q[i_low],),
                 )
             )
     if minimum is None and curve.periodic:
-        flags.append("no minimum found on the periodic curve")
+        flags.append(Flag("no-minimum", "no minimum found on the periodic curve"))
     checked = [p for p in (*minima, *maxima)]
     flags.extend(
         grid_quality(
@@ -627,10 +645,15 @@ def analyze_curve(
     if bad:
         where = ", ".join(_fmt(q[i]) for i in bad)
         flags.append(
-            f"noisy or non-smooth energies at {where} {label}: up to "
-            f"{np.nanmax(np.abs(res[bad])):.2g} hartree off the interpolant of their neighbours "
-            "(not explained by the grid spacing); tighten the SCF convergence or integration "
-            "grid, or check for a jump to another SCF solution (or a Coulson-Fischer point)"
+            Flag(
+                "noisy-points",
+                f"noisy or non-smooth energies at {where} {label}: up to "
+                f"{np.nanmax(np.abs(res[bad])):.2g} hartree off the interpolant of their "
+                "neighbours (not explained by the grid spacing); tighten the SCF convergence "
+                "or integration grid, or check for a jump to another SCF solution (or a "
+                "Coulson-Fischer point)",
+                [q[i] for i in bad],
+            )
         )
     return CurveAnalysis(
         curve=curve,

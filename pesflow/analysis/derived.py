@@ -16,72 +16,46 @@ import numpy as np
 
 from pesflow.analysis.barriers import dissociation_energy, torsion_barrier
 from pesflow.analysis.curves import analyze_curve, covers_full_circle
+from pesflow.analysis.flags import FLAG_SEPARATOR, Flag, flag_records, flag_text
+from pesflow.analysis.quantities import BARRIER_UNITS, CURVE_COLUMNS, position_column
 from pesflow.analysis.surface import connecting_barrier, find_minima, find_saddles, prepare_surface
 from pesflow.analysis.vibration import analyze_stretch, bend_force_constants
+from pesflow.coordinates.kinds import KINDS
 from pesflow.units import HARTREE_TO_CM1, HARTREE_TO_EV, convert_energy
 
-#: Joins the warnings of one row in ``flags`` (a warning may itself contain "; ").
-FLAG_SEPARATOR = " | "
+__all__ = ["FLAG_SEPARATOR", "SUMMARY_COLUMNS", "summarize_curve", "summarize_surface"]
 
-#: Columns of a curve's summary row, in order.
+#: Columns of a curve's summary row, in order: counts, the curve quantities of the registry
+#: (:mod:`pesflow.analysis.quantities`), the flags as text and as records.
 SUMMARY_COLUMNS = (
     "n_points",
     "n_failed",
     "minimum_bracketed",
-    "r_e_angstrom",
-    "angle_e_degree",
-    "dihedral_e_degree",
-    "e_min_hartree",
-    "k_hartree_bohr-2",
-    "k_mdyn_angstrom-1",
-    "k_hartree_rad-2",
-    "k_aj_rad-2",
-    "omega_e_cm-1",
-    "omega_1d_cm-1",
-    "omega_e_x_e_cm-1",
-    "morse_d_e_ev",
-    "morse_a_angstrom-1",
-    "morse_r_e_angstrom",
-    "morse_omega_e_cm-1",
-    "morse_omega_e_x_e_cm-1",
-    "morse_rms_cm-1",
-    "nu_01_cm-1",
-    "zpe_cm-1",
-    "d_e_ev",
-    "d_0_ev",
-    "b_e_cm-1",
-    "n_levels_trusted",
-    "barrier_kcal_mol",
-    "barrier_kj_mol",
-    "barrier_cm-1",
-    "barrier_ev",
+    *CURVE_COLUMNS,
     "flags",
+    "flag_records",
 )
 
-_BARRIER_UNITS = {
-    "barrier_kcal_mol": "kcal_mol",
-    "barrier_kj_mol": "kj_mol",
-    "barrier_cm-1": "cm-1",
-    "barrier_ev": "ev",
-}
-_Q_E_COLUMN = {
-    "distance": "r_e_angstrom",
-    "angle": "angle_e_degree",
-    "dihedral": "dihedral_e_degree",
-}
-_UNIT = {"distance": "angstrom", "angle": "degree", "dihedral": "degree"}
-
-ONE_D_FLAG = "1-D wavenumber along the scan coordinate, not a normal-mode frequency"
-RESTRICTED_FLAG = (
+ONE_D_FLAG = Flag(
+    "one-dimensional-wavenumber",
+    "1-D wavenumber along the scan coordinate, not a normal-mode frequency",
+)
+RESTRICTED_FLAG = Flag(
+    "restricted-dissociation",
     "a restricted closed-shell reference cannot describe homolytic dissociation: the curve "
     "rises too steeply at long range and D_e from it is wrong (use an unrestricted or "
-    "multireference method)"
+    "multireference method)",
 )
+
+
+def _set_flags(row, flags):
+    row["flags"] = flag_text(flags)
+    row["flag_records"] = flag_records(flags)
 
 
 def _empty_row():
     row = {c: float("nan") for c in SUMMARY_COLUMNS}
-    row.update(n_points=0, n_failed=0, minimum_bracketed=False, flags="")
+    row.update(n_points=0, n_failed=0, minimum_bracketed=False, flags="", flag_records="[]")
     return row
 
 
@@ -119,30 +93,31 @@ def summarize_curve(
 
     Returns a dict with the keys of :data:`SUMMARY_COLUMNS`.
     """
-    if kind not in _UNIT:
-        raise ValueError(f"unknown kind {kind!r}; allowed: distance, angle, dihedral")
+    if kind not in KINDS:
+        raise ValueError(f"unknown kind {kind!r}; allowed: {', '.join(KINDS)}")
     row = _empty_row()
     values = np.asarray(values, dtype=float)
     energies = np.asarray(energies_hartree, dtype=float)
     finite = np.isfinite(energies)
     row["n_points"] = int(finite.sum())
     row["n_failed"] = int((~finite).sum())
-    if kind == "dihedral" and periodic is None:
+    period = KINDS[kind].period
+    if period is not None and periodic is None:
         periodic = covers_full_circle(values[finite])
-    periodic = bool(periodic) if kind == "dihedral" else False
+    periodic = bool(periodic) if period is not None else False
     flags = []
     try:
-        analysis = analyze_curve(values, energies, periodic=periodic, unit=_UNIT[kind])
+        analysis = analyze_curve(values, energies, periodic=periodic, unit=KINDS[kind].unit)
     except ValueError as err:
-        row["flags"] = str(err)
+        _set_flags(row, [Flag("analysis-failed", str(err))])
         return row
     flags.extend(analysis.flags)
     row["minimum_bracketed"] = bool(analysis.minimum_bracketed)
     p = analysis.minimum
     if p is not None and analysis.minimum_bracketed:
-        row[_Q_E_COLUMN[kind]] = p.q
+        row[position_column(kind)] = p.q
         row["e_min_hartree"] = p.energy_hartree
-    if kind == "distance":
+    if KINDS[kind].motion == "stretch":
         _stretch_columns(
             row,
             flags,
@@ -154,12 +129,14 @@ def summarize_curve(
             bond_breaking,
         )
     else:
-        row["k_hartree_rad-2"], row["k_aj_rad-2"] = bend_force_constants(analysis)
+        # An angle's curvature is a bending force constant, a dihedral's a torsional one.
+        prefix = "k_torsion" if KINDS[kind].motion == "torsion" else "k"
+        row[f"{prefix}_hartree_rad-2"], row[f"{prefix}_aj_rad-2"] = bend_force_constants(analysis)
     barrier = torsion_barrier(analysis)
     if barrier is not None:
-        for col, unit in _BARRIER_UNITS.items():
+        for col, unit in BARRIER_UNITS.items():
             row[col] = barrier.height(unit)
-    row["flags"] = FLAG_SEPARATOR.join(dict.fromkeys(flags))
+    _set_flags(row, flags)
     return row
 
 
@@ -191,7 +168,11 @@ def _stretch_columns(row, flags, analysis, mass, diatomic, fragments, restricted
         else:
             row["omega_1d_cm-1"] = stretch.omega_cm1
             flags.append(ONE_D_FLAG)
-            flags[:] = [f for f in flags if "vibrational level" not in f and "omega_e x_e" not in f]
+            flags[:] = [
+                f
+                for f in flags
+                if f.code not in ("few-vibrational-levels", "anharmonicity-from-morse")
+            ]
     r_end = float(analysis.curve.q[-1])
     breaking = bond_breaking or r_end > 2.0 * stretch.r_e_angstrom
     if fragments is not None or breaking:
@@ -227,8 +208,10 @@ def summarize_surface(
     ``barrier_kj_mol``, ``barrier_cm-1``, ``barrier_ev`` (the highest saddle on the lowest
     minimum-energy paths connecting all minima, above the global minimum) and ``flags``.
     """
-    units = tuple(_UNIT[k] for k in kinds)
-    per = tuple(p if k == "dihedral" else False for p, k in zip(periodic, kinds, strict=True))
+    units = tuple(KINDS[k].unit for k in kinds)
+    per = tuple(
+        p if KINDS[k].period is not None else False for p, k in zip(periodic, kinds, strict=True)
+    )
     e = np.asarray(energies_hartree, dtype=float)
     row = {
         "n_points": int(np.isfinite(e).sum()),
@@ -239,14 +222,15 @@ def summarize_surface(
         f"q1_e_{units[0]}": float("nan"),
         f"q2_e_{units[1]}": float("nan"),
         "e_min_hartree": float("nan"),
-        **{c: float("nan") for c in _BARRIER_UNITS},
+        **{c: float("nan") for c in BARRIER_UNITS},
         "flags": "",
+        "flag_records": "[]",
     }
     flags = []
     try:
         surface = prepare_surface(q1, q2, e, units=units, periodic=per)
     except ValueError as err:
-        row["flags"] = str(err)
+        _set_flags(row, [Flag("analysis-failed", str(err))])
         return row
     flags.extend(surface.notes)
     minima = find_minima(surface)
@@ -259,26 +243,34 @@ def summarize_surface(
     )
     if on_edge:
         flags.append(
-            f"minimum not bracketed: the lowest grid energy is on the edge of the grid at "
-            f"({surface.q1[i]:.4g}, {surface.q2[j]:.4g}); extend the grid there"
+            Flag(
+                "minimum-not-bracketed",
+                f"minimum not bracketed: the lowest grid energy is on the edge of the grid at "
+                f"({surface.q1[i]:.4g}, {surface.q2[j]:.4g}); extend the grid there",
+                (surface.q1[i], surface.q2[j]),
+            )
         )
     if minima:
         row["minimum_bracketed"] = not on_edge
         row[f"q1_e_{units[0]}"], row[f"q2_e_{units[1]}"] = minima[0].q
         row["e_min_hartree"] = minima[0].energy_hartree
     else:
-        flags.append("no bracketed minimum on the surface")
+        flags.append(Flag("no-minimum", "no bracketed minimum on the surface"))
     height, paths = connecting_barrier(surface, minima)
     if np.isfinite(height):
-        for col, unit in _BARRIER_UNITS.items():
+        for col, unit in BARRIER_UNITS.items():
             row[col] = float(convert_energy(height, unit))
         for path in paths:
             if path.saddle.kind != "saddle":
                 flags.append(
-                    f"the highest point of a minimum-energy path near {path.saddle.q} is not a "
-                    "first-order saddle; refine the grid there"
+                    Flag(
+                        "path-not-saddle",
+                        f"the highest point of a minimum-energy path near {path.saddle.q} is "
+                        "not a first-order saddle; refine the grid there",
+                        tuple(path.saddle.q),
+                    )
                 )
             if not path.converged:
-                flags.append("a minimum-energy path did not converge")
-    row["flags"] = FLAG_SEPARATOR.join(dict.fromkeys(flags))
+                flags.append(Flag("path-not-converged", "a minimum-energy path did not converge"))
+    _set_flags(row, flags)
     return row

@@ -44,9 +44,8 @@ from scipy.ndimage import minimum_filter
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import breadth_first_order, minimum_spanning_tree
 
-from pesflow.analysis.barriers import ENERGY_UNITS
 from pesflow.analysis.curves import _degree_for, covers_full_circle, wrap_degrees
-from pesflow.units import convert_energy
+from pesflow.analysis.flags import Flag
 
 
 @dataclass(frozen=True)
@@ -229,7 +228,11 @@ def prepare_surface(
     if surface.n_failed:
         e = _fill_failed(u_axes, e, per, periods_u, order)
         surface.energy_hartree = e
-        surface.notes.append(f"{surface.n_failed} failed grid point(s) filled by interpolation")
+        surface.notes.append(
+            Flag(
+                "failed-points", f"{surface.n_failed} failed grid point(s) filled by interpolation"
+            )
+        )
     k = [_degree_for(len(q[ax]), order, per[ax]) for ax in (0, 1)]
     kk = min(k)
     s1 = _axis_spline(u_axes[0], e, kk, per[0], periods_u[0], axis=0)
@@ -400,9 +403,6 @@ class MinimumEnergyPath:
     barrier_hartree: float
     converged: bool
 
-    def barrier(self, unit):
-        return float(convert_energy(self.barrier_hartree, unit))
-
 
 def _unwrap_path(surface, u_path):
     """Make consecutive images continuous across periodic seams."""
@@ -509,8 +509,3 @@ def connecting_barrier(surface, minima=None, **path_options):
     ]
     top = max(p.saddle.energy_hartree for p in paths)
     return top - minima[0].energy_hartree, paths
-
-
-def barrier_energies(value_hartree):
-    """``{unit: value}`` for every unit of :data:`pesflow.analysis.barriers.ENERGY_UNITS`."""
-    return {u: float(convert_energy(value_hartree, u)) for u in ENERGY_UNITS}

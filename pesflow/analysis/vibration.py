@@ -30,6 +30,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import linalg, optimize
 
+from pesflow.analysis.flags import Flag
 from pesflow.units import (
     AMU_TO_ME,
     BOHR_ANGSTROM,
@@ -394,7 +395,7 @@ def analyze_stretch(
     except (ValueError, np.linalg.LinAlgError):
         morse = None
     if morse is not None and not morse.success:
-        flags.append("Morse fit did not converge")
+        flags.append(Flag("morse-fit-failed", "Morse fit did not converge"))
     if reduced_mass_amu is None:
         return StretchAnalysis(p.q, p.energy_hartree, k_au, k_mdyn, morse=morse, flags=tuple(flags))
     omega = harmonic_wavenumber_cm1(k_au, reduced_mass_amu)
@@ -413,9 +414,13 @@ def analyze_stretch(
         low_start = curve.energy_hartree[0] < curve.energy_hartree[-1]
         where = f"below {curve.q[0]:.4g} A" if low_start else f"above {curve.q[-1]:.4g} A"
         flags.append(
-            f"only {v} vibrational level(s) converged within the scanned range "
-            f"({curve.q[0]:.4g}-{curve.q[-1]:.4g} A, whose ends trap the levels): "
-            f"extend the scan {where} for nu_01, ZPE and anharmonicity from levels"
+            Flag(
+                "few-vibrational-levels",
+                f"only {v} vibrational level(s) converged within the scanned range "
+                f"({curve.q[0]:.4g}-{curve.q[-1]:.4g} A, whose ends trap the levels): "
+                f"extend the scan {where} for nu_01, ZPE and anharmonicity from levels",
+                (curve.q[0] if low_start else curve.q[-1],),
+            )
         )
     _, wexe = levels.anharmonic_constants_cm1()
     source = "levels"
@@ -423,7 +428,12 @@ def analyze_stretch(
         wexe, source = (omega - levels.nu_01_cm1) / 2.0, "levels+harmonic"
     if not np.isfinite(wexe) and morse is not None:
         wexe, source = morse.omega_e_x_e_cm1(reduced_mass_amu), "morse"
-        flags.append("omega_e x_e from the Morse fit (fewer than two trusted levels)")
+        flags.append(
+            Flag(
+                "anharmonicity-from-morse",
+                "omega_e x_e from the Morse fit (fewer than two trusted levels)",
+            )
+        )
     return StretchAnalysis(
         r_e_angstrom=p.q,
         e_min_hartree=p.energy_hartree,

@@ -1,36 +1,59 @@
 """Quantum-chemistry backends behind one small interface.
 
-An engine takes a geometry, a basis, a list of methods that share one SCF and the
-engine settings, and returns one :class:`PointResult` per method, plus the
-converged density to start the next point of a walk from (the scanner idea)::
+An engine (:class:`~pesflow.engine.base.Engine`) declares its methods through
+:class:`~pesflow.engine.base.MethodInfo` and computes walks: a walk keeps the state
+of one scan (the previous point's solution, the previous relaxed geometry) and
+returns one :class:`PointResult` per method and point (the scanner idea)::
 
     engine = get_engine("pyscf")
-    records, density = engine.compute(geometry, "cc-pvdz", ["hf", "mp2"], EngineSettings())
+    walk = engine.start_walk(EngineSettings(), "cc-pvdz", ["hf", "mp2"])
+    records = walk.compute(geometry)      # {"hf": PointResult, "mp2": PointResult}
 
-The helpers here (method names, SCF families, basis checks) are pure and cheap to
-import: PySCF is imported only inside the functions that need it, so that planning a
-campaign never pays for a PySCF import it does not use.
+The helpers here (method names and information, SCF families, basis checks) are
+cheap to import: PySCF and tblite are imported only inside the functions that need
+them, so that planning a campaign never pays for an import it does not use.
 
 Method names: the wavefunction methods :data:`WAVEFUNCTION_METHODS` or any DFT
-functional that PySCF's libxc accepts (``b3lyp``, ``pbe0``, ``wb97x``, ...).  The
-reference determinant (restricted, unrestricted, restricted-open) is a setting,
-never part of a method's name.
+functional that PySCF's libxc accepts (``b3lyp``, ``pbe0``, ``wb97x``, ...), computed
+by PySCF, and the tight-binding levels :data:`TIGHT_BINDING_METHODS`
+(``gfn2-xtb``, ``gfn1-xtb``, no basis set), computed by tblite.  The reference
+determinant (restricted, unrestricted, restricted-open) is a setting, never part of
+a method's name.
 """
 
 from __future__ import annotations
 
 import functools
-import importlib.util
+import importlib
+import json
 import math
-import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
 
+from pesflow.engine.base import Engine, EngineWalk, MethodInfo
 from pesflow.errors import EngineSetupError
+
+__all__ = [
+    "ENGINES",
+    "Engine",
+    "EngineSettings",
+    "EngineWalk",
+    "Geometry",
+    "MethodInfo",
+    "PointResult",
+    "canonical_method",
+    "check_basis",
+    "get_engine",
+    "method_info",
+    "scf_family",
+]
 
 #: Methods built on a Hartree-Fock reference; they all share one SCF at one basis.
 WAVEFUNCTION_METHODS = ("hf", "mp2", "ccsd", "ccsd(t)")
+
+#: Tight-binding levels (tblite); each has its own built-in basis, so no basis set.
+TIGHT_BINDING_METHODS = ("gfn2-xtb", "gfn1-xtb")
 
 #: Allowed values of :attr:`EngineSettings.reference`.
 REFERENCES = ("auto", "restricted", "unrestricted", "restricted-open")
@@ -38,12 +61,30 @@ REFERENCES = ("auto", "restricted", "unrestricted", "restricted-open")
 #: SCF convergence strategies, in the order a ladder usually tries them.
 SCF_RUNGS = ("default", "damped", "level-shift", "second-order")
 
-#: Engines by name; the module is imported only when the engine is asked for.
-ENGINES = {"pyscf": "pesflow.engine.pyscf:PySCFEngine"}
+#: Engines by name, asked in this order who computes a method; a module is imported
+#: only when its engine is asked for.  PySCF comes last: its functional names are open.
+ENGINES = {
+    "tblite": "pesflow.engine.tblite:TBLiteEngine",
+    "pyscf": "pesflow.engine.pyscf:PySCFEngine",
+}
+
+#: The names under which :meth:`EngineSettings.key_dict` writes each field (the
+#: names point keys were first made with; changing one would re-key every point).
+_KEY_NAMES = {
+    "scf_energy_tolerance_hartree": "conv_tol",
+    "scf_max_iterations": "max_cycle",
+    "reference": "reference",
+    "frozen_core": "frozen_core",
+    "dft_grid_level": "grid_level",
+    "scf_ladder": "scf_ladder",
+    "broken_symmetry": "broken_symmetry",
+    "stability": "stability",
+}
 
 _METHOD_HINT = (
     f"use one of {', '.join(WAVEFUNCTION_METHODS)} "
-    "or a DFT functional known to PySCF's libxc (e.g. b3lyp, pbe0)"
+    "or a DFT functional known to PySCF's libxc (e.g. b3lyp, pbe0), "
+    f"or a tight-binding level ({', '.join(TIGHT_BINDING_METHODS)})"
 )
 
 
@@ -94,11 +135,10 @@ class Geometry:
 
 def _check_distinct_positions(positions, tolerance_angstrom=1e-5):
     # Two nuclei at one point have infinite repulsion; PySCF would fail in every SCF.
-    from scipy.spatial.distance import pdist, squareform
-
+    # (numpy broadcasting, not scipy.spatial: that import costs a batch ~0.09 s.)
     if len(positions) < 2:
         return
-    distances = squareform(pdist(positions))
+    distances = np.linalg.norm(positions[:, None, :] - positions[None, :, :], axis=-1)
     np.fill_diagonal(distances, np.inf)
     i, j = np.unravel_index(np.argmin(distances), distances.shape)
     if distances[i, j] < tolerance_angstrom:
@@ -110,14 +150,15 @@ class EngineSettings:
     """Settings of the engine; every field that changes a number is in :meth:`key_dict`.
 
     Inputs (defaults in brackets):
-        conv_tol: SCF energy convergence in hartree [1e-10]; also the energy
-            convergence of the CCSD amplitude equations.
-        max_cycle: SCF iterations per ladder rung [100].
+        scf_energy_tolerance_hartree: SCF energy convergence in hartree [1e-10]; also
+            the energy convergence of the CCSD amplitude equations, and of the
+            tight-binding SCC (tblite's ``accuracy`` = this / 1e-6, at least 1e-4).
+        scf_max_iterations: SCF (or SCC) iterations per ladder rung [100].
         reference: ``auto`` (restricted for closed-shell singlets, unrestricted for
             open shells), ``restricted`` (RHF/RKS; ROHF/ROKS for an open shell),
             ``unrestricted`` or ``restricted-open`` ["auto"].
         frozen_core: freeze the chemical core orbitals in mp2/ccsd/ccsd(t) [False].
-        grid_level: DFT integration grid level, 0-9 [3].
+        dft_grid_level: DFT integration grid level, 0-9 [3].
         scf_ladder: SCF strategies tried in order until one converges, from
             :data:`SCF_RUNGS` [all four].
         broken_symmetry: for a closed-shell singlet, use an unrestricted reference
@@ -129,13 +170,16 @@ class EngineSettings:
             instability found [False].
         threads: OpenMP threads for the engine [1]; does not change a number.
         max_memory_mb: memory the engine may use, in MB [4000]; does not change a number.
+
+    A setting that does not apply to a method (the grid to a wavefunction method,
+    the SCF ladder to tight binding) is ignored there and left out of its keys.
     """
 
-    conv_tol: float = 1e-10
-    max_cycle: int = 100
+    scf_energy_tolerance_hartree: float = 1e-10
+    scf_max_iterations: int = 100
     reference: str = "auto"
     frozen_core: bool = False
-    grid_level: int = 3
+    dft_grid_level: int = 3
     scf_ladder: tuple[str, ...] = SCF_RUNGS
     broken_symmetry: bool = False
     stability: bool = False
@@ -143,10 +187,15 @@ class EngineSettings:
     max_memory_mb: int = field(default=4000, compare=False)
 
     def __post_init__(self):
-        if not (math.isfinite(self.conv_tol) and self.conv_tol > 0):
-            raise EngineSetupError(f"conv_tol must be a positive number, got {self.conv_tol}")
-        if int(self.max_cycle) < 1:
-            raise EngineSetupError(f"max_cycle must be 1 or more, got {self.max_cycle}")
+        tolerance = self.scf_energy_tolerance_hartree
+        if not (math.isfinite(tolerance) and tolerance > 0):
+            raise EngineSetupError(
+                f"scf_energy_tolerance_hartree must be a positive number, got {tolerance}"
+            )
+        if int(self.scf_max_iterations) < 1:
+            raise EngineSetupError(
+                f"scf_max_iterations must be 1 or more, got {self.scf_max_iterations}"
+            )
         if self.reference not in REFERENCES:
             raise EngineSetupError(
                 f"unknown reference {self.reference!r}; allowed: {', '.join(REFERENCES)}"
@@ -162,14 +211,14 @@ class EngineSettings:
                 f"broken_symmetry needs an unrestricted reference; reference is {self.reference!r}"
                 " (use auto or unrestricted)"
             )
-        if not 0 <= int(self.grid_level) <= 9:
-            raise EngineSetupError(f"grid_level must be 0-9, got {self.grid_level}")
+        if not 0 <= int(self.dft_grid_level) <= 9:
+            raise EngineSetupError(f"dft_grid_level must be 0-9, got {self.dft_grid_level}")
         if int(self.threads) < 1 or int(self.max_memory_mb) < 1:
             raise EngineSetupError("threads and max_memory_mb must be 1 or more")
-        object.__setattr__(self, "conv_tol", float(self.conv_tol))
-        object.__setattr__(self, "max_cycle", int(self.max_cycle))
+        object.__setattr__(self, "scf_energy_tolerance_hartree", float(tolerance))
+        object.__setattr__(self, "scf_max_iterations", int(self.scf_max_iterations))
         object.__setattr__(self, "frozen_core", bool(self.frozen_core))
-        object.__setattr__(self, "grid_level", int(self.grid_level))
+        object.__setattr__(self, "dft_grid_level", int(self.dft_grid_level))
         object.__setattr__(self, "scf_ladder", ladder)
         object.__setattr__(self, "broken_symmetry", bool(self.broken_symmetry))
         object.__setattr__(self, "stability", bool(self.stability))
@@ -179,38 +228,42 @@ class EngineSettings:
     def key_dict(self, method: str | None = None) -> dict:
         """The result-changing settings as a JSON-serialisable dict in a fixed order.
 
-        ``threads`` and ``max_memory_mb`` never appear.  With ``method`` given, the
-        fields that cannot change that method's number are left out too
-        (``grid_level`` for the wavefunction methods, ``frozen_core`` for hf and DFT),
-        so that points differing only there share one cache entry.
-        ``broken_symmetry`` and ``stability`` are kept for every method: both can
-        change the SCF solution that every method is built on.
+        The dict's names are the settings' key names (``conv_tol``, ``max_cycle``,
+        ``grid_level`` for the three fields named otherwise here), so that every
+        point keeps the key it was first stored under.  ``threads`` and
+        ``max_memory_mb`` never appear.  With ``method`` given, only the settings of
+        its :attr:`MethodInfo.settings` are kept (``grid_level`` is left out for the
+        wavefunction methods, ``frozen_core`` for hf and DFT, everything but the
+        tolerance and the iteration limit for tight binding), so that points
+        differing only elsewhere share one cache entry.
 
         >>> list(EngineSettings().key_dict("hf"))
         ['conv_tol', 'max_cycle', 'reference', 'scf_ladder', 'broken_symmetry', 'stability']
         """
-        key = {
-            "conv_tol": self.conv_tol,
-            "max_cycle": self.max_cycle,
-            "reference": self.reference,
-            "frozen_core": self.frozen_core,
-            "grid_level": self.grid_level,
-            "scf_ladder": list(self.scf_ladder),
-            "broken_symmetry": self.broken_symmetry,
-            "stability": self.stability,
-        }
+        key = {}
+        for name, key_name in _KEY_NAMES.items():
+            value = getattr(self, name)
+            key[key_name] = list(value) if isinstance(value, tuple) else value
         if method is not None:
-            method = canonical_method(method)
-            if method in WAVEFUNCTION_METHODS:
-                del key["grid_level"]
-            if method not in ("mp2", "ccsd", "ccsd(t)"):
-                del key["frozen_core"]
+            applies = method_info(method).settings
+            key = {name: value for name, value in key.items() if name in applies}
         return key
+
+    @classmethod
+    def from_key_dict(cls, key: dict, **resources) -> EngineSettings:
+        """The settings back from a full :meth:`key_dict` (plus threads, max_memory_mb).
+
+        >>> s = EngineSettings(dft_grid_level=5)
+        >>> EngineSettings.from_key_dict(s.key_dict()) == s
+        True
+        """
+        fields = {name: key[key_name] for name, key_name in _KEY_NAMES.items() if key_name in key}
+        return cls(**fields, **resources)
 
 
 @dataclass
 class PointResult:
-    """One method's record at one point.
+    """One method's record at one point, its properties by name.
 
     Fields:
         method: canonical method name.
@@ -219,8 +272,10 @@ class PointResult:
         scf_cycles: SCF iterations that served this record, summed over ladder rungs.
         wall_s: wall time in s of this number alone: SCF plus its own correlated step.
         step_wall_s: wall time in s of its own step only (the SCF for hf and DFT).
-        s2: <S^2> of the reference determinant; nan for a restricted closed shell.
-        reference: ``RHF``, ``UHF``, ``ROHF``, ``RKS``, ``UKS`` or ``ROKS``.
+        s2: <S^2> of the reference determinant; nan for a restricted closed shell
+            and for tight binding.
+        reference: ``RHF``, ``UHF``, ``ROHF``, ``RKS``, ``UKS``, ``ROKS``, or the
+            tight-binding Hamiltonian (``GFN2-xTB``).
         attempts: ladder rungs tried, each ``{"rung", "converged", "cycles",
             "energy_hartree"}``; with stability analysis a last entry of rung
             ``stability`` (or ``broken-symmetry``) adds what the analysis found
@@ -228,7 +283,9 @@ class PointResult:
         error: one-line reason when failed, else None.
         extra: JSON-serialisable details beyond the columns, empty when there are
             none; a relaxed point has ``relaxation`` (see
-            :meth:`pesflow.engine.pyscf.PySCFEngine.relax`).
+            :meth:`pesflow.engine.base.EngineWalk.relax`).
+        geometry: the :class:`Geometry` this record belongs to when it is not the one
+            asked for (a relaxed point: the relaxed geometry), else None.
     """
 
     method: str
@@ -242,49 +299,84 @@ class PointResult:
     attempts: list[dict]
     error: str | None = None
     extra: dict = field(default_factory=dict)
+    geometry: Geometry | None = None
+
+    @classmethod
+    def failed(cls, method, error, reference="none", attempts=(), scf_cycles=0, wall_s=0.0):
+        """The record of a point that could not be computed (energy nan)."""
+        return cls(
+            method=method,
+            energy_hartree=math.nan,
+            converged=False,
+            scf_cycles=int(scf_cycles),
+            wall_s=float(wall_s),
+            step_wall_s=0.0,
+            s2=math.nan,
+            reference=reference,
+            attempts=[dict(a) for a in attempts],
+            error=error,
+        )
+
+    def columns(self) -> dict:
+        """The record's part of a store row (:data:`pesflow.store.point_store.POINT_SCHEMA`)."""
+        return {
+            "method": self.method,
+            "energy_hartree": float(self.energy_hartree),
+            "converged": bool(self.converged),
+            "scf_cycles": int(self.scf_cycles),
+            "wall_s": float(self.wall_s),
+            "step_wall_s": float(self.step_wall_s),
+            "s2": float(self.s2),
+            "reference": self.reference,
+            "attempts_json": json.dumps(self.attempts) if self.attempts else None,
+            "extra_json": json.dumps(self.extra, sort_keys=True, default=float)
+            if self.extra
+            else None,
+            "error": self.error,
+        }
+
+
+def method_info(method: str) -> MethodInfo:
+    """The :class:`MethodInfo` of a method, from the engine that computes it.
+
+    Raises EngineSetupError (one line) for a name no engine knows.
+
+    >>> info = method_info("CCSD(T)")
+    >>> info.engine, info.family, info.needs_basis, info.byproducts
+    ('pyscf', 'hf', True, ('ccsd',))
+    >>> method_info("gfn2-xtb").needs_basis
+    False
+    """
+    if not isinstance(method, str):
+        raise EngineSetupError(f"method must be a string, got {method!r}; {_METHOD_HINT}")
+    return _method_info(method)
+
+
+@functools.lru_cache(maxsize=512)
+def _method_info(method: str) -> MethodInfo:
+    for name in ENGINES:
+        info = get_engine(name).method_info(method)
+        if info is not None:
+            return info
+    hint = _METHOD_HINT
+    lowered = method.strip().lower()
+    if _names_a_reference(lowered):
+        hint += "; the reference (restricted, unrestricted, restricted-open) is a setting"
+    raise EngineSetupError(f"unknown method {method!r}: {hint}")
 
 
 def canonical_method(name: str) -> str:
     """Canonical (lower-case, stripped) name of a method; EngineSetupError if unknown.
 
-    Accepts the wavefunction methods in any case (``CCSD(T)`` -> ``ccsd(t)``) and
-    any DFT functional PySCF's libxc can parse, kept as given in lower case.
-    A functional with a dispersion suffix (``b3lyp-d3bj``) is accepted only when
-    the ``pyscf-dispersion`` package is installed.
+    Accepts the wavefunction methods in any case (``CCSD(T)`` -> ``ccsd(t)``), any DFT
+    functional PySCF's libxc can parse, kept as given in lower case, and the
+    tight-binding levels.  A functional with a dispersion suffix (``b3lyp-d3bj``) is
+    accepted only when the ``pyscf-dispersion`` package is installed.
 
     >>> canonical_method(" CCSD(T) ")
     'ccsd(t)'
     """
-    if not isinstance(name, str):
-        raise EngineSetupError(f"method must be a string, got {name!r}; {_METHOD_HINT}")
-    lowered = name.strip().lower()
-    compact = "".join(lowered.split())
-    if compact in WAVEFUNCTION_METHODS:
-        return compact
-    return _canonical_functional(lowered, name)
-
-
-@functools.lru_cache(maxsize=256)
-def _canonical_functional(lowered: str, given: str) -> str:
-    from pyscf.dft import libxc
-    from pyscf.scf import dispersion
-
-    try:
-        hybrid, components = libxc.parse_xc(lowered)
-    except (KeyError, ValueError, IndexError, TypeError):
-        hybrid, components = (0, 0, 0), ()
-    if not components and not any(hybrid):
-        hint = _METHOD_HINT
-        if _names_a_reference(lowered):
-            hint += "; the reference (restricted, unrestricted, restricted-open) is a setting"
-        raise EngineSetupError(f"unknown method {given!r}: {hint}")
-    correction = dispersion.parse_dft(lowered)[2]
-    if correction and importlib.util.find_spec("pyscf.dispersion") is None:
-        raise EngineSetupError(
-            f"method {given!r} asks for the dispersion correction {correction!r}, "
-            "which needs the pyscf-dispersion package (not installed)"
-        )
-    return lowered
+    return method_info(name).name
 
 
 def _names_a_reference(lowered: str) -> bool:
@@ -297,19 +389,20 @@ def _names_a_reference(lowered: str) -> bool:
 
 
 def scf_family(method: str) -> str:
-    """The SCF a method is built on: ``hf`` for the wavefunction methods, else the functional.
+    """The shared-work group of a method (:attr:`MethodInfo.family`): ``hf`` for the
+    wavefunction methods, else the functional (or the tight-binding level).
 
     Points of methods with the same family at one geometry and basis share one SCF.
 
     >>> scf_family("CCSD(T)"), scf_family("B3LYP")
     ('hf', 'b3lyp')
     """
-    method = canonical_method(method)
-    return "hf" if method in WAVEFUNCTION_METHODS else method
+    return method_info(method).family
 
 
 def check_basis(basis: str, elements) -> None:
-    """Raise EngineSetupError naming the basis and the first element it lacks.
+    """Raise EngineSetupError naming the basis and the first element it lacks (PySCF's
+    basis library).
 
     Inputs:
         basis: a basis-set name PySCF knows (``cc-pvdz``, ``def2-svp``, ``6-31g*``).
@@ -317,37 +410,43 @@ def check_basis(basis: str, elements) -> None:
 
     >>> check_basis("sto-3g", ["O", "H", "H"])
     """
-    from pyscf.gto import basis as pyscf_basis
-
-    if not isinstance(basis, str) or not basis.strip():
-        raise EngineSetupError(f"basis must be a non-empty name, got {basis!r}")
-    for element in dict.fromkeys(elements):
-        try:
-            with warnings.catch_warnings():
-                # PySCF suggests installing basis-set-exchange for unknown names.
-                warnings.simplefilter("ignore")
-                shells = pyscf_basis.load(basis, element)
-        except pyscf_basis.BasisNotFoundError as exc:
-            if "not found for" not in str(exc):
-                raise EngineSetupError(
-                    f"unknown basis {basis!r} (not in PySCF's library)"
-                ) from None
-            shells = []
-        except (KeyError, ValueError, RuntimeError) as exc:
-            raise EngineSetupError(f"basis {basis!r} for {element}: {exc}") from exc
-        if not shells:
-            raise EngineSetupError(f"basis {basis!r} has no functions for element {element}")
+    get_engine("pyscf").check_basis(basis, elements)
 
 
-def get_engine(name: str = "pyscf"):
-    """The engine object of that name (only ``pyscf`` so far).
+def check_level(method: str, basis: str | None, elements) -> tuple[MethodInfo, str]:
+    """Check one level (method, basis or None) for the elements it is computed on.
+
+    Returns the method's :class:`MethodInfo` and the canonical basis name (``""`` for
+    a level without basis set).  Raises EngineSetupError naming what is wrong: an
+    unknown method, a basis missing for a method that needs one, a basis given to a
+    level that has its own, a basis or a tight-binding level lacking an element.
+    """
+    info = method_info(method)
+    engine = get_engine(info.engine)
+    if not info.needs_basis:
+        if basis is not None and str(basis).strip():
+            raise EngineSetupError(
+                f"{info.name} has its own built-in basis; give no basis with it (got {basis!r})"
+            )
+        engine.check_basis("", elements)
+        return info, ""
+    if basis is None or not str(basis).strip():
+        raise EngineSetupError(f"{info.name} needs a basis set (e.g. sto-3g, cc-pvdz)")
+    canonical = str(basis).strip().lower()
+    engine.check_basis(canonical, elements)
+    return info, canonical
+
+
+@functools.cache
+def get_engine(name: str = "pyscf") -> Engine:
+    """The engine object of that name (a key of :data:`ENGINES`).
 
     >>> get_engine().name
     'pyscf'
     """
     try:
         target = ENGINES[name]
-    except KeyError:
+    except (KeyError, TypeError):
         raise EngineSetupError(f"unknown engine {name!r}; allowed: {', '.join(ENGINES)}") from None
     module_name, class_name = target.split(":")
     module = importlib.import_module(module_name)

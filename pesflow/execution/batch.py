@@ -1,10 +1,12 @@
 """Run one batch: an ordered walk of single points, each made durable at once.
 
 This is what one Snakemake job executes (``python -m pesflow.execution.batch TASK DONE``).
-A batch reads its task file (written by :func:`pesflow.execution.driver.write_tasks`), skips
-every point already in the store, computes the rest in walk order with each
-point starting from its neighbour's converged density, and writes one store
-record per point as soon as it is finished.  A killed batch therefore loses
+A batch reads its task file (written by :func:`pesflow.execution.driver.write_tasks`,
+with every point's keys made by the plan), skips every point already in the store,
+computes the rest in walk order through an engine walk
+(:class:`pesflow.engine.base.EngineWalk`, which starts each point from its
+neighbour's solution), and writes one store record per point as soon as it is
+finished.  A killed batch therefore loses
 only the point in flight; the rerun computes only what is missing.  A point
 that fails is recorded with its error text; the batch goes on.
 
@@ -15,6 +17,12 @@ two solutions is kept (the record's ``attempts`` says so).
 
 The done marker written at the end lists the batch's points and their status;
 Snakemake uses it as the job's output.
+
+A Snakemake job usually holds several walks (a *job* file, :data:`JOB_FORMAT`, packed by
+:mod:`pesflow.plan.batches`): :func:`run_job` runs :func:`run_batch` on each of them in
+turn in this one process, so the interpreter and PySCF start once per job, and writes
+one done marker for the job.  Durability is that of each walk: every point is stored
+the moment it is finished.
 """
 
 from __future__ import annotations
@@ -36,34 +44,28 @@ log = logging.getLogger("pesflow.execution.batch")
 
 TASK_FORMAT = "pesflow-batch"
 TASK_VERSION = 1
+#: A job file: several walk tasks (each of :data:`TASK_FORMAT`) run one after the other.
+JOB_FORMAT = "pesflow-job"
+JOB_VERSION = 1
 
 #: A solution found walking backwards must be lower by this much to replace the first.
 LOWER_BY_HARTREE = 1e-7
 
 
 def read_task(path) -> dict:
-    """Read a batch task file written by :func:`pesflow.execution.driver.write_tasks`."""
-    task = json.loads(Path(path).read_text())
+    """Read a batch task file (or check a task already read, a dict; e.g. one walk of a
+    job file) written by :func:`pesflow.execution.driver.write_tasks`."""
+    task = path if isinstance(path, dict) else json.loads(Path(path).read_text())
     if task.get("format") != TASK_FORMAT or task.get("version") != TASK_VERSION:
         raise ValueError(f"{path}: not a pesflow batch task of version {TASK_VERSION}")
     return task
 
 
-def _failure(method, message):
+def _failure(method, exc):
     from pesflow.engine import PointResult
+    from pesflow.engine.base import error_line
 
-    return PointResult(
-        method=method,
-        energy_hartree=float("nan"),
-        converged=False,
-        scf_cycles=0,
-        wall_s=0.0,
-        step_wall_s=0.0,
-        s2=float("nan"),
-        reference="",
-        attempts=[],
-        error=message,
-    )
+    return PointResult.failed(method, error_line(exc))
 
 
 @dataclass
@@ -80,7 +82,12 @@ class _Computed:
 
 
 class _Walk:
-    """Binds a task to its engine and store."""
+    """Binds a task to its engine walks and its store.
+
+    Single points go through one engine walk of the batch's methods; a relaxed scan
+    has one engine walk per method (each relaxed from its own neighbour).  The
+    engine walks keep the state (density, relaxed geometry); :meth:`restart` forgets it.
+    """
 
     def __init__(self, task, threads, max_memory_mb=None):
         from pesflow.engine import EngineSettings, get_engine
@@ -93,23 +100,44 @@ class _Walk:
                 f"this batch was planned for {task['engine']} {task['engine_version']} but "
                 f"{self.engine.version} is installed here; use the same environment everywhere"
             )
-        self.settings = EngineSettings(
-            **task["settings"],
+        self.settings = EngineSettings.from_key_dict(
+            task["settings"],
             threads=threads,
             max_memory_mb=int(max_memory_mb or task.get("max_memory_mb", 4000)),
         )
         self.store = PointStore(task["store"])
         self.symbols = tuple(task["symbols"])
         self.relax = task.get("relax")
+        methods = list(dict.fromkeys(m for p in task["points"] for m in p["keys"]))
+        self.walks = {}  # one engine walk for all methods, or one per method when relaxed
+        for group in [[m] for m in methods] if self.relax else [methods]:
+            try:
+                walk = self.engine.start_walk(self.settings, task["basis"], group)
+            except Exception as exc:  # recorded on every point, never allowed to stop
+                walk = exc
+            self.walks[group[0] if self.relax else None] = walk
+        # The store columns every record of this batch shares.
+        self.shared = {
+            "basis": task["basis"],
+            "charge": task["charge"],
+            "multiplicity": task["multiplicity"],
+            "symbols": " ".join(task["symbols"]),
+            "engine": self.engine.name,
+            "engine_version": self.engine.version,
+        }
 
-    def geometry(self, point, positions=None):
+    def restart(self):
+        """Forget every engine walk's state (the next point is not a neighbour)."""
+        for walk in self.walks.values():
+            if not isinstance(walk, Exception):
+                walk.restart()
+
+    def geometry(self, point):
         from pesflow.engine import Geometry
 
-        if positions is None:
-            positions = point["positions"]
         return Geometry(
             symbols=self.symbols,
-            positions_angstrom=np.asarray(positions, dtype=float),
+            positions_angstrom=np.asarray(point["positions"], dtype=float),
             charge=self.task["charge"],
             multiplicity=self.task["multiplicity"],
         )
@@ -120,103 +148,63 @@ class _Walk:
             key = {**key, "relax": self.relax["key"]}
         return key
 
-    def relax_point(self, point, method, start_positions, guess):
-        """Relaxed geometry, record and density of ``method`` at ``point``'s scan values."""
+    def relax_point(self, point, method):
+        """The relaxed record of ``method`` at ``point``'s scan values, from the
+        neighbour's relaxed geometry (the planned rigid geometry at a walk's start)."""
         coords = self.relax["coordinates"]
         constraints = [
             (c["kind"], tuple(c["atoms"]), float(v)) for c, v in zip(coords, point["values"])
         ]
-        start = self.geometry(point, start_positions)
+        moving = [c["moving"] for c in coords]
+        walk = self.walks[method]
         try:
-            geometry, result, _info, density = self.engine.relax(
-                start, self.task["basis"], method, self.settings, constraints, guess=guess
-            )
-            return geometry.positions_angstrom, result, density
+            if isinstance(walk, Exception):
+                raise walk
+            return walk.relax(self.geometry(point), constraints, moving)
         except Exception as exc:  # recorded, never allowed to stop the batch
-            message = f"{type(exc).__name__}: {exc}".splitlines()[0]
-            return np.asarray(point["positions"], dtype=float), _failure(method, message), None
+            if not isinstance(walk, Exception):
+                walk.restart()
+            return _failure(method, exc)
 
-    def start_from(self, point, previous_positions):
-        """The neighbour's relaxed geometry with the scan coordinates set to this point's
-        values (the planned rigid geometry if that fails)."""
-        from pesflow.coordinates import geometry as coordinates
-
-        if previous_positions is None:
-            return np.asarray(point["positions"], dtype=float)
-        spec = [
-            (c["kind"], tuple(c["atoms"]), np.asarray(c["moving"], dtype=int))
-            for c in self.relax["coordinates"]
-        ]
+    def compute(self, point, methods):
+        """Results of ``methods`` at ``point``, started from the previous point's solution."""
+        walk = self.walks[None]
         try:
-            return coordinates.apply_grid(
-                np.asarray(previous_positions, dtype=float),
-                spec,
-                np.asarray([point["values"]], dtype=float),
-            )[0]
-        except ValueError:
-            return np.asarray(point["positions"], dtype=float)
-
-    def compute(self, point, methods, guess):
-        """Results of ``methods`` at ``point`` and the density for the next point."""
-        try:
-            return self.engine.compute(
-                self.geometry(point), self.task["basis"], methods, self.settings, guess=guess
-            )
+            if isinstance(walk, Exception):
+                raise walk
+            return walk.compute(self.geometry(point), methods)
         except Exception as exc:  # recorded, never allowed to stop the batch
-            message = f"{type(exc).__name__}: {exc}".splitlines()[0]
-            return {m: _failure(m, message) for m in methods}, None
+            if not isinstance(walk, Exception):
+                walk.restart()
+            return {m: _failure(m, exc) for m in methods}
 
-    def key(self, point, method):
-        from pesflow.plan import keys
-
+    @staticmethod
+    def key(point, method):
+        """The key the plan made for ``method`` at ``point`` (None if it made none)."""
         if method in point["keys"]:
             return point["keys"][method]
         # e.g. the CCSD part of a CCSD(T) calculation: kept, it is free
-        return keys.point_key(
-            self.symbols,
-            np.asarray(point["positions"], dtype=float),
-            self.task["charge"],
-            self.task["multiplicity"],
-            method,
-            self.task["basis"],
-            self.settings_key(method),
-            self.engine.name,
-            self.engine.version,
-        )
+        return point.get("byproduct_keys", {}).get(method)
 
-    def write(self, point, result, positions=None):
+    def write(self, point, result):
+        """Store ``result`` at once (at its relaxed geometry when it has one)."""
         from pesflow.store.point_store import make_record
 
-        task = self.task
+        key = self.key(point, result.method)
+        if key is None:
+            log.warning(
+                "no key planned for %s at walk %d; not stored", result.method, point["walk"]
+            )
+            return
+        at = point["positions"] if result.geometry is None else result.geometry.positions_angstrom
         self.store.write(
             make_record(
-                key=self.key(point, result.method),
-                method=result.method,
-                basis=task["basis"],
-                charge=task["charge"],
-                multiplicity=task["multiplicity"],
-                symbols=" ".join(task["symbols"]),
-                positions_angstrom=np.asarray(
-                    point["positions"] if positions is None else positions, dtype=float
-                )
-                .ravel()
-                .tolist(),
-                energy_hartree=float(result.energy_hartree),
-                converged=bool(result.converged),
-                scf_cycles=int(result.scf_cycles),
-                wall_s=float(result.wall_s),
-                step_wall_s=float(result.step_wall_s),
-                s2=float(result.s2),
-                reference=result.reference,
-                engine=self.engine.name,
-                engine_version=self.engine.version,
+                key=key,
+                positions_angstrom=np.asarray(at, dtype=float).ravel().tolist(),
                 settings_json=json.dumps(self.settings_key(result.method), sort_keys=True),
-                attempts_json=json.dumps(result.attempts) if result.attempts else None,
-                extra_json=json.dumps(result.extra, sort_keys=True, default=float)
-                if getattr(result, "extra", None)
-                else None,
-                error=result.error,
                 created_unix=time.time(),
+                **self.shared,
+                **result.columns(),
             )
         )
 
@@ -252,13 +240,13 @@ def _backward_sweep(walk: _Walk, run: list[_Computed], points, status) -> int:
         points[run[lo].index]["walk"],
         points[run[hi].index]["walk"],
     )
-    guess = None
-    if hi + 1 < len(run):  # start from the density of the point past the segment
-        _, guess = walk.compute(points[run[hi + 1].index], run[hi + 1].methods, None)
+    walk.restart()
+    if hi + 1 < len(run):  # start from the solution of the point past the segment
+        walk.compute(points[run[hi + 1].index], run[hi + 1].methods)
     improved = 0
     for c in reversed(run[lo : hi + 1]):
         point = points[c.index]
-        results, guess = walk.compute(point, c.methods, guess)
+        results = walk.compute(point, c.methods)
         new, old = results.get(c.methods[0]), c.lead()
         better = (
             new is not None
@@ -291,17 +279,12 @@ def _backward_sweep(walk: _Walk, run: list[_Computed], points, status) -> int:
     return improved
 
 
-def _relax_point(walk, point, methods, relaxed, counts, status):
-    """Relax ``point`` for each method, each from its own neighbour's relaxed geometry.
-
-    ``relaxed`` maps method -> (positions, density) of the previous point of the walk.
-    """
+def _relax_point(walk, point, methods, counts, status):
+    """Relax ``point`` for each method, each from its own neighbour's relaxed geometry
+    (kept by that method's engine walk)."""
     for method in methods:
-        previous, guess = relaxed.get(method, (None, None))
-        start = walk.start_from(point, previous)
-        positions, result, density = walk.relax_point(point, method, start, guess)
-        walk.write(point, result, positions=positions)
-        relaxed[method] = (positions, density) if result.converged else (None, None)
+        result = walk.relax_point(point, method)
+        walk.write(point, result)
         counts["computed"] += 1
         status[point["keys"][method]] = "done" if result.converged else "failed"
         if not result.converged:
@@ -340,7 +323,7 @@ def run_batch(
     status = {}
     recompute = set(task.get("recompute", ()))
     computed: list[_Computed] = []
-    guess, previous_walk, relaxed = None, None, {}
+    previous_walk = None
     t0 = time.time()
     for index, point in enumerate(points):
         wanted = point["keys"]
@@ -350,13 +333,12 @@ def run_batch(
         if not missing:
             continue
         if previous_walk is None or abs(point["walk"] - previous_walk) > 1:
-            guess = None  # a neighbour's density is a good guess; a distant one is not
-            relaxed = {}
+            walk.restart()  # a neighbour's solution is a good guess; a distant one is not
         if walk.relax:
-            _relax_point(walk, point, missing, relaxed, counts, status)
+            _relax_point(walk, point, missing, counts, status)
             previous_walk = point["walk"]
             continue
-        results, guess = walk.compute(point, missing, guess)
+        results = walk.compute(point, missing)
         previous_walk = point["walk"]
         for method, result in results.items():
             if method in wanted and method not in missing:
@@ -379,6 +361,55 @@ def run_batch(
             counts["improved"] += _backward_sweep(walk, run, points, status)
     counts["failed"] = sum(1 for v in status.values() if v == "failed")
     marker = {"batch_id": task["batch_id"], "wall_s": time.time() - t0, **counts, "points": status}
+    if done_path is not None:  # None: one walk of a job, whose marker run_job writes
+        done_path = Path(done_path)
+        done_path.parent.mkdir(parents=True, exist_ok=True)
+        atomic_write(done_path, json.dumps(marker, indent=1), fsync=False)
+    return marker
+
+
+def run_job(
+    job_path,
+    done_path,
+    threads: int = 1,
+    continuity: bool = True,
+    max_memory_mb: int | None = None,
+) -> dict:
+    """Run every walk of a job file in order (:func:`run_batch` on each); write one marker.
+
+    A plain walk task file (:data:`TASK_FORMAT`) is run as a job of one walk.  Returns
+    the marker's content: the job id, summed counts, the status of every point, and
+    each walk's id and seconds.
+    """
+    job = json.loads(Path(job_path).read_text())
+    if job.get("format") == TASK_FORMAT:
+        return run_batch(job_path, done_path, threads, continuity, max_memory_mb)
+    if job.get("format") != JOB_FORMAT or job.get("version") != JOB_VERSION:
+        raise ValueError(f"{job_path}: not a pesflow job or batch task of a known version")
+    t0 = time.time()
+    counts = {"computed": 0, "skipped": 0, "failed": 0, "improved": 0}
+    status, walks = {}, []
+    for task in job["walks"]:
+        marker = run_batch(task, None, threads, continuity, max_memory_mb)
+        for name in counts:
+            counts[name] += marker[name]
+        status.update(marker["points"])
+        walks.append({"batch_id": marker["batch_id"], "wall_s": marker["wall_s"]})
+        log.info(
+            "walk %s: %d computed, %d failed, %d cached, %.1f s",
+            marker["batch_id"],
+            marker["computed"],
+            marker["failed"],
+            marker["skipped"],
+            marker["wall_s"],
+        )
+    marker = {
+        "batch_id": job["job_id"],
+        "wall_s": time.time() - t0,
+        **counts,
+        "walks": walks,
+        "points": status,
+    }
     done_path = Path(done_path)
     done_path.parent.mkdir(parents=True, exist_ok=True)
     atomic_write(done_path, json.dumps(marker, indent=1), fsync=False)
@@ -388,9 +419,9 @@ def run_batch(
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(
         prog="python -m pesflow.execution.batch",
-        description="Run one pesflow batch (used by Snakemake).",
+        description="Run one pesflow job: its walks in order (used by Snakemake).",
     )
-    parser.add_argument("task", help="batch task JSON")
+    parser.add_argument("task", help="job (or single batch) task JSON")
     parser.add_argument("done", help="done marker to write")
     parser.add_argument("--threads", type=int, default=1)
     parser.add_argument(
@@ -402,7 +433,7 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
     logging.basicConfig(level=logging.INFO, format="%(asctime)s %(levelname)s %(message)s")
     os.environ.setdefault("OMP_NUM_THREADS", str(args.threads))
-    marker = run_batch(args.task, args.done, threads=args.threads, max_memory_mb=args.max_memory_mb)
+    marker = run_job(args.task, args.done, threads=args.threads, max_memory_mb=args.max_memory_mb)
     log.info(
         "batch %s: %d computed, %d failed, %d cached, %d improved walking back, %.1f s",
         marker["batch_id"],

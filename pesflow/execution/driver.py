@@ -12,6 +12,13 @@ markers (left by a kill) are cleared before the run; if one is, the run is
 refused.  Signals: SIGINT, SIGTERM and SIGHUP to the driver are passed to
 Snakemake as SIGINT (which stops its jobs cleanly); if Snakemake has not ended
 after a grace period it is killed.  Every finished point is already durable.
+
+A stuck status query: when every batch of the run has written its done marker (so
+all its points are stored) and Snakemake still has not ended ``stall_grace_s``
+seconds later, the executor is not learning that its jobs ended (e.g. the SLURM
+plugin asking ``sacct`` on a cluster without accounting storage).  Snakemake is then
+stopped as on SIGINT and the outcome says ``stalled``; nothing is lost, since the
+points are in the store before the markers are written.
 """
 
 from __future__ import annotations
@@ -30,6 +37,27 @@ from pesflow.errors import RunError
 from pesflow.formats.atomic import atomic_write
 
 GRACE_S = 20.0
+#: Seconds Snakemake may go on after every batch has ended before the run is stopped as
+#: stuck: longer than the SLURM executor plugin's longest pause between status checks
+#: (180 s).  ``PESFLOW_STALL_GRACE_S`` overrides it.
+STALL_GRACE_S = 240.0
+
+
+def stall_grace_s() -> float:
+    """The stuck-run grace period: ``PESFLOW_STALL_GRACE_S`` if set, else STALL_GRACE_S."""
+    text = os.environ.get("PESFLOW_STALL_GRACE_S", "").strip()
+    if not text:
+        return STALL_GRACE_S
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not value > 0 or value == float("inf"):
+        raise RunError(
+            f"environment variable PESFLOW_STALL_GRACE_S: {text!r} is not allowed; "
+            "give a number of seconds greater than 0"
+        )
+    return value
 
 
 def workflow_dir() -> Path:
@@ -50,9 +78,12 @@ class RunOptions:
     threads_per_batch: int = 1
     mem_mb_per_batch: int = 4000
     runtime_min_per_batch: int = 600
-    retry_failed: bool = False
     batches_per_core: int = 3
+    #: estimated seconds of work per Snakemake job (None: a local or a cluster default,
+    #: see :mod:`pesflow.plan.batches`)
+    target_job_s: float | None = None
     extra_args: list[str] = field(default_factory=list)
+    stall_grace_s: float = field(default_factory=stall_grace_s)
 
 
 def workdir(campaign) -> Path:
@@ -67,6 +98,7 @@ def task_dict(plan, batch, store_root, recompute=()) -> dict:
 
     gs = plan.geometry_sets[batch.set_id]
     keys = {k for _, methods in batch.entries for k in methods.values()}
+    engine, engine_version = plan.batch_engine(batch)
     return {
         "format": TASK_FORMAT,
         "version": TASK_VERSION,
@@ -75,8 +107,8 @@ def task_dict(plan, batch, store_root, recompute=()) -> dict:
         "molecule": gs.molecule,
         "scan": gs.scan,
         "store": str(store_root),
-        "engine": plan.engine,
-        "engine_version": plan.engine_version,
+        "engine": engine,
+        "engine_version": engine_version,
         "settings": gs.settings_key,
         "basis": batch.basis,
         "family": batch.family,
@@ -98,6 +130,7 @@ def task_dict(plan, batch, store_root, recompute=()) -> dict:
                 "walk": walk,
                 "positions": gs.positions[walk].tolist(),
                 "keys": methods,
+                "byproduct_keys": plan.byproduct_keys(batch, walk),
                 "values": gs.values[walk].tolist(),
             }
             for walk, methods in batch.entries
@@ -105,22 +138,44 @@ def task_dict(plan, batch, store_root, recompute=()) -> dict:
     }
 
 
-def write_tasks(plan, batches, store_root, wd: Path, options: RunOptions, recompute=()):
-    """Write the task files and the Snakemake config; clear stale done markers."""
+def job_dict(plan, job, store_root, recompute=()) -> dict:
+    """The task file content of one job: the task of each of its walks, run in order."""
+    from pesflow.execution.batch import JOB_FORMAT, JOB_VERSION
+
+    return {
+        "format": JOB_FORMAT,
+        "version": JOB_VERSION,
+        "job_id": job.job_id,
+        "walks": [task_dict(plan, batch, store_root, recompute) for batch in job.batches],
+    }
+
+
+def write_tasks(plan, jobs, store_root, wd: Path, options: RunOptions, recompute=()):
+    """Write one task file per job and the Snakemake config; clear stale done markers.
+
+    ``jobs`` are :class:`pesflow.plan.batches.Job` objects; a plain
+    :class:`~pesflow.plan.expand.Batch` is taken as a job of one walk.
+    """
+    from pesflow.plan.batches import Job
+
+    jobs = [
+        j if isinstance(j, Job) else Job(job_id=j.batch_id, batches=[j], weight=j.weight)
+        for j in jobs
+    ]
     (wd / "tasks").mkdir(parents=True, exist_ok=True)
     (wd / "done").mkdir(parents=True, exist_ok=True)
-    for batch in batches:
+    for job in jobs:
         atomic_write(
-            wd / "tasks" / f"{batch.batch_id}.json",
-            json.dumps(task_dict(plan, batch, store_root, recompute)),
+            wd / "tasks" / f"{job.job_id}.json",
+            json.dumps(job_dict(plan, job, store_root, recompute)),
         )
-        marker = wd / "done" / f"{batch.batch_id}.json"
+        marker = wd / "done" / f"{job.job_id}.json"
         if marker.exists():
             marker.unlink()
     config = {
         "campaign": plan.campaign,
         "python": sys.executable,
-        "batches": [b.batch_id for b in batches],
+        "batches": [j.job_id for j in jobs],
         "threads_per_batch": options.threads_per_batch,
         "mem_mb_per_batch": options.mem_mb_per_batch,
         "runtime_min_per_batch": options.runtime_min_per_batch,
@@ -247,6 +302,31 @@ class RunOutcome:
     returncode: int  # Snakemake's exit code
     interrupted: bool
     log_path: Path
+    stalled: bool = False  # stopped: every batch had ended, yet Snakemake kept waiting
+
+
+class _AllBatchesEnded:
+    """Says when every batch of the run has written its done marker, and since when."""
+
+    def __init__(self, done_dir: Path, batches, grace_s: float, look_every_s: float = 2.0):
+        self.done_dir, self.grace_s, self.look_every_s = done_dir, grace_s, look_every_s
+        self.wanted = {f"{b}.json" for b in batches}
+        self.since = None
+        self.next_look = 0.0
+
+    def overdue(self) -> bool:
+        now = time.monotonic()
+        if now >= self.next_look:  # one directory listing every look_every_s at most
+            self.next_look = now + self.look_every_s
+            try:
+                ended = self.wanted <= set(os.listdir(self.done_dir))
+            except OSError:
+                ended = False
+            if not ended:
+                self.since = None
+            elif self.since is None:
+                self.since = now
+        return self.since is not None and now - self.since > self.grace_s
 
 
 def run_snakemake(
@@ -265,6 +345,9 @@ def run_snakemake(
     logs.mkdir(parents=True, exist_ok=True)
     log_path = logs / f"snakemake-{time.strftime('%Y%m%dT%H%M%S')}-{os.getpid()}.log"
     interrupted = {"flag": False, "at": None}
+    batches = json.loads(Path(config_path).read_text()).get("batches", [])
+    ended = _AllBatchesEnded(wd / "done", batches, options.stall_grace_s)
+    stalled = False
     with open(log_path, "w") as log:
         _clear_stale_snakemake_locks(wd, config_path, log)
         log.flush()
@@ -298,6 +381,10 @@ def run_snakemake(
                     pass
                 if on_poll is not None:
                     on_poll()
+                if not stalled and batches and ended.overdue():
+                    stalled = True  # stop it as on SIGINT (and kill it after GRACE_S)
+                    interrupted["at"] = interrupted["at"] or time.monotonic()
+                    proc.send_signal(signal.SIGINT)
                 if interrupted["at"] is not None and time.monotonic() - interrupted["at"] > GRACE_S:
                     kill_tree(proc.pid)
         finally:
@@ -305,4 +392,6 @@ def run_snakemake(
                 signal.signal(s, handler)
     if on_poll is not None:
         on_poll()
-    return RunOutcome(returncode=rc, interrupted=interrupted["flag"], log_path=log_path)
+    return RunOutcome(
+        returncode=rc, interrupted=interrupted["flag"], log_path=log_path, stalled=stalled
+    )

@@ -23,14 +23,11 @@ import pandas as pd
 
 from pesflow.coordinates import geometry as coordinates
 from pesflow.coordinates.kinds import column_names
-from pesflow.engine import scf_family
+from pesflow.engine import method_info
 from pesflow.plan import keys
 
-#: Methods whose points are made from one shared SCF, in the order they are computed.
-_METHOD_ORDER = {"hf": 0, "mp2": 1, "ccsd": 2, "ccsd(t)": 3}
-#: Rough cost of a method relative to its SCF, for chunking only (common practice:
-#: correlated steps cost several SCFs on small molecules).
-_METHOD_WEIGHT = {"hf": 1.0, "mp2": 1.5, "ccsd": 6.0, "ccsd(t)": 9.0}
+# A method's order within its family's computation and its cost weight relative to
+# the family's SCF (for chunking only) come from the engine: MethodInfo.order, .weight.
 
 
 #: A relaxed point costs about this many single points (common practice: 10-20
@@ -44,7 +41,10 @@ MIN_BATCH_S = 15.0
 
 
 def engine_version(name: str = "pyscf") -> str:
-    """Version of the engine's package, read from its metadata (no import)."""
+    """Version of the engine's package, read from its metadata (no import).
+
+    The engines are named after their packages (``pyscf``, ``tblite``).
+    """
     return _dist_version(name)
 
 
@@ -69,6 +69,9 @@ class GeometrySet:
     settings_key: dict = field(default_factory=dict)  # engine settings of this set
     moving: tuple = ()  # per coordinate, the 0-based atoms that move
     digests: list[bytes] = field(repr=False, default_factory=list)
+    #: keys of the methods computed for free beside a level (ccsd beside ccsd(t)) when
+    #: they are not levels themselves: (basis, method) -> one key per walk point
+    byproduct_keys: dict[tuple[str, str], list[str]] = field(repr=False, default_factory=dict)
 
 
 @dataclass
@@ -82,12 +85,29 @@ class Plan:
     geometry_sets: list[GeometrySet]
     #: one row per point: set_id, walk, molecule, scan, role, method, basis, level, family, key
     points: pd.DataFrame
+    #: engine of each family (shared-work group) in the plan, and each engine's version
+    family_engine: dict[str, str] = field(default_factory=dict)
+    engine_versions: dict[str, str] = field(default_factory=dict)
 
     def method_key(self, method: str) -> dict:
         """The settings that enter the key of ``method``'s points."""
         from pesflow.engine import EngineSettings
 
-        return EngineSettings(**self.settings_key).key_dict(method)
+        return EngineSettings.from_key_dict(self.settings_key).key_dict(method)
+
+    def batch_engine(self, batch) -> tuple[str, str]:
+        """Name and version of the engine that computes ``batch``."""
+        name = self.family_engine.get(batch.family, self.engine)
+        return name, self.engine_versions.get(name, self.engine_version)
+
+    def byproduct_keys(self, batch, walk: int) -> dict[str, str]:
+        """Keys of the free byproducts (ccsd beside ccsd(t)) at one point of ``batch``."""
+        gs = self.geometry_sets[batch.set_id]
+        return {
+            method: per_walk[walk]
+            for (basis, method), per_walk in gs.byproduct_keys.items()
+            if basis == batch.basis and method_info(method).family == batch.family
+        }
 
     def geometry(self, set_id: int, walk: int):
         gs = self.geometry_sets[set_id]
@@ -190,36 +210,52 @@ def point_settings_key(settings, method, gs) -> dict:
 
 
 def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
-    """Expand a validated :class:`~pesflow.campaign.spec.Campaign` into every point.
+    """Expand a validated :class:`~pesflow.campaign.resolved.Campaign` into every point.
 
+    Each level is computed by the engine its method belongs to
+    (:attr:`~pesflow.engine.MethodInfo.engine`); ``version`` overrides the version of
+    ``engine`` (the default engine, PySCF), the others are read from their packages.
     Returns a :class:`Plan`; geometries are computed with vectorised rigid
     displacements and rounded to the key precision.
     """
-    version = version or engine_version(engine)
+    versions = {engine: version or engine_version(engine)}
     settings_key = campaign.engine_settings().key_dict()
     sets = _scan_sets(campaign, 0)
     sets += _fragment_sets(campaign, len(sets))
     columns = {k: [] for k in ("set_id", "walk", "method", "basis", "key")}
+    family_engine = {}
     for gs in sets:
         settings = campaign.engine_settings(gs.scan if gs.role == "scan" else None)
         gs.settings_key = settings.key_dict()
         gs.digests = keys.geometry_digests(gs.symbols, gs.positions)
         walks = np.arange(len(gs.digests))
-        for level in gs.levels:
+        levels = {(level.method, level.basis) for level in gs.levels}
+
+        def point_keys(method, basis, gs=gs, settings=settings):
+            info = method_info(method)
+            if info.engine not in versions:
+                versions[info.engine] = engine_version(info.engine)
+            family_engine[info.family] = info.engine
             prefix = keys.level_prefix(
                 gs.charge,
                 gs.multiplicity,
-                level.method,
-                level.basis,
-                point_settings_key(settings, level.method, gs),
-                engine,
-                version,
+                method,
+                basis,
+                point_settings_key(settings, method, gs),
+                info.engine,
+                versions[info.engine],
             )
-            columns["key"].extend(keys.combine(prefix, d) for d in gs.digests)
+            return [keys.combine(prefix, d) for d in gs.digests]
+
+        for level in gs.levels:
+            columns["key"].extend(point_keys(level.method, level.basis))
             columns["set_id"].append(np.full(len(walks), gs.set_id))
             columns["walk"].append(walks)
             columns["method"].extend([level.method] * len(walks))
             columns["basis"].extend([level.basis] * len(walks))
+            for extra in method_info(level.method).byproducts:
+                if (extra, level.basis) not in levels:
+                    gs.byproduct_keys[(level.basis, extra)] = point_keys(extra, level.basis)
     set_id = np.concatenate(columns["set_id"]) if columns["set_id"] else np.zeros(0, int)
     points = pd.DataFrame(
         {
@@ -239,16 +275,20 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
         }
     )
     points = points.merge(meta, on="set_id", how="left")
-    points["level"] = points["method"] + "/" + points["basis"]
-    families = {m: scf_family(m) for m in points["method"].unique()}
+    points["level"] = np.where(
+        points["basis"] == "", points["method"], points["method"] + "/" + points["basis"]
+    )
+    families = {m: method_info(m).family for m in points["method"].unique()}
     points["family"] = points["method"].map(families)
     return Plan(
         campaign=campaign.name,
         engine=engine,
-        engine_version=version,
+        engine_version=versions[engine],
         settings_key=settings_key,
         geometry_sets=sets,
         points=points,
+        family_engine=family_engine,
+        engine_versions=versions,
     )
 
 
@@ -309,11 +349,9 @@ def make_batches(
             entries.setdefault(int(walk), {})[method] = key
         ordered = []
         for walk in sorted(entries):
-            methods = dict(
-                sorted(entries[walk].items(), key=lambda mk: _METHOD_ORDER.get(mk[0], 0))
-            )
+            methods = dict(sorted(entries[walk].items(), key=lambda mk: method_info(mk[0]).order))
             ordered.append((walk, methods))
-        weight = sum(max(_METHOD_WEIGHT.get(m, 1.0) for m in methods) for _, methods in ordered)
+        weight = sum(max(method_info(m).weight for m in methods) for _, methods in ordered)
         gs = plan.geometry_sets[int(set_id)]
         if gs.relax:
             weight *= RELAX_WEIGHT * len(ordered[0][1])

@@ -26,6 +26,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from pesflow.analysis.flags import Flag, flag_text
 from pesflow.formats.atomic import atomic_write
 from pesflow.report.stats import (
     ErrorStatistics,
@@ -74,15 +75,21 @@ _LABELS = {
 }
 
 
+def _csv_cell(value):
+    if isinstance(value, tuple) and all(isinstance(v, Flag) for v in value):
+        return flag_text(value)  # the flags of a value, as the summary's flags column
+    if isinstance(value, list | tuple | np.ndarray):
+        return " ".join(map(str, value))
+    return value
+
+
 def _csv_text(frame: pd.DataFrame) -> str:
     frame = frame.copy()
     for col in frame.columns:
         if frame[col].dtype == object:
             # Lists (geometries) would be written as Python reprs; the summary has none, but
             # keep the CSV plain text in any case.
-            frame[col] = frame[col].map(
-                lambda v: " ".join(map(str, v)) if isinstance(v, list | tuple | np.ndarray) else v
-            )
+            frame[col] = frame[col].map(_csv_cell)
     return frame.to_csv(index=False)
 
 
@@ -92,7 +99,7 @@ def build_report(
     """Write the comparison report of ``campaign`` into ``out_dir`` (created if needed).
 
     Args:
-        campaign: the loaded :class:`~pesflow.campaign.spec.Campaign`.
+        campaign: the loaded :class:`~pesflow.campaign.resolved.Campaign`.
         plan: its :class:`~pesflow.plan.expand.Plan` (:func:`pesflow.plan.expand.expand`).
         points: :func:`pesflow.tables.points.points_table` of the campaign, all columns.
         summary: :func:`pesflow.tables.summary.summary_table` of the same points.

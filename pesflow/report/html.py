@@ -9,12 +9,22 @@ markup is marked trusted with :class:`Markup`.
 
 from __future__ import annotations
 
-import base64
-import html
 from datetime import UTC, datetime
+from importlib import resources
 
 import numpy as np
 
+from pesflow.report.markup import (
+    Markup,
+    data_number,
+    esc,
+    figure,
+    join,
+    table,
+    tag,
+    td,
+    th,
+)
 from pesflow.report.stats import closest_levels
 from pesflow.report.tables import (
     QUANTITY,
@@ -38,125 +48,8 @@ _PENDING_NOTE = (
 )
 
 
-class Markup(str):
-    """Text that is already HTML (our own markup only; never built from unescaped user text)."""
-
-
-def esc(value) -> Markup:
-    """``value`` as HTML text: escaped unless it is already :class:`Markup`."""
-    if isinstance(value, Markup):
-        return value
-    return Markup(html.escape(str(value), quote=True))
-
-
-def join(parts, sep="") -> Markup:
-    return Markup(esc(sep).join(esc(p) for p in parts))
-
-
-def tag(name: str, content="", **attrs) -> Markup:
-    """``<name attrs>content</name>``; attribute names use ``_`` for ``-``, values escaped."""
-    rendered = "".join(
-        f' {k.rstrip("_").replace("_", "-")}="{esc(v)}"' for k, v in attrs.items() if v is not None
-    )
-    return Markup(f"<{name}{rendered}>{esc(content)}</{name}>")
-
-
-CSS = """
-:root { --ink:#1c2330; --muted:#5a6472; --line:#dde2e8; --head:#eef1f5; --accent:#0072B2;
-  --warn:#B24A00; --ok:#00785A; --bg:#f5f6f8; }
-* { box-sizing: border-box; }
-body { margin:0; color:var(--ink); background:var(--bg);
-  font: 15px/1.5 system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial,
-  sans-serif; }
-.wrap { max-width: 1160px; margin: 0 auto; padding: 0 22px; }
-header { background: var(--ink); color: #fff; padding: 26px 0 20px; }
-header h1 { margin: 0 0 4px; font-size: 27px; letter-spacing: .2px; }
-header p { margin: 2px 0; color: #c9d1dc; font-size: 14px; }
-header code { color: #fff; }
-section { background:#fff; border:1px solid var(--line); border-radius:8px;
-  padding: 16px 24px 18px; margin: 18px 0; }
-h2 { font-size: 20px; margin: 4px 0 10px; padding-bottom: 5px;
-  border-bottom: 2px solid var(--accent); }
-h3 { font-size: 16.5px; margin: 22px 0 6px; }
-h4 { font-size: 14.5px; margin: 14px 0 4px; color: var(--muted); }
-p.lead { margin-top: 0; }
-.muted, .explain { color: var(--muted); font-size: 13.5px; }
-.scroll { overflow-x: auto; }
-table { border-collapse: collapse; margin: 6px 0 10px; font-size: 13.5px; }
-th, td { padding: 5px 10px; border-bottom: 1px solid var(--line); text-align: left;
-  vertical-align: top; }
-thead th { background: var(--head); font-weight: 600; border-bottom: 2px solid #b8c0cb; }
-th.sub { font-weight: 500; color: var(--muted); font-size: 12.5px; }
-td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
-td.ref, th.ref { background: #f2f6fb; }
-.nowrap { white-space: nowrap; }
-tbody tr:hover td { background: #fafbfc; }
-.dev { display: block; color: var(--muted); font-size: 12px; }
-.tag { display: inline-block; font-size: 11px; padding: 0 6px; border-radius: 9px;
-  background: #e3ebf5; color: #244a72; margin-left: 4px; }
-a.flag { color: var(--warn); font-weight: 700; font-size: 11px; text-decoration: none;
-  margin-left: 2px; }
-.missing { color: var(--warn); font-style: italic; }
-.best { font-weight: 700; }
-.banner { border-left: 6px solid; padding: 10px 14px; border-radius: 4px; margin: 10px 0; }
-.banner.ok { border-color: var(--ok); background: #e9f5f0; }
-.banner.partial { border-color: #E69F00; background: #fdf4e3; }
-ol.notes, ul.flags { font-size: 13px; margin: 4px 0 10px; padding-left: 22px; }
-ol.notes li, ul.flags li { margin: 2px 0; }
-nav ol { columns: 2; margin: 4px 0; padding-left: 20px; }
-figure { margin: 12px 0; }
-figure img { max-width: 100%; height: auto; border: 1px solid var(--line); border-radius: 4px; }
-figcaption { color: var(--muted); font-size: 13px; margin-top: 4px; }
-ul.verdict { padding-left: 20px; }
-ul.verdict li { margin: 4px 0; }
-details { margin: 6px 0; }
-summary { cursor: pointer; color: var(--accent); }
-footer { color: var(--muted); font-size: 12.5px; padding: 8px 0 30px; }
-@media print {
-  body { background: #fff; font-size: 12px; }
-  header { background: #fff; color: #000; border-bottom: 2px solid #000; }
-  header p { color: #333; }
-  header code { color: #000; }
-  section { border: none; padding: 0; break-inside: avoid-page; }
-  figure { break-inside: avoid; }
-}
-"""
-
-
-def _img(png: bytes, alt: str) -> Markup:
-    data = base64.b64encode(png).decode("ascii")
-    return Markup(f'<img alt="{esc(alt)}" src="data:image/png;base64,{data}">')
-
-
-def _figure(fig, caption) -> Markup:
-    if fig is None:
-        return Markup("")
-    return tag("figure", join([_img(fig.png, fig.alt), tag("figcaption", caption)]))
-
-
-def _table(head, rows, cls=None) -> Markup:
-    """``head``: list of header rows (each a list of Markup ``<th>``); ``rows``: list of
-    lists of Markup ``<td>``."""
-    thead = tag("thead", join(tag("tr", join(r)) for r in head))
-    tbody = tag("tbody", join(tag("tr", join(r)) for r in rows))
-    return tag("div", tag("table", join([thead, tbody]), class_=cls), class_="scroll")
-
-
-def _th(text, cls=None, **attrs) -> Markup:
-    return tag("th", text, class_=cls, **attrs)
-
-
-def _td(text, cls=None, **attrs) -> Markup:
-    return tag("td", text, class_=cls, **attrs)
-
-
-def _r(x) -> str:
-    """A float for a data attribute: full precision, empty for NaN."""
-    try:
-        v = float(x)
-    except (TypeError, ValueError):
-        return ""
-    return repr(v) if np.isfinite(v) else ""
+#: The page's style sheet (pesflow/report/style.css), inlined into the page.
+CSS = resources.files("pesflow.report").joinpath("style.css").read_text(encoding="utf-8")
 
 
 def _level_head(level, reference_level) -> Markup:
@@ -172,9 +65,11 @@ class _Notes:
         self.prefix = prefix
         self.items: dict[str, list[str]] = {}
 
-    def mark(self, flags: str, where: str) -> Markup:
+    def mark(self, flags, where: str) -> Markup:
+        """Footnote marks for ``flags`` (the :class:`~pesflow.analysis.flags.Flag` objects that
+        concern one cell), each numbered once per distinct message."""
         out = []
-        for flag in (f for f in flags.split(" | ") if f):
+        for flag in dict.fromkeys(str(f) for f in flags):
             self.items.setdefault(flag, [])
             if where not in self.items[flag]:
                 self.items[flag].append(where)
@@ -209,9 +104,9 @@ def _cell_text(row, q) -> Markup:
 def _quantity_table(d: ReportData, q, notes: _Notes) -> Markup:
     sub = d.values[d.values["quantity"] == q.column]
     head = [
-        [_th("molecule"), _th("scan")]
+        [th("molecule"), th("scan")]
         + [
-            _th(
+            th(
                 _level_head(lvl, d.reference_level),
                 cls="num ref" if lvl == d.reference_level else "num",
             )
@@ -221,11 +116,11 @@ def _quantity_table(d: ReportData, q, notes: _Notes) -> Markup:
     rows = []
     for (molecule, scan), curve in sub.groupby(["molecule", "scan"], sort=False):
         by_level = curve.set_index("level")
-        cells = [_td(molecule), _td(scan_label(d.curves, molecule, scan, q.column))]
+        cells = [td(molecule), td(scan_label(d.curves, molecule, scan, q.column))]
         for lvl in d.levels:
             cls = "num ref" if lvl == d.reference_level else "num"
             if lvl not in by_level.index:
-                cells.append(_td(tag("span", "not planned", class_="muted"), cls=cls))
+                cells.append(td(tag("span", "not planned", class_="muted"), cls=cls))
                 continue
             row = by_level.loc[lvl]
             content = [_cell_text(row, q), notes.mark(row["flags"], f"{lvl}, {molecule} {scan}")]
@@ -233,19 +128,19 @@ def _quantity_table(d: ReportData, q, notes: _Notes) -> Markup:
             if lvl != d.reference_level and dev:
                 content.append(tag("span", f"Δ {dev}", class_="dev"))
             cells.append(
-                _td(
+                td(
                     join(content),
                     cls=cls,
                     data_quantity=q.column,
                     data_molecule=molecule,
                     data_scan=scan,
                     data_level=lvl,
-                    data_value=_r(row["value"]),
-                    data_dev=_r(row["dev_reference_level"]),
+                    data_value=data_number(row["value"]),
+                    data_dev=data_number(row["dev_reference_level"]),
                 )
             )
         rows.append(cells)
-    return _table(head, rows)
+    return table(head, rows)
 
 
 def _reference_values_table(d: ReportData, q) -> Markup:
@@ -253,36 +148,36 @@ def _reference_values_table(d: ReportData, q) -> Markup:
     if sub.empty:
         return Markup("")
     head = [
-        [_th("molecule"), _th("scan"), _th("reference value", cls="num"), _th("source")]
-        + [_th(_level_head(lvl, d.reference_level), cls="num") for lvl in d.levels]
+        [th("molecule"), th("scan"), th("reference value", cls="num"), th("source")]
+        + [th(_level_head(lvl, d.reference_level), cls="num") for lvl in d.levels]
     ]
     rows = []
     keys = ["molecule", "scan", "source", "reference_value"]
     for (molecule, scan, source, value), ref in sub.groupby(keys, sort=False):
         by_level = ref.set_index("level")
         cells = [
-            _td(molecule),
-            _td(scan),
-            _td(fmt_value(value, q.decimals), cls="num"),
-            _td(source),
+            td(molecule),
+            td(scan),
+            td(fmt_value(value, q.decimals), cls="num"),
+            td(source),
         ]
         for lvl in d.levels:
             dev = by_level.loc[lvl, "deviation"] if lvl in by_level.index else np.nan
             text = fmt_dev(dev, q.decimals)
             cells.append(
-                _td(
+                td(
                     text or tag("span", "no value", class_="missing"),
                     cls="num",
                     data_quantity=q.column,
                     data_molecule=molecule,
                     data_scan=scan,
                     data_level=lvl,
-                    data_ref_dev=_r(dev),
+                    data_ref_dev=data_number(dev),
                 )
             )
         rows.append(cells)
     return join(
-        [tag("h4", "Deviation from the reference values (level minus value)"), _table(head, rows)]
+        [tag("h4", "Deviation from the reference values (level minus value)"), table(head, rows)]
     )
 
 
@@ -292,9 +187,9 @@ def _stats_table(d: ReportData, q) -> Markup:
         return Markup("")
     groups = list(dict.fromkeys(stats["against"]))
     head = [
-        [_th("level", rowspan=2)]
+        [th("level", rowspan=2)]
         + [
-            _th(
+            th(
                 f"against {g}"
                 if g == "reference values"
                 else join(["against ", g, " (reference level)"]),
@@ -303,32 +198,32 @@ def _stats_table(d: ReportData, q) -> Markup:
             )
             for g in groups
         ],
-        [_th(t, cls="num sub") for _ in groups for t in ("n", "MSD", "MAD", "max |dev|")],
+        [th(t, cls="num sub") for _ in groups for t in ("n", "MSD", "MAD", "max |dev|")],
     ]
     rows = []
     for lvl in d.levels:
-        cells = [_td(lvl)]
+        cells = [td(lvl)]
         have = False
         for g in groups:
             r = stats[(stats["against"] == g) & (stats["level"] == lvl)]
             if r.empty:
-                cells += [_td("", cls="num")] * 4
+                cells += [td("", cls="num")] * 4
                 continue
             have = True
             r = r.iloc[0]
             at = r["max_absolute_at"]
             cells += [
-                _td(str(int(r["n"])), cls="num"),
-                _td(fmt_dev(r["mean_signed"], q.decimals), cls="num"),
-                _td(
+                td(str(int(r["n"])), cls="num"),
+                td(fmt_dev(r["mean_signed"], q.decimals), cls="num"),
+                td(
                     fmt_value(r["mean_absolute"], q.decimals),
                     cls="num",
                     data_quantity=q.column,
                     data_level=lvl,
                     data_against=g,
-                    data_mad=_r(r["mean_absolute"]),
+                    data_mad=data_number(r["mean_absolute"]),
                 ),
-                _td(
+                td(
                     join(
                         [
                             fmt_value(r["max_absolute"], q.decimals),
@@ -343,7 +238,7 @@ def _stats_table(d: ReportData, q) -> Markup:
     return join(
         [
             tag("h4", f"Error statistics over the molecule set ({q.unit})"),
-            _table(head, rows),
+            table(head, rows),
             tag(
                 "p",
                 "MSD: mean signed deviation; MAD: mean absolute deviation; "
@@ -375,14 +270,14 @@ def _verdicts(d: ReportData) -> Markup:
     cost = d.cost.set_index("level")
     head = [
         [
-            _th("quantity"),
-            _th("compared with"),
-            _th("closest level"),
-            _th("MAD", cls="num"),
-            _th("n", cls="num"),
-            _th("max |dev| (curve)", cls="num"),
-            _th("core-s per point", cls="num"),
-            _th("cost vs reference", cls="num"),
+            th("quantity"),
+            th("compared with"),
+            th("closest level"),
+            th("MAD", cls="num"),
+            th("n", cls="num"),
+            th("max |dev| (curve)", cls="num"),
+            th("core-s per point", cls="num"),
+            th("cost vs reference", cls="num"),
         ]
     ]
     rows, uneven = [], False
@@ -398,18 +293,18 @@ def _verdicts(d: ReportData) -> Markup:
         uneven = uneven or not b["same_n"]
         rows.append(
             [
-                _td(join([Markup(q.html), f" ({q.unit})"]), cls="nowrap"),
-                _td(against, cls="nowrap"),
-                _td(tag("strong", lvl), cls="nowrap"),
-                _td(
+                td(join([Markup(q.html), f" ({q.unit})"]), cls="nowrap"),
+                td(against, cls="nowrap"),
+                td(tag("strong", lvl), cls="nowrap"),
+                td(
                     fmt_value(b["mean_absolute"], q.decimals),
                     cls="num",
                     data_quantity=q.column,
                     data_against=b["against"],
                     data_best=lvl,
                 ),
-                _td(f"{int(b['n'])}{star}", cls="num"),
-                _td(
+                td(f"{int(b['n'])}{star}", cls="num"),
+                td(
                     join(
                         [
                             fmt_value(b["max_absolute"], q.decimals),
@@ -418,12 +313,12 @@ def _verdicts(d: ReportData) -> Markup:
                     ),
                     cls="num",
                 ),
-                _td(fmt_seconds(per_point), cls="num"),
-                _td(f"{ratio:.2g}x" if np.isfinite(ratio) else "", cls="num"),
+                td(fmt_seconds(per_point), cls="num"),
+                td(f"{ratio:.2g}x" if np.isfinite(ratio) else "", cls="num"),
             ]
         )
     parts = [
-        _table(head, rows),
+        table(head, rows),
         tag(
             "p",
             "Closest: the smallest mean absolute deviation (MAD) over the molecule set; n "
@@ -449,9 +344,9 @@ def _overview_table(d: ReportData) -> Markup:
     against = d.reference_level
     stats = d.statistics[d.statistics["against"] == against]
     head = [
-        [_th("")]
+        [th("")]
         + [
-            _th(_level_head(lvl, against), cls="num ref" if lvl == against else "num")
+            th(_level_head(lvl, against), cls="num ref" if lvl == against else "num")
             for lvl in d.levels
         ]
     ]
@@ -461,18 +356,18 @@ def _overview_table(d: ReportData) -> Markup:
         s = stats[stats["quantity"] == column]
         ranked = s[s["n"] > 0]
         best = ranked.loc[ranked["mean_absolute"].idxmin(), "level"] if len(ranked) else None
-        cells = [_td(join([Markup(q.html), f" MAD ({q.unit})"]), cls="nowrap")]
+        cells = [td(join([Markup(q.html), f" MAD ({q.unit})"]), cls="nowrap")]
         for lvl in d.levels:
             r = s[s["level"] == lvl]
             if lvl == against:
-                cells.append(_td("reference", cls="num ref muted"))
+                cells.append(td("reference", cls="num ref muted"))
             elif r.empty or int(r["n"].iloc[0]) == 0:
-                cells.append(_td(tag("span", "no value", class_="missing"), cls="num"))
+                cells.append(td(tag("span", "no value", class_="missing"), cls="num"))
             else:
                 text = (
                     f"{fmt_value(r['mean_absolute'].iloc[0], q.decimals)} (n={int(r['n'].iloc[0])})"
                 )
-                cells.append(_td(text, cls="num best" if lvl == best else "num"))
+                cells.append(td(text, cls="num best" if lvl == best else "num"))
         rows.append(cells)
     cost = d.cost.set_index("level")
     extra = [
@@ -491,15 +386,15 @@ def _overview_table(d: ReportData) -> Markup:
         ]
     for label, get in extra:
         rows.append(
-            [_td(label, cls="nowrap")]
+            [td(label, cls="nowrap")]
             + [
-                _td(get(cost.loc[lvl]), cls="num ref" if lvl == against else "num")
+                td(get(cost.loc[lvl]), cls="num ref" if lvl == against else "num")
                 for lvl in d.levels
             ]
         )
     return join(
         [
-            _table(head, rows),
+            table(head, rows),
             tag(
                 "p",
                 "Bold: the smallest mean absolute deviation of each quantity.",
@@ -556,7 +451,7 @@ def _curve_sections(d: ReportData, figures) -> Markup:
             ),
         ):
             if key in figures:
-                parts.append(_figure(figures[key], caption))
+                parts.append(figure(figures[key], caption))
         flags = d.curve_flags[
             (d.curve_flags["molecule"] == molecule) & (d.curve_flags["scan"] == scan)
         ]
@@ -581,10 +476,10 @@ def _curve_sections(d: ReportData, figures) -> Markup:
         if len(failed):
             parts.append(tag("h4", f"Failed points ({len(failed)})"))
             parts.append(
-                _table(
-                    [[_th("level"), _th("point"), _th("error")]],
+                table(
+                    [[th("level"), th("point"), th("error")]],
                     [
-                        [_td(r["level"]), _td(r["where"]), _td(r["error"])]
+                        [td(r["level"]), td(r["where"]), td(r["error"])]
                         for _, r in failed.iterrows()
                     ],
                 )
@@ -619,7 +514,7 @@ def _convergence_section(d: ReportData, figures) -> Markup:
         parts.append(tag("h3", join([Markup(q.html), f" ({q.unit})"])))
         fig = figures.get(f"convergence:{column}")
         parts.append(
-            _figure(
+            figure(
                 fig,
                 f"{q.name} against the number of basis functions of each "
                 "molecule, one line per method; dotted: the reference level; "
@@ -628,32 +523,32 @@ def _convergence_section(d: ReportData, figures) -> Markup:
         )
         sub = d.convergence[d.convergence["quantity"] == column]
         parts.append(
-            _table(
+            table(
                 [
                     [
-                        _th("molecule"),
-                        _th("scan"),
-                        _th("method"),
-                        _th("basis"),
-                        _th("basis functions", cls="num"),
-                        _th("cardinal number", cls="num"),
-                        _th(f"value ({q.unit})", cls="num"),
+                        th("molecule"),
+                        th("scan"),
+                        th("method"),
+                        th("basis"),
+                        th("basis functions", cls="num"),
+                        th("cardinal number", cls="num"),
+                        th(f"value ({q.unit})", cls="num"),
                     ]
                 ],
                 [
                     [
-                        _td(r["molecule"]),
-                        _td(r["scan"]),
-                        _td(r["method"]),
-                        _td(r["basis"]),
-                        _td("" if not np.isfinite(r["nbf"]) else str(int(r["nbf"])), cls="num"),
-                        _td(
+                        td(r["molecule"]),
+                        td(r["scan"]),
+                        td(r["method"]),
+                        td(r["basis"]),
+                        td("" if not np.isfinite(r["nbf"]) else str(int(r["nbf"])), cls="num"),
+                        td(
                             ""
                             if r["cardinal"] is None or not np.isfinite(r["cardinal"])
                             else str(int(r["cardinal"])),
                             cls="num",
                         ),
-                        _td(fmt_value(r["value"], q.decimals), cls="num"),
+                        td(fmt_value(r["value"], q.decimals), cls="num"),
                     ]
                     for _, r in sub.iterrows()
                 ],
@@ -665,16 +560,16 @@ def _convergence_section(d: ReportData, figures) -> Markup:
 def _cost_section(d: ReportData) -> Markup:
     head = [
         [
-            _th("level"),
-            _th("method"),
-            _th("basis"),
-            _th("core-s", cls="num"),
-            _th("core-s per point", cls="num"),
-            _th("vs reference", cls="num"),
-            _th("done", cls="num"),
-            _th("failed", cls="num"),
-            _th("pending", cls="num"),
-            _th("planned", cls="num"),
+            th("level"),
+            th("method"),
+            th("basis"),
+            th("core-s", cls="num"),
+            th("core-s per point", cls="num"),
+            th("vs reference", cls="num"),
+            th("done", cls="num"),
+            th("failed", cls="num"),
+            th("pending", cls="num"),
+            th("planned", cls="num"),
         ]
     ]
     rows = []
@@ -682,26 +577,26 @@ def _cost_section(d: ReportData) -> Markup:
         ratio = c["cost_vs_reference"]
         rows.append(
             [
-                _td(_level_head(c["level"], d.reference_level)),
-                _td(c["method"]),
-                _td(c["basis"]),
-                _td(
+                td(_level_head(c["level"], d.reference_level)),
+                td(c["method"]),
+                td(c["basis"]),
+                td(
                     fmt_seconds(c["core_s"]),
                     cls="num",
                     data_level=c["level"],
-                    data_core_s=_r(c["core_s"]),
+                    data_core_s=data_number(c["core_s"]),
                 ),
-                _td(fmt_seconds(c["core_s_per_point"]), cls="num"),
-                _td(f"{ratio:.2g}x" if np.isfinite(ratio) else "", cls="num"),
-                _td(str(int(c["points_done"])), cls="num"),
-                _td(str(int(c["points_failed"])), cls="num"),
-                _td(str(int(c["points_pending"])), cls="num"),
-                _td(str(int(c["points_total"])), cls="num"),
+                td(fmt_seconds(c["core_s_per_point"]), cls="num"),
+                td(f"{ratio:.2g}x" if np.isfinite(ratio) else "", cls="num"),
+                td(str(int(c["points_done"])), cls="num"),
+                td(str(int(c["points_failed"])), cls="num"),
+                td(str(int(c["points_pending"])), cls="num"),
+                td(str(int(c["points_total"])), cls="num"),
             ]
         )
     return join(
         [
-            _table(head, rows),
+            table(head, rows),
             tag(
                 "p",
                 "Core-seconds: the sum of the stored points' wall times (batches run one thread "
@@ -714,14 +609,14 @@ def _cost_section(d: ReportData) -> Markup:
 
 
 def _missing_section(d: ReportData) -> Markup:
-    head = [[_th("molecule")] + [_th(lvl, cls="num") for lvl in d.levels]]
+    head = [[th("molecule")] + [th(lvl, cls="num") for lvl in d.levels]]
     rows = []
     status = d.status.set_index(["molecule", "level"])
     for molecule in dict.fromkeys(d.status["molecule"]):
-        cells = [_td(molecule)]
+        cells = [td(molecule)]
         for lvl in d.levels:
             if (molecule, lvl) not in status.index:
-                cells.append(_td(tag("span", "not planned", class_="muted"), cls="num"))
+                cells.append(td(tag("span", "not planned", class_="muted"), cls="num"))
                 continue
             r = status.loc[(molecule, lvl)]
             done, failed, pending = (int(r[c]) for c in ("done", "failed", "pending"))
@@ -738,7 +633,7 @@ def _missing_section(d: ReportData) -> Markup:
             else:
                 text = f"{done} done"
             cells.append(
-                _td(
+                td(
                     text,
                     cls="num",
                     data_molecule=molecule,
@@ -751,20 +646,20 @@ def _missing_section(d: ReportData) -> Markup:
         rows.append(cells)
     parts = [
         tag("p", "Points per molecule and level (scan points and fragment points)."),
-        _table(head, rows),
+        table(head, rows),
     ]
     if len(d.failed):
         parts.append(tag("h3", f"Failed points ({len(d.failed)})"))
         parts.append(
-            _table(
-                [[_th("molecule"), _th("scan"), _th("level"), _th("point"), _th("error")]],
+            table(
+                [[th("molecule"), th("scan"), th("level"), th("point"), th("error")]],
                 [
                     [
-                        _td(r["molecule"]),
-                        _td(r["scan"]),
-                        _td(r["level"]),
-                        _td(r["where"]),
-                        _td(r["error"]),
+                        td(r["molecule"]),
+                        td(r["scan"]),
+                        td(r["level"]),
+                        td(r["where"]),
+                        td(r["error"]),
                     ]
                     for _, r in d.failed.iterrows()
                 ],
@@ -800,29 +695,17 @@ def _missing_section(d: ReportData) -> Markup:
     return join(parts)
 
 
-def render(d: ReportData, figures: dict, files: dict) -> str:
-    """The HTML page (a str).  ``figures``: ``{key: object with .png and .alt}``;
-    ``files``: ``{label: file name}`` of the report's other outputs."""
-    title = f"pesflow report: {d.campaign}"
-    toc = [
-        ("overview", "Which level is closest"),
-        ("quantities", "Derived quantities"),
-        ("convergence", "Basis-set convergence"),
-        ("curves", "Curves and surfaces"),
-        ("cost", "Compute cost"),
-        ("missing", "Missing points"),
-        ("files", "Files"),
-    ]
+def _quantities_section(d: ReportData, figures, files) -> Markup:
     ref = d.reference_level
-    quantity_parts = []
+    parts = []
     for q in d.quantities:
         notes = _Notes(_anchor("note", q.column))
-        table = _quantity_table(d, q, notes)
-        quantity_parts.append(
+        values = _quantity_table(d, q, notes)
+        parts.append(
             join(
                 [
                     tag("h3", join([Markup(q.html), f" ({q.unit})"]), id=_anchor("q", q.column)),
-                    table,
+                    values,
                     notes.render(),
                     _reference_values_table(d, q),
                     _stats_table(d, q),
@@ -842,7 +725,78 @@ def render(d: ReportData, figures: dict, files: dict) -> str:
         else "No reference level is set (compare.reference_level), so no deviations "
         "between levels are shown. "
     )
-    header = tag(
+    explain = tag(
+        "p",
+        join(
+            [
+                explain_dev,
+                "Bracketed numbers link to the warnings of the analysis that concern the number. ",
+                _PENDING_NOTE if not d.complete else "",
+            ]
+        ),
+        class_="explain",
+    )
+    return join([explain, join(parts) or tag("p", "No quantities yet.", class_="muted")])
+
+
+def _overview_section(d: ReportData, figures, files) -> Markup:
+    ref = d.reference_level
+    parts = [_banner(d), _verdicts(d)]
+    if ref:
+        parts += [tag("h3", f"Mean absolute deviation from {ref}, and cost"), _overview_table(d)]
+    parts.append(
+        figure(
+            figures.get("accuracy"),
+            "Mean absolute deviation from the reference level against the mean cost of one "
+            "point; the dotted line marks the reference level's cost.",
+        )
+    )
+    return join(parts)
+
+
+def _files_section(d: ReportData, figures, files) -> Markup:
+    return tag(
+        "ul",
+        join(tag("li", join([tag("code", name), f": {label}"])) for label, name in files.items()),
+    )
+
+
+def _missing_points(d: ReportData, figures, files) -> Markup:
+    return join([_banner(d), _missing_section(d)])
+
+
+#: The page's sections in order: (anchor, heading, contents-line text, builder).  A builder
+#: takes ``(data, figures, files)`` and returns the section's markup.
+SECTIONS = (
+    (
+        "overview",
+        "Which level is closest to the reference, by how much, at what cost",
+        "Which level is closest",
+        _overview_section,
+    ),
+    ("quantities", "Derived quantities", "Derived quantities", _quantities_section),
+    (
+        "convergence",
+        "Basis-set convergence",
+        "Basis-set convergence",
+        lambda d, figures, files: _convergence_section(d, figures),
+    ),
+    (
+        "curves",
+        "Curves and surfaces",
+        "Curves and surfaces",
+        lambda d, figures, files: _curve_sections(d, figures),
+    ),
+    ("cost", "Compute cost per level", "Compute cost", lambda d, f, x: _cost_section(d)),
+    ("missing", "Missing points", "Missing points", _missing_points),
+    ("files", "Files", "Files", _files_section),
+)
+
+
+def _header(d: ReportData, title: str) -> Markup:
+    ref = d.reference_level
+    generated = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
+    return tag(
         "header",
         tag(
             "div",
@@ -851,113 +805,15 @@ def render(d: ReportData, figures: dict, files: dict) -> str:
                     tag("h1", title),
                     tag("p", join(["Spec: ", tag("code", str(d.spec_path))])),
                     tag("p", f"Reference level: {ref}" if ref else "No reference level set."),
-                    tag(
-                        "p",
-                        "Generated "
-                        + datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
-                        + " from the point store; nothing was computed.",
-                    ),
+                    tag("p", f"Generated {generated} from the point store; nothing was computed."),
                 ]
             ),
             class_="wrap",
         ),
     )
-    overview = [
-        tag(
-            "h2",
-            "Which level is closest to the reference, by how much, at what cost",
-            id="overview",
-        ),
-        _banner(d),
-        _verdicts(d),
-    ]
-    if ref:
-        overview += [tag("h3", f"Mean absolute deviation from {ref}, and cost"), _overview_table(d)]
-    overview.append(
-        _figure(
-            figures.get("accuracy"),
-            "Mean absolute deviation from the "
-            "reference level against the mean cost of one point; the dotted "
-            "line marks the reference level's cost.",
-        )
-    )
-    sections = [
-        tag(
-            "nav",
-            join(
-                [
-                    tag("strong", "Contents"),
-                    tag("ol", join(tag("li", tag("a", t, href=f"#{a}")) for a, t in toc)),
-                ]
-            ),
-        ),
-        tag("section", join(overview)),
-        tag(
-            "section",
-            join(
-                [
-                    tag("h2", "Derived quantities", id="quantities"),
-                    tag(
-                        "p",
-                        join(
-                            [
-                                explain_dev,
-                                "Bracketed numbers link to the "
-                                "warnings of the analysis that concern the "
-                                "number. ",
-                                _PENDING_NOTE if not d.complete else "",
-                            ]
-                        ),
-                        class_="explain",
-                    ),
-                    join(quantity_parts) or tag("p", "No quantities yet.", class_="muted"),
-                ]
-            ),
-        ),
-        tag(
-            "section",
-            join(
-                [
-                    tag("h2", "Basis-set convergence", id="convergence"),
-                    _convergence_section(d, figures),
-                ]
-            ),
-        ),
-        tag(
-            "section",
-            join([tag("h2", "Curves and surfaces", id="curves"), _curve_sections(d, figures)]),
-        ),
-        tag("section", join([tag("h2", "Compute cost per level", id="cost"), _cost_section(d)])),
-        tag(
-            "section",
-            join([tag("h2", "Missing points", id="missing"), _banner(d), _missing_section(d)]),
-        ),
-        tag(
-            "section",
-            join(
-                [
-                    tag("h2", "Files", id="files"),
-                    tag(
-                        "ul",
-                        join(
-                            tag("li", join([tag("code", name), f": {label}"]))
-                            for label, name in files.items()
-                        ),
-                    ),
-                ]
-            ),
-        ),
-    ]
-    body = join(
-        [
-            header,
-            tag("main", join(sections), class_="wrap"),
-            tag(
-                "footer",
-                tag("div", "pesflow report; tables as CSV next to this page.", class_="wrap"),
-            ),
-        ]
-    )
+
+
+def _page(title: str, body: Markup) -> str:
     head = join(
         [
             Markup('<meta charset="utf-8">'),
@@ -975,3 +831,36 @@ def render(d: ReportData, figures: dict, files: dict) -> str:
         + tag("html", join([tag("head", head), tag("body", body)]), lang="en")
         + "\n"
     )
+
+
+def render(d: ReportData, figures: dict, files: dict) -> str:
+    """The HTML page (a str).  ``figures``: ``{key: object with .png and .alt}``;
+    ``files``: ``{label: file name}`` of the report's other outputs."""
+    title = f"pesflow report: {d.campaign}"
+    contents = tag(
+        "nav",
+        join(
+            [
+                tag("strong", "Contents"),
+                tag(
+                    "ol",
+                    join(tag("li", tag("a", line, href=f"#{a}")) for a, _, line, _ in SECTIONS),
+                ),
+            ]
+        ),
+    )
+    sections = [
+        tag("section", join([tag("h2", heading, id=anchor), build(d, figures, files)]))
+        for anchor, heading, _, build in SECTIONS
+    ]
+    body = join(
+        [
+            _header(d, title),
+            tag("main", join([contents, *sections]), class_="wrap"),
+            tag(
+                "footer",
+                tag("div", "pesflow report; tables as CSV next to this page.", class_="wrap"),
+            ),
+        ]
+    )
+    return _page(title, body)

@@ -71,7 +71,7 @@ def _quantity(d: ReportData, q) -> list[str]:
                 continue
             row = by_level.loc[lvl]
             text = _cell(row, q)
-            for flag in (f for f in row["flags"].split(" | ") if f):
+            for flag in dict.fromkeys(str(f) for f in row["flags"]):
                 notes.setdefault(flag, []).append(f"{lvl}, {molecule} {scan}")
                 text += f" [{list(notes).index(flag) + 1}]"
             dev = fmt_dev(row["dev_reference_level"], q.decimals)

@@ -21,6 +21,7 @@ from matplotlib.ticker import NullFormatter
 from matplotlib.transforms import blended_transform_factory
 
 from pesflow.analysis.curves import covers_full_circle, interpolant, prepare_curve, wrap_degrees
+from pesflow.coordinates.kinds import KINDS
 from pesflow.units import HARTREE_TO_CM1, HARTREE_TO_KCAL_MOL
 
 #: Okabe-Ito colours in the order levels get them (yellow left out: too pale on white).
@@ -560,7 +561,7 @@ def accuracy_cost_figure(
 def periodic_curve(kind, q) -> bool:
     """Whether a curve is drawn (and interpolated) as periodic: a dihedral over the full circle."""
     q = np.asarray(q, dtype=float)
-    return kind == "dihedral" and covers_full_circle(q[np.isfinite(q)])
+    return KINDS[kind].period is not None and covers_full_circle(q[np.isfinite(q)])
 
 
 @dataclass(frozen=True)
@@ -573,8 +574,7 @@ class ReportFigure:
 
 
 def _axis_label(kind, label):
-    unit = "Å" if kind == "distance" else "degree"
-    return f"{label} ({unit})"
+    return f"{label} ({KINDS[kind].unit_text})"
 
 
 def _summary_row(summary, molecule, scan, level):
@@ -603,11 +603,6 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
     styles = level_styles(data.levels, data.reference_level)
     figures = {}
     summary = data.curves
-    position = {
-        "distance": "r_e_angstrom",
-        "angle": "angle_e_degree",
-        "dihedral": "dihedral_e_degree",
-    }
     for (molecule, scan), _ in summary.groupby(["molecule", "scan"], sort=False):
         coords = campaign.scans[scan].coordinates
         kinds = [c.kind for c in coords]
@@ -631,7 +626,7 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
                         q[:, 0],
                         e,
                         status,
-                        q_min=_float(row, position[kinds[0]]),
+                        q_min=_float(row, KINDS[kinds[0]].minimum_column),
                         e_min_hartree=_float(row, "e_min_hartree"),
                         periodic=periodic_curve(kinds[0], q[:, 0]),
                     )
@@ -643,14 +638,14 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
                     lines,
                     styles,
                     xlabel=_axis_label(kinds[0], coords[0].label),
-                    unit="angstrom" if kinds[0] == "distance" else "degree",
+                    unit=KINDS[kinds[0]].unit,
                     title=f"{molecule}, {scan}",
                     reference_level=data.reference_level,
                 ),
                 f"energy curves of {molecule} along {scan} at every level",
             )
             continue
-        units = ["angstrom" if k == "distance" else "degree" for k in kinds]
+        units = [KINDS[k].unit for k in kinds]
         grids = []
         for lvl in levels:
             q1, q2, e, status = surface_grid(campaign, points, molecule, scan, lvl)

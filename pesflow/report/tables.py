@@ -17,119 +17,23 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from pesflow.coordinates.kinds import column_names
+from pesflow.analysis.flags import Flag, flags_from_records
+from pesflow.analysis.quantities import QUANTITIES as ALL_QUANTITIES
+from pesflow.analysis.quantities import Quantity
+from pesflow.coordinates.kinds import KINDS, UNIT_TEXT, column_names
 from pesflow.report.stats import level_statistics
 from pesflow.tables.points import status_counts
 
-
-@dataclass(frozen=True)
-class Quantity:
-    """A derived quantity shown in the report.
-
-    Attributes:
-        column: summary column (unit in the name), e.g. ``"r_e_angstrom"``.
-        name: plain-text name, e.g. ``"r_e"``.
-        html: name as (trusted, our own) HTML, e.g. ``"r<sub>e</sub>"``.
-        unit: unit as plain text, e.g. ``"Å"``.
-        decimals: decimals shown for values and deviations.
-        headline: shown whenever a curve has it; other quantities only when a reference value
-            names them.
-    """
-
-    column: str
-    name: str
-    html: str
-    unit: str
-    decimals: int
-    headline: bool = True
-
-    @property
-    def title(self) -> str:
-        return f"{self.name} ({self.unit})"
-
-
-#: Every quantity the report knows, in the order the report shows them.
-QUANTITIES = (
-    Quantity("r_e_angstrom", "r_e", "r<sub>e</sub>", "Å", 4),
-    Quantity("angle_e_degree", "angle_e", "θ<sub>e</sub>", "degree", 2),
-    Quantity("dihedral_e_degree", "dihedral_e", "φ<sub>e</sub>", "degree", 2),
-    Quantity("q1_e_angstrom", "q1 at minimum", "q<sub>1</sub> at minimum", "Å", 4),
-    Quantity("q1_e_degree", "q1 at minimum", "q<sub>1</sub> at minimum", "degree", 2),
-    Quantity("q2_e_angstrom", "q2 at minimum", "q<sub>2</sub> at minimum", "Å", 4),
-    Quantity("q2_e_degree", "q2 at minimum", "q<sub>2</sub> at minimum", "degree", 2),
-    Quantity("omega_e_cm-1", "omega_e", "ω<sub>e</sub>", "cm⁻¹", 1),
-    Quantity(
-        "omega_1d_cm-1", "omega_1d (along the scan)", "ω<sub>1D</sub> (along the scan)", "cm⁻¹", 1
-    ),
-    Quantity("omega_e_x_e_cm-1", "omega_e x_e", "ω<sub>e</sub>x<sub>e</sub>", "cm⁻¹", 2),
-    Quantity("nu_01_cm-1", "nu_01", "ν<sub>01</sub>", "cm⁻¹", 1),
-    Quantity("k_aj_rad-2", "k (bend)", "k<sub>bend</sub>", "aJ/rad²", 4),
-    Quantity("d_e_ev", "D_e", "D<sub>e</sub>", "eV", 3),
-    Quantity("d_0_ev", "D_0", "D<sub>0</sub>", "eV", 3),
-    Quantity("barrier_kcal_mol", "barrier", "barrier", "kcal/mol", 2),
-    Quantity("zpe_cm-1", "ZPE", "ZPE", "cm⁻¹", 1, headline=False),
-    Quantity("b_e_cm-1", "B_e", "B<sub>e</sub>", "cm⁻¹", 3, headline=False),
-    Quantity(
-        "k_mdyn_angstrom-1", "k (stretch)", "k<sub>stretch</sub>", "mdyn/Å", 3, headline=False
-    ),
-    Quantity(
-        "k_hartree_bohr-2", "k (stretch)", "k<sub>stretch</sub>", "hartree/bohr²", 4, headline=False
-    ),
-    Quantity("morse_d_e_ev", "Morse D_e", "Morse D<sub>e</sub>", "eV", 3, headline=False),
-    Quantity("barrier_kj_mol", "barrier", "barrier", "kJ/mol", 2, headline=False),
-    Quantity("barrier_cm-1", "barrier", "barrier", "cm⁻¹", 1, headline=False),
-    Quantity("barrier_ev", "barrier", "barrier", "eV", 4, headline=False),
-)
+#: The quantities the report can show, in the order it shows them (from the registry).
+QUANTITIES = tuple(q for q in ALL_QUANTITIES if q.shown)
+#: The quantities the report can show, by column.
 QUANTITY = {q.column: q for q in QUANTITIES}
 
-#: The quantity that says where the minimum of a curve of each kind is (always listed, so
-#: that a curve with nothing computed yet still shows up in the tables as pending).
-_POSITION = {"distance": "r_e_angstrom", "angle": "angle_e_degree", "dihedral": "dihedral_e_degree"}
-_UNIT = {"distance": "angstrom", "angle": "degree", "dihedral": "degree"}
-UNIT_TEXT = {"angstrom": "Å", "degree": "degree"}
 
-# Which quantities a warning of the analysis concerns, by words it contains.  A warning that
-# matches none (noisy energies, minimum not bracketed, failed points) concerns the whole curve.
-_FLAG_TOPICS = (
-    ("vibrational level", ("nu_01_cm-1", "zpe_cm-1", "d_0_ev")),
-    ("omega_e x_e", ("omega_e_x_e_cm-1",)),
-    ("Morse fit", ("omega_e_x_e_cm-1", "morse_d_e_ev")),
-    ("1-D wavenumber", ("omega_1d_cm-1",)),
-    ("dissociation", ("d_e_ev", "d_0_ev")),
-    ("D_e", ("d_e_ev", "d_0_ev")),
-    ("fragment", ("d_e_ev", "d_0_ev")),
-    ("minimum-energy path", ("barrier_kcal_mol", "barrier_kj_mol", "barrier_cm-1", "barrier_ev")),
-    ("saddle", ("barrier_kcal_mol", "barrier_kj_mol", "barrier_cm-1", "barrier_ev")),
-)
-
-
-def split_flags(text) -> list[str]:
-    """Split the summary's ``flags`` text into single warnings (joined with
-    :data:`pesflow.analysis.derived.FLAG_SEPARATOR`).  NaN or empty text gives ``[]``.
-
-    >>> split_flags("a (x; y): z | b; extend the scan")
-    ['a (x; y): z', 'b; extend the scan']
-    """
-    from pesflow.analysis.derived import FLAG_SEPARATOR
-
-    if not isinstance(text, str) or not text.strip():
-        return []
-    return [piece.strip() for piece in text.split(FLAG_SEPARATOR.strip()) if piece.strip()]
-
-
-def flag_concerns(flag: str) -> frozenset[str] | None:
-    """The summary columns a warning concerns, or None when it concerns the whole curve.
-
-    >>> sorted(flag_concerns("omega_e x_e from the Morse fit (fewer than two trusted levels)"))
-    ['morse_d_e_ev', 'omega_e_x_e_cm-1']
-    >>> flag_concerns("noisy energies at 1.2 A") is None
-    True
-    """
-    hit = set()
-    for words, columns in _FLAG_TOPICS:
-        if words in flag:
-            hit.update(columns)
-    return frozenset(hit) if hit else None
+def split_flags(text) -> list[Flag]:
+    """The flags of a summary row's ``flag_records`` cell (see
+    :func:`pesflow.analysis.flags.flags_from_records`); NaN or empty text gives ``[]``."""
+    return flags_from_records(text)
 
 
 def cardinal_number(basis: str) -> int | None:
@@ -226,7 +130,7 @@ def _state(value, row) -> str:
     return "not determined"
 
 
-def _partial_flag(row) -> str | None:
+def _partial_flag(row) -> Flag | None:
     pending, failed = int(row.get("n_pending", 0)), int(row.get("n_failed", 0))
     if not pending and not failed:
         return None
@@ -236,12 +140,13 @@ def _partial_flag(row) -> str | None:
         parts.append(f"{pending} of {total} points pending")
     if failed:
         parts.append(f"{failed} of {total} points failed")
-    return "from an incomplete curve: " + ", ".join(parts)
+    return Flag("incomplete-curve", "from an incomplete curve: " + ", ".join(parts))
 
 
 def _applicable(summary, kinds, reference_specs) -> tuple[list[Quantity], dict]:
     """The quantities to show, and per (molecule, scan) the set of quantity columns that apply."""
     per_curve: dict[tuple[str, str], set[str]] = {}
+    position = {k.name: k.minimum_column for k in KINDS.values()}
     for (molecule, scan), sub in summary.groupby(["molecule", "scan"], sort=False):
         cols = set()
         for q in QUANTITIES:
@@ -253,9 +158,9 @@ def _applicable(summary, kinds, reference_specs) -> tuple[list[Quantity], dict]:
                 cols.add(q.column)
         k = kinds.get(scan, ())
         if len(k) == 1:
-            cols.add(_POSITION[k[0]])
+            cols.add(position[k[0]])
         elif len(k) == 2:
-            cols.update({f"q1_e_{_UNIT[k[0]]}", f"q2_e_{_UNIT[k[1]]}"})
+            cols.update({f"q1_e_{KINDS[k[0]].unit}", f"q2_e_{KINDS[k[1]].unit}"})
         per_curve[(molecule, scan)] = cols
     for ref in reference_specs:
         per_curve.setdefault((ref.molecule, ref.scan), set()).add(ref.quantity)
@@ -267,16 +172,14 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
     rows = []
     for _, row in summary.iterrows():
         molecule, scan = row["molecule"], row["scan"]
-        flags = split_flags(row.get("flags"))
+        flags = split_flags(row.get("flag_records"))
         partial = _partial_flag(row)
         for q in quantities:
             if q.column not in per_curve.get((molecule, scan), ()):
                 continue
             value = _num(row, q.column)
             dev = _num(row, f"dev_{q.column}")
-            concern = [
-                f for f in flags if (flag_concerns(f) is None or q.column in flag_concerns(f))
-            ]
+            concern = [f for f in flags if f.concerns is None or q.column in f.concerns]
             if partial and np.isfinite(value):
                 concern.append(partial)
             rows.append(
@@ -295,7 +198,7 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
                     "n_done": int(row.get("n_done", 0)),
                     "n_failed": int(row.get("n_failed", 0)),
                     "n_pending": int(row.get("n_pending", 0)),
-                    "flags": " | ".join(concern),
+                    "flags": tuple(concern),
                 }
             )
     columns = [
@@ -520,7 +423,7 @@ def collect(
     """Assemble :class:`ReportData` from the points table and the summary table.
 
     Args:
-        campaign: the :class:`~pesflow.campaign.spec.Campaign`.
+        campaign: the :class:`~pesflow.campaign.resolved.Campaign`.
         plan: its :class:`~pesflow.plan.expand.Plan` (checked to be of the same campaign).
         points: :func:`pesflow.tables.points.points_table` of the campaign (all columns).
         summary: :func:`pesflow.tables.summary.summary_table` of the campaign.
@@ -558,9 +461,16 @@ def collect(
     statistics = _statistics(values, reference_values, levels, reference_level)
     failed, pending = _point_lists(points)
     flag_rows = [
-        {"molecule": r["molecule"], "scan": r["scan"], "level": r["level"], "flag": f}
+        {
+            "molecule": r["molecule"],
+            "scan": r["scan"],
+            "level": r["level"],
+            "code": f.code,
+            "severity": f.severity,
+            "flag": f,
+        }
         for _, r in summary.iterrows()
-        for f in split_flags(r.get("flags"))
+        for f in split_flags(r.get("flag_records"))
     ]
     counts = points["status"].value_counts()
     if plan is not None and plan.campaign != campaign.name:
@@ -581,7 +491,9 @@ def collect(
         failed=failed,
         pending=pending,
         curves=summary,
-        curve_flags=pd.DataFrame(flag_rows, columns=["molecule", "scan", "level", "flag"]),
+        curve_flags=pd.DataFrame(
+            flag_rows, columns=["molecule", "scan", "level", "code", "severity", "flag"]
+        ),
         convergence=_convergence(values, campaign, basis_counts),
         totals={s: int(counts.get(s, 0)) for s in ("done", "failed", "pending")},
     )

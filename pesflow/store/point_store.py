@@ -43,27 +43,43 @@ Example::
 from __future__ import annotations
 
 import contextlib
-import fcntl
 import json
 import logging
-import math
-import numbers
 import os
-import re
 import socket
-import time
 import uuid
 from collections.abc import Iterable, Sequence
-from datetime import UTC, datetime
 from pathlib import Path
 
-import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
-import pyarrow.parquet as pq
 
 from pesflow.errors import StoreError
-from pesflow.formats.atomic import TMP_PREFIX, atomic_path, atomic_write, fsync_dir
+from pesflow.formats.atomic import atomic_write
+from pesflow.store.files import (
+    _BadFile,
+    _content_problem,
+    _dedupe_keep_last,
+    _empty_table,
+    _magic_problem,
+    _read_parquet,
+    _same_inode,
+    _utc_stamp,
+    _Vanished,
+    _write_parquet_atomic,
+)
+from pesflow.store.records import (
+    _FRAGMENT_SUFFIX,
+    _MAX_READ_PASSES,
+    _PART_PREFIX,
+    COLUMNS,
+    POINT_SCHEMA,
+    SCHEMA_VERSION,
+    STORE_FORMAT,
+    _check_key,
+    is_point_key,
+    make_record,
+)
 
 __all__ = [
     "POINT_SCHEMA",
@@ -76,291 +92,7 @@ __all__ = [
 
 log = logging.getLogger("pesflow.store")
 
-#: Version of :data:`POINT_SCHEMA`; a store written with another version is refused.
-SCHEMA_VERSION = 1
-#: The ``format`` value in ``STORE.json``.
-STORE_FORMAT = "pesflow-store"
-
-_VERSION_META = b"pesflow.schema_version"
-
-#: One row per computed point.  Every column is required except the three marked nullable.
-POINT_SCHEMA = pa.schema(
-    [
-        pa.field("key", pa.string(), nullable=False),
-        pa.field("method", pa.string(), nullable=False),
-        pa.field("basis", pa.string(), nullable=False),
-        pa.field("charge", pa.int32(), nullable=False),
-        pa.field("multiplicity", pa.int32(), nullable=False),
-        pa.field("symbols", pa.string(), nullable=False),
-        pa.field("positions_angstrom", pa.list_(pa.float64()), nullable=False),
-        pa.field("energy_hartree", pa.float64(), nullable=False),
-        pa.field("converged", pa.bool_(), nullable=False),
-        pa.field("scf_cycles", pa.int32(), nullable=False),
-        pa.field("wall_s", pa.float64(), nullable=False),
-        pa.field("step_wall_s", pa.float64(), nullable=False),
-        pa.field("s2", pa.float64(), nullable=False),
-        pa.field("reference", pa.string(), nullable=False),
-        pa.field("engine", pa.string(), nullable=False),
-        pa.field("engine_version", pa.string(), nullable=False),
-        pa.field("settings_json", pa.string(), nullable=False),
-        pa.field("attempts_json", pa.string(), nullable=True),
-        pa.field("extra_json", pa.string(), nullable=True),
-        pa.field("error", pa.string(), nullable=True),
-        pa.field("created_unix", pa.float64(), nullable=False),
-    ],
-    metadata={_VERSION_META: str(SCHEMA_VERSION).encode()},
-)
-
-COLUMNS = tuple(POINT_SCHEMA.names)
-
-_KEY_RE = re.compile(r"[0-9a-f]{32}")
-_PARQUET_MAGIC = b"PAR1"
-_MIN_PARQUET_BYTES = 12  # head magic + 4-byte footer length + tail magic
-_FRAGMENT_SUFFIX = ".parquet"
-_PART_PREFIX = "part-"
-_INT32_MIN, _INT32_MAX = -(2**31), 2**31 - 1
-_STR_FIELDS = ("method", "basis", "symbols", "reference", "engine", "engine_version")
-_INT_FIELDS = ("charge", "multiplicity", "scf_cycles")
-_FLOAT_FIELDS = ("energy_hartree", "wall_s", "step_wall_s", "s2", "created_unix")
-_JSON_FIELDS = ("settings_json", "attempts_json", "extra_json")
-_NULLABLE = ("attempts_json", "extra_json", "error")
-# Vanished-file retries in a read; each retry only happens when a concurrent compaction
-# deleted a file between our listing and our read, so a handful is plenty.
-_MAX_READ_PASSES = 20
-
-
-def is_point_key(key) -> bool:
-    """True when ``key`` is a point key: a string of exactly 32 lowercase hex digits."""
-    return isinstance(key, str) and _KEY_RE.fullmatch(key) is not None
-
-
-def _check_key(key) -> str:
-    if not is_point_key(key):
-        raise ValueError(f"point key must be 32 lowercase hex digits [0-9a-f]{{32}}, got {key!r}")
-    return key
-
-
-def _json_field(name, value, nullable):
-    if value is None:
-        if nullable:
-            return None
-        raise ValueError(f"record field {name!r} must not be None")
-    if isinstance(value, dict | list):
-        # Sorted keys: the same settings always serialise to the same text.
-        return json.dumps(value, sort_keys=True, separators=(",", ":"))
-    if not isinstance(value, str):
-        raise TypeError(f"record field {name!r} must be JSON text, a dict or a list, got {value!r}")
-    try:
-        json.loads(value)
-    except json.JSONDecodeError as exc:
-        raise ValueError(f"record field {name!r} is not valid JSON: {exc}") from None
-    return value
-
-
-def make_record(**fields) -> dict:
-    """Validate the fields of one point record and return it as a dict in schema order.
-
-    Inputs (all keyword; see :data:`POINT_SCHEMA`):
-        key: 32 lowercase hex digits (the point's content hash, computed elsewhere).
-        method, basis, reference, engine, engine_version: non-empty text.
-        charge, multiplicity, scf_cycles: integers (multiplicity >= 1, scf_cycles >= 0).
-        symbols: element symbols separated by single spaces, e.g. ``"O H H"``.
-        positions_angstrom: n_atoms*3 (or n_atoms x 3) Cartesian coordinates in Å, finite.
-        energy_hartree: total energy in hartree; NaN for a failed point.
-        converged: bool.
-        wall_s, step_wall_s: wall time in seconds (>= 0 or NaN).
-        s2: <S^2> of the reference (NaN when not defined).
-        settings_json: engine settings as JSON text (a dict is serialised with sorted keys).
-        attempts_json, extra_json: JSON text or None (default None).
-        error: error text for a failed point, or None (default None).
-        created_unix: seconds since the epoch (default: now).
-
-    Returns a new dict with every column of :data:`POINT_SCHEMA`, values as plain Python
-    types.  Raises ``TypeError``/``ValueError`` naming the offending field.
-    """
-    unknown = set(fields) - set(COLUMNS)
-    if unknown:
-        raise ValueError(f"unknown record field(s): {', '.join(sorted(unknown))}")
-    fields = dict(fields)
-    for name in _NULLABLE:
-        fields.setdefault(name, None)
-    fields.setdefault("created_unix", time.time())
-    missing = [name for name in COLUMNS if name not in fields]
-    if missing:
-        raise ValueError(f"record is missing field(s): {', '.join(missing)}")
-
-    out = {"key": _check_key(fields["key"])}
-    for name in _STR_FIELDS:
-        value = fields[name]
-        if not isinstance(value, str) or not value.strip():
-            raise TypeError(f"record field {name!r} must be non-empty text, got {value!r}")
-        out[name] = value
-    for name in _INT_FIELDS:
-        value = fields[name]
-        if isinstance(value, bool | np.bool_) or not isinstance(value, numbers.Integral):
-            raise TypeError(f"record field {name!r} must be an integer, got {value!r}")
-        value = int(value)
-        if not _INT32_MIN <= value <= _INT32_MAX:
-            raise ValueError(f"record field {name!r} does not fit in int32: {value}")
-        out[name] = value
-    if out["multiplicity"] < 1:
-        raise ValueError(f"multiplicity must be >= 1, got {out['multiplicity']}")
-    if out["scf_cycles"] < 0:
-        raise ValueError(f"scf_cycles must be >= 0, got {out['scf_cycles']}")
-    for name in _FLOAT_FIELDS:
-        value = fields[name]
-        if isinstance(value, bool | np.bool_) or not isinstance(value, numbers.Real):
-            raise TypeError(f"record field {name!r} must be a real number, got {value!r}")
-        out[name] = float(value)
-    for name in ("wall_s", "step_wall_s"):
-        if out[name] < 0:
-            raise ValueError(f"record field {name!r} must be >= 0 seconds, got {out[name]}")
-    if not math.isfinite(out["created_unix"]):
-        raise ValueError("record field 'created_unix' must be finite")
-    converged = fields["converged"]
-    if not isinstance(converged, bool | np.bool_):
-        raise TypeError(f"record field 'converged' must be a bool, got {converged!r}")
-    out["converged"] = bool(converged)
-
-    symbols = out["symbols"].split(" ")
-    if symbols != out["symbols"].split():
-        raise ValueError(f"symbols must be separated by single spaces, got {out['symbols']!r}")
-    try:
-        positions = np.asarray(fields["positions_angstrom"], dtype=np.float64).ravel()
-    except (TypeError, ValueError) as exc:
-        raise TypeError(f"record field 'positions_angstrom' must be numbers: {exc}") from None
-    if positions.size != 3 * len(symbols):
-        raise ValueError(
-            f"positions_angstrom has {positions.size} values; "
-            f"{len(symbols)} atoms need {3 * len(symbols)}"
-        )
-    if not np.all(np.isfinite(positions)):
-        raise ValueError("positions_angstrom must be finite")
-    out["positions_angstrom"] = positions.tolist()
-
-    for name in _JSON_FIELDS:
-        out[name] = _json_field(name, fields[name], nullable=name in _NULLABLE)
-    error = fields["error"]
-    if error is not None and not isinstance(error, str):
-        raise TypeError(f"record field 'error' must be text or None, got {error!r}")
-    out["error"] = error
-    return {name: out[name] for name in COLUMNS}
-
-
-# ---------------------------------------------------------------- low-level file helpers
-
-
-def _utc_stamp() -> str:
-    return datetime.now(UTC).strftime("%Y%m%dT%H%M%S%fZ")
-
-
-def _write_parquet_atomic(table: pa.Table, path: Path, *, fsync: bool) -> None:
-    """Write ``table`` to ``path`` through a dot-named temp file in the same folder."""
-    with atomic_path(path, fsync=fsync) as tmp:
-        pq.write_table(table, tmp, compression="zstd")
-
-
-def _magic_problem(name, dir_fd: int | None = None) -> tuple[str | None, int | None]:
-    """Cheap truncation check: size and the 4-byte Parquet magic at both ends.
-
-    ``name`` is a path, or a file name in the folder open as ``dir_fd``.  Returns
-    ``(problem, inode)``: ``problem`` is None when the file looks whole, else a reason;
-    ``inode`` is that of the file checked, or None when it vanished.
-    """
-    try:
-        fd = os.open(name, os.O_RDONLY, dir_fd=dir_fd)
-    except FileNotFoundError:
-        return None, None
-    try:
-        st = os.fstat(fd)
-        if st.st_size < _MIN_PARQUET_BYTES:
-            return f"truncated: {st.st_size} bytes, a Parquet file has at least 12", st.st_ino
-        head = os.pread(fd, 4, 0)
-        tail = os.pread(fd, 4, st.st_size - 4)
-    finally:
-        os.close(fd)
-    if head != _PARQUET_MAGIC or tail != _PARQUET_MAGIC:
-        return f"truncated or not Parquet: ends {head!r}...{tail!r}, not b'PAR1'", st.st_ino
-    return None, st.st_ino
-
-
-def _schema_problem(schema: pa.Schema) -> str | None:
-    """Why a file's schema is not :data:`POINT_SCHEMA`, or None when it is."""
-    version = (schema.metadata or {}).get(_VERSION_META)
-    if version is not None and version != str(SCHEMA_VERSION).encode():
-        return f"wrong schema: file has schema_version {version.decode(errors='replace')}"
-    # Schema.equals ignores the name of a list's child field (Parquet renames it).
-    if not schema.equals(POINT_SCHEMA, check_metadata=False):
-        got = ", ".join(f"{f.name}: {f.type}" for f in schema)
-        return f"wrong schema: columns are ({got})"
-    return None
-
-
-class _Vanished(Exception):
-    """A file disappeared between listing and reading: not corruption."""
-
-
-class _BadFile(Exception):
-    """A store file that must be quarantined; ``reason`` says why, ``inode`` which file."""
-
-    def __init__(self, reason: str, inode: int | None = None):
-        super().__init__(reason)
-        self.reason = reason
-        self.inode = inode
-
-
-def _read_parquet(path: Path, columns: Sequence[str] | None) -> tuple[pa.Table, int]:
-    """Read ``columns`` of one store file after checking its schema.
-
-    Returns ``(table, inode)``.  Raises :class:`_Vanished` when the file is gone and
-    :class:`_BadFile` (with the inode that was read) when it is unreadable.
-    """
-    try:
-        fh = open(path, "rb")  # the open file pins the inode we read, see _quarantine_if_same
-    except FileNotFoundError:
-        raise _Vanished(path) from None
-    with fh:
-        inode = os.fstat(fh.fileno()).st_ino
-        try:
-            with pq.ParquetFile(fh) as pf:
-                problem = _schema_problem(pf.schema_arrow)
-                if problem:
-                    raise _BadFile(problem, inode)
-                table = pf.read(columns=list(columns) if columns else None, use_threads=False)
-        except (_BadFile, MemoryError):
-            raise
-        except Exception as exc:
-            raise _BadFile(f"unreadable: {type(exc).__name__}: {exc}", inode) from exc
-    return table.replace_schema_metadata(None), inode
-
-
-def _same_inode(path: Path, inode: int) -> bool:
-    try:
-        return os.stat(path).st_ino == inode
-    except FileNotFoundError:
-        return False
-
-
-def _dedupe_keep_last(table: pa.Table) -> pa.Table:
-    """One row per key (the last one in table order), sorted by key."""
-    if table.num_rows == 0:
-        return table
-    order = pa.array(np.arange(table.num_rows, dtype=np.int64))
-    last = (
-        pa.table({"key": table.column("key"), "_row": order})
-        .group_by("key", use_threads=False)
-        .aggregate([("_row", "max")])
-    )
-    keep = last.sort_by("key").column("_row_max")
-    return table.take(keep)
-
-
-def _empty_table(columns: Sequence[str]) -> pa.Table:
-    schema = pa.schema([POINT_SCHEMA.field(c) for c in columns])
-    return schema.empty_table()
-
-
-# ---------------------------------------------------------------- the store
+_VANISHED = object()
 
 
 class PointStore:
@@ -797,164 +529,12 @@ class PointStore:
 
     # ------------------------------------------------------------ maintenance
 
-    @contextlib.contextmanager
-    def _compaction_lock(self):
-        """Yield True while holding ``locks/compact.lock``, False when another holder has it."""
-        fd = os.open(self.locks_dir / "compact.lock", os.O_RDWR | os.O_CREAT, 0o644)
-        try:
-            try:
-                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-            except BlockingIOError:
-                yield False
-                return
-            try:
-                yield True
-            finally:
-                fcntl.flock(fd, fcntl.LOCK_UN)
-        finally:
-            os.close(fd)
+    def compact(self, min_fragments: int = 1, **options) -> dict:
+        """Merge the fragments into a new part file; see :func:`pesflow.store.compaction.compact`
+        for the options and the returned stats."""
+        from pesflow.store.compaction import compact
 
-    def _new_part_path(self, stamp: str | None = None) -> Path:
-        return self.parts_dir / f"{_PART_PREFIX}{stamp or _utc_stamp()}-{uuid.uuid4().hex}.parquet"
-
-    def _write_part(self, table: pa.Table, path: Path) -> None:
-        # cast() also restores the schema metadata (schema_version) dropped on reading.
-        _write_parquet_atomic(table.sort_by("key").cast(POINT_SCHEMA), path, fsync=self.fsync)
-
-    def compact(
-        self,
-        min_fragments: int = 1,
-        *,
-        merge_parts: bool = True,
-        small_part_bytes: int = 32 * 2**20,
-        min_small_parts: int = 4,
-        stale_tmp_s: float = 3600.0,
-    ) -> dict:
-        """Merge the current fragments into one new part file, then delete them.
-
-        Inputs:
-            min_fragments: do nothing unless at least this many fragments exist (default 1).
-            merge_parts: also merge runs of small consecutive parts into one (default True).
-            small_part_bytes: a part smaller than this is "small" (default 32 MiB).
-            min_small_parts: merge a run only when it has at least this many parts (default 4).
-            stale_tmp_s: remove dot-named temp files older than this many seconds, left by
-                killed writers (default 3600 s; a live write takes milliseconds).
-
-        Runs under ``locks/compact.lock``; when another process holds it, returns at once with
-        ``stats["skipped"]`` saying so.  The new part is durable before any fragment is
-        deleted, and a fragment rewritten meanwhile is kept.  Returns stats: ``skipped``
-        (None or reason), ``fragments_compacted``, ``part`` (path or None),
-        ``parts_merged``, ``merged_part``, ``temp_files_removed``, ``quarantined``.
-        """
-        self.last_quarantined = []
-        stats = {
-            "skipped": None,
-            "fragments_compacted": 0,
-            "part": None,
-            "parts_merged": 0,
-            "merged_part": None,
-            "temp_files_removed": 0,
-            "quarantined": [],
-        }
-        if not self._check_root():
-            stats["skipped"] = "no store yet"
-            return stats
-        self._ensure_root()
-        with self._compaction_lock() as locked:
-            if not locked:
-                stats["skipped"] = "another process holds the compaction lock"
-                return stats
-            stats["temp_files_removed"] = self._remove_stale_temp(stale_tmp_s)
-            names = self._fragment_names()
-            if len(names) >= max(min_fragments, 1):
-                self._compact_fragments(names, stats)
-            if merge_parts:
-                self._merge_small_parts(small_part_bytes, max(min_small_parts, 2), stats)
-        stats["quarantined"] = list(self.last_quarantined)
-        return stats
-
-    def _compact_fragments(self, names: list[str], stats: dict) -> None:
-        tables, read = [], []
-        for name in names:
-            path = self.fragments_dir / name
-            if not is_point_key(name[: -len(_FRAGMENT_SUFFIX)]):
-                self.quarantine(path, "fragment file name is not a point key")
-                continue
-            table, inode = self._read_or_quarantine(path, COLUMNS)
-            if isinstance(table, pa.Table):
-                tables.append(table)
-                read.append((path, inode))
-        if not tables:
-            return
-        part = self._new_part_path()
-        self._write_part(pa.concat_tables(tables), part)
-        stats["part"] = part
-        # Only now that the part is durable may the fragments go.
-        removed = 0
-        for path, inode in read:
-            if _same_inode(path, inode):  # a rewrite since we read it stays for next time
-                with contextlib.suppress(FileNotFoundError):
-                    os.unlink(path)
-                    removed += 1
-        if self.fsync:
-            fsync_dir(self.fragments_dir)
-        stats["fragments_compacted"] = removed
-
-    def _merge_small_parts(self, small_part_bytes: int, min_small_parts: int, stats: dict):
-        names = self._part_names()
-        sizes = {}
-        for name in names:
-            with contextlib.suppress(FileNotFoundError):
-                sizes[name] = os.stat(self.parts_dir / name).st_size
-        # Runs of consecutive small parts; a merged part takes the time stamp of the newest
-        # part it replaces, so "newer part wins" still orders it against its neighbours.
-        runs, run = [], []
-        for name in names:
-            if sizes.get(name, small_part_bytes) < small_part_bytes:
-                run.append(name)
-            else:
-                runs.append(run)
-                run = []
-        runs.append(run)
-        for run in runs:
-            if len(run) < min_small_parts:
-                continue
-            tables, inputs = [], []
-            for name in run:
-                path = self.parts_dir / name
-                table, _ = self._read_or_quarantine(path, COLUMNS)
-                if isinstance(table, pa.Table):
-                    tables.append(table)
-                    inputs.append(path)
-            if len(inputs) < 2:
-                continue
-            stamp = run[-1][len(_PART_PREFIX) :].split("-")[0]
-            merged = self._new_part_path(stamp)
-            self._write_part(_dedupe_keep_last(pa.concat_tables(tables)), merged)
-            for path in inputs:
-                with contextlib.suppress(FileNotFoundError):
-                    os.unlink(path)
-            if self.fsync:
-                fsync_dir(self.parts_dir)
-            stats["parts_merged"] += len(inputs)
-            stats["merged_part"] = merged
-
-    def _remove_stale_temp(self, stale_tmp_s: float) -> int:
-        removed = 0
-        now = time.time()
-        for folder in (self.fragments_dir, self.parts_dir, self.quarantine_dir, self.root):
-            try:
-                entries = list(os.scandir(folder))
-            except FileNotFoundError:
-                continue
-            for entry in entries:
-                if not entry.name.startswith(TMP_PREFIX):
-                    continue
-                with contextlib.suppress(FileNotFoundError):
-                    if now - entry.stat().st_mtime > stale_tmp_s:
-                        os.unlink(entry.path)
-                        removed += 1
-        return removed
+        return compact(self, min_fragments, **options)
 
     def verify(self, *, quarantine: bool = False) -> list[tuple[Path, str]]:
         """Read every file completely and return ``(path, reason)`` for each bad one.
@@ -986,19 +566,3 @@ class PointStore:
             for path, reason in bad:
                 self.quarantine(path, reason)
         return bad
-
-
-_VANISHED = object()
-
-
-def _content_problem(table: pa.Table) -> str | None:
-    keys = table.column("key")
-    if keys.null_count or not pc.all(pc.match_substring_regex(keys, r"^[0-9a-f]{32}$")).as_py():
-        return "holds a malformed point key"
-    if pc.count_distinct(keys).as_py() != table.num_rows:
-        return "holds a point key more than once"
-    n_atoms = pc.add(pc.count_substring(table.column("symbols"), " "), 1)
-    n_coords = pc.list_value_length(table.column("positions_angstrom"))
-    if not pc.all(pc.equal(pc.multiply(n_atoms, 3), n_coords)).as_py():
-        return "holds a point whose positions do not have 3 coordinates per atom"
-    return None

@@ -16,34 +16,9 @@ import numpy as np
 import pandas as pd
 
 from pesflow.analysis.derived import summarize_curve, summarize_surface
-from pesflow.coordinates.kinds import column_names
+from pesflow.analysis.quantities import COMPARED
+from pesflow.coordinates.kinds import KINDS, column_names
 
-#: Quantities that get a deviation column against the reference level.
-DEVIATION_COLUMNS = (
-    "r_e_angstrom",
-    "angle_e_degree",
-    "dihedral_e_degree",
-    "k_hartree_bohr-2",
-    "k_mdyn_angstrom-1",
-    "k_aj_rad-2",
-    "omega_e_cm-1",
-    "omega_1d_cm-1",
-    "omega_e_x_e_cm-1",
-    "nu_01_cm-1",
-    "zpe_cm-1",
-    "d_e_ev",
-    "d_0_ev",
-    "morse_d_e_ev",
-    "b_e_cm-1",
-    "barrier_kcal_mol",
-    "barrier_kj_mol",
-    "barrier_cm-1",
-    "barrier_ev",
-    "q1_e_angstrom",
-    "q1_e_degree",
-    "q2_e_angstrom",
-    "q2_e_degree",
-)
 _RESTRICTED = {"RHF", "RKS"}
 
 
@@ -78,7 +53,7 @@ def _curve_row(campaign, gs, sub, table):
     energies = np.where(sub["status"] == "done", sub["energy_hartree"], np.nan).astype(float)
     refs = set(sub.loc[sub["status"] == "done", "reference"].dropna())
     options = {}
-    if kind == "distance":
+    if KINDS[kind].motion == "stretch":
         mu, diatomic = _stretch_mass(campaign, gs.molecule, gs.scan)
         mol = campaign.molecules[gs.molecule]
         options = dict(
@@ -147,7 +122,7 @@ def add_deviations(summary: pd.DataFrame, reference_level: str | None) -> pd.Dat
     if not reference_level:
         return summary
     reference_level = reference_level.strip().lower()
-    cols = [c for c in DEVIATION_COLUMNS if c in summary.columns]
+    cols = [c for c in COMPARED if c in summary.columns]
     ref = summary.loc[summary["level"] == reference_level, ["molecule", "scan", *cols]]
     joined = summary[["molecule", "scan"]].merge(
         ref.rename(columns={c: f"{c}__ref" for c in cols}), on=["molecule", "scan"], how="left"

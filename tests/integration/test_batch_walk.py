@@ -84,9 +84,9 @@ def test_backward_walk_replaces_a_higher_solution_with_the_lower_one(tmp_path):
     distances = np.linspace(0.8, 1.2, 9)
     path, task = _task(tmp_path, distances)
     walk = batch._Walk(task, threads=1)
-    computed, guess = [], None
+    computed = []
     for i, point in enumerate(task["points"]):
-        results, guess = walk.compute(point, ["hf"], guess)
+        results = walk.compute(point, ["hf"])
         if i == 4:
             results["hf"].energy_hartree += 0.05  # the injected higher solution
         walk.write(point, results["hf"])

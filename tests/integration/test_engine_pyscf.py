@@ -13,7 +13,8 @@ import numpy as np
 import pytest
 from pyscf import cc, dft, gto, mp, scf
 
-import pesflow.engine.pyscf as engine_module
+import pesflow.engine.pyscf.correlated as correlated_module
+import pesflow.engine.relax as relax_module
 from pesflow.engine import EngineSettings, Geometry, get_engine
 from pesflow.errors import EngineSetupError
 from pesflow.units import BOHR_ANGSTROM
@@ -25,12 +26,29 @@ pytestmark = pytest.mark.integration
 WATER_SYMBOLS = ("O", "H", "H")
 WATER_ANGSTROM = [[0.0, 0.0, 0.0], [0.0, -0.757, 0.587], [0.0, 0.757, 0.587]]
 #: Tight SCF so that correlated energies can be compared with references to 1e-8.
-TIGHT = EngineSettings(conv_tol=1e-12)
+TIGHT = EngineSettings(scf_energy_tolerance_hartree=1e-12)
 
 
 @pytest.fixture(scope="module")
 def engine():
     return get_engine("pyscf")
+
+
+def compute(engine, geometry, basis, methods, settings, guess=None):
+    """One point through an engine walk started from ``guess``: the records and the
+    density the walk keeps for its next point."""
+    walk = engine.start_walk(settings, basis, methods)
+    walk.restart(guess)
+    records = walk.compute(geometry)
+    return records, walk.state
+
+
+def relax(engine, start, basis, method, settings, constraints):
+    """One relaxed point through an engine walk: the relaxed geometry, the record, the
+    optimisation info and the density the walk keeps."""
+    walk = engine.start_walk(settings, basis, [method])
+    record = walk.relax(start, constraints)
+    return record.geometry, record, record.extra["relaxation"], walk.state
 
 
 def water(charge=0, multiplicity=1):
@@ -55,7 +73,7 @@ def plain_mole(geometry, basis):
 
 
 def test_water_rhf_631g_matches_pyscf_test_suite(engine):
-    records, _ = engine.compute(water(), "6-31g", ["hf"], TIGHT)
+    records, _ = compute(engine, water(), "6-31g", ["hf"], TIGHT)
     hf = records["hf"]
     # pyscf/pyscf, pyscf/scf/test/test_h2o.py (test_nr_rhf): RHF/6-31G = -75.98394849812
     assert hf.energy_hartree == pytest.approx(-75.98394849812, abs=1e-8)
@@ -64,7 +82,7 @@ def test_water_rhf_631g_matches_pyscf_test_suite(engine):
 
 
 def test_water_ccsd_t_ccpvdz_matches_pyscf_test_suite(engine):
-    records, _ = engine.compute(water(), "cc-pvdz", ["hf", "mp2", "ccsd(t)"], TIGHT)
+    records, _ = compute(engine, water(), "cc-pvdz", ["hf", "mp2", "ccsd(t)"], TIGHT)
     e_hf = records["hf"].energy_hartree
     # pyscf/pyscf, pyscf/scf/test/test_uhf.py (test_scf): HF/cc-pVDZ = -76.026765673119627
     assert e_hf == pytest.approx(-76.026765673119627, abs=1e-8)
@@ -79,8 +97,8 @@ def test_water_ccsd_t_ccpvdz_matches_pyscf_test_suite(engine):
 
 
 def test_water_frozen_core_matches_pyscf_test_suite(engine):
-    settings = EngineSettings(conv_tol=1e-12, frozen_core=True)
-    records, _ = engine.compute(water(), "cc-pvdz", ["hf", "mp2", "ccsd"], settings)
+    settings = EngineSettings(scf_energy_tolerance_hartree=1e-12, frozen_core=True)
+    records, _ = compute(engine, water(), "cc-pvdz", ["hf", "mp2", "ccsd"], settings)
     e_hf = records["hf"].energy_hartree
     # Frozen core of water = the O 1s orbital (PySCF's chemcore gives 1).
     # pyscf/pyscf, pyscf/mp/test/test_mp2.py (test_mp2_frozen, frozen=[0]): -0.20168270592254167
@@ -90,8 +108,8 @@ def test_water_frozen_core_matches_pyscf_test_suite(engine):
 
 
 def test_water_cation_rohf_when_asked(engine):
-    settings = EngineSettings(conv_tol=1e-12, reference="restricted-open")
-    records, _ = engine.compute(water(charge=1, multiplicity=2), "6-31g", ["hf"], settings)
+    settings = EngineSettings(scf_energy_tolerance_hartree=1e-12, reference="restricted-open")
+    records, _ = compute(engine, water(charge=1, multiplicity=2), "6-31g", ["hf"], settings)
     hf = records["hf"]
     # pyscf/pyscf, pyscf/scf/test/test_h2o.py (test_nr_rohf):
     # ROHF/6-31G of H2O+ (charge 1, spin 1) = -75.578396379589748
@@ -103,14 +121,16 @@ def test_water_cation_rohf_when_asked(engine):
 
 def test_triplet_water_unrestricted_mp2_and_triples_match_pyscf_test_suite(engine):
     triplet = water(multiplicity=3)
-    records, _ = engine.compute(triplet, "cc-pvdz", ["hf", "mp2"], TIGHT)
+    records, _ = compute(engine, triplet, "cc-pvdz", ["hf", "mp2"], TIGHT)
     assert records["hf"].reference == "UHF"
     # pyscf/pyscf, pyscf/mp/test/test_ump2.py (test_ump2):
     # E_corr(UMP2/cc-pVDZ), spin=2 = -0.16575150552336643
     e_corr = records["mp2"].energy_hartree - records["hf"].energy_hartree
     assert e_corr == pytest.approx(-0.16575150552336643, abs=1e-8)
 
-    records, _ = engine.compute(triplet, "3-21g", ["ccsd(t)"], EngineSettings(conv_tol=1e-14))
+    records, _ = compute(
+        engine, triplet, "3-21g", ["ccsd(t)"], EngineSettings(scf_energy_tolerance_hartree=1e-14)
+    )
     e_triples = records["ccsd(t)"].energy_hartree - records["ccsd"].energy_hartree
     # pyscf/pyscf, pyscf/cc/test/test_uccsd_t.py (test_uccsd_t):
     # UCCSD (T) correction/3-21G, spin=2 = -0.0009857042572475674
@@ -121,14 +141,14 @@ def test_triplet_water_unrestricted_mp2_and_triples_match_pyscf_test_suite(engin
 
 def test_hydrogen_atom_sto3g_and_near_the_exact_limit(engine):
     h = Geometry(("H",), [[0.0, 0.0, 0.0]], multiplicity=2)
-    records, _ = engine.compute(h, "sto-3g", ["hf"], TIGHT)
+    records, _ = compute(engine, h, "sto-3g", ["hf"], TIGHT)
     # pyscf/pyscf, pyscf/scf/test/test_uhf.py (test_1e): UHF of H in STO-3G = -0.46658184955727555
     assert records["hf"].energy_hartree == pytest.approx(-0.46658184955727555, abs=1e-8)
     assert records["hf"].reference == "UHF"
     # One electron: UHF is exact within the basis and <S^2> = 3/4 exactly.
     assert records["hf"].s2 == pytest.approx(0.75, abs=1e-12)
 
-    records, _ = engine.compute(h, "cc-pv5z", ["hf"], TIGHT)
+    records, _ = compute(engine, h, "cc-pv5z", ["hf"], TIGHT)
     # Exact non-relativistic H atom: E = -1/2 hartree (Schroedinger's analytic solution).
     # The variational principle puts a finite basis above it; cc-pV5Z's s,p,d,f,g set
     # misses the cusp by a few microhartree, hence the one-sided 1e-5 window.
@@ -137,7 +157,7 @@ def test_hydrogen_atom_sto3g_and_near_the_exact_limit(engine):
 
 def test_h2_cation_near_the_exact_energy(engine):
     h2_plus = Geometry(("H", "H"), [[0, 0, 0], [0, 0, 2.0 * BOHR_ANGSTROM]], 1, 2)
-    records, _ = engine.compute(h2_plus, "cc-pvqz", ["hf"], TIGHT)
+    records, _ = compute(engine, h2_plus, "cc-pvqz", ["hf"], TIGHT)
     # Exact Born-Oppenheimer energy of H2+ at R = 2.0 bohr, including 1/R nuclear
     # repulsion: -0.6026342144949 hartree (Bates, Ledsham & Stewart 1953; value from
     # memory).  One electron, so UHF is exact in its basis; cc-pVQZ stays ~0.1 mEh above.
@@ -149,12 +169,12 @@ def test_h2_cation_near_the_exact_energy(engine):
 
 def test_auto_reference_rhf_for_water_uhf_for_hydroxyl(engine):
     settings = EngineSettings()
-    records, density = engine.compute(water(), "6-31g", ["hf"], settings)
+    records, density = compute(engine, water(), "6-31g", ["hf"], settings)
     assert records["hf"].reference == "RHF" and math.isnan(records["hf"].s2)
     assert density.shape == (13, 13)
 
     oh = Geometry(("O", "H"), [[0, 0, 0], [0, 0, 0.97]], multiplicity=2)
-    records, density = engine.compute(oh, "6-31g", ["hf"], settings)
+    records, density = compute(engine, oh, "6-31g", ["hf"], settings)
     hf = records["hf"]
     assert hf.reference == "UHF" and density.shape == (2, 11, 11)
     # Doublet: S(S+1) = 0.75; UHF's spin contamination for OH is a few thousandths.
@@ -170,7 +190,7 @@ def test_auto_reference_rhf_for_water_uhf_for_hydroxyl(engine):
 def test_shared_scf_equals_plain_pyscf_step_by_step(engine):
     geometry = Geometry(("F", "H"), [[0, 0, 0], [0, 0, 0.92]])
     settings = EngineSettings()
-    records, _ = engine.compute(geometry, "cc-pvdz", ["hf", "mp2", "ccsd(t)"], settings)
+    records, _ = compute(engine, geometry, "cc-pvdz", ["hf", "mp2", "ccsd(t)"], settings)
     assert list(records) == ["hf", "mp2", "ccsd", "ccsd(t)"]
 
     mf = scf.RHF(plain_mole(geometry, "cc-pvdz")).run(conv_tol=1e-10)
@@ -192,9 +212,9 @@ def test_shared_scf_equals_plain_pyscf_step_by_step(engine):
 
 def test_ccsd_failure_is_recorded_on_its_records_only(engine, monkeypatch):
     # Two CCSD iterations cannot reach 1e-10: the failure belongs to ccsd and ccsd(t).
-    monkeypatch.setattr(engine_module, "CCSD_MAX_CYCLE", 2)
+    monkeypatch.setattr(correlated_module, "CCSD_MAX_CYCLE", 2)
     geometry = Geometry(("F", "H"), [[0, 0, 0], [0, 0, 0.92]])
-    records, density = engine.compute(geometry, "6-31g", ["hf", "mp2", "ccsd(t)"], TIGHT)
+    records, density = compute(engine, geometry, "6-31g", ["hf", "mp2", "ccsd(t)"], TIGHT)
     assert records["hf"].converged and records["mp2"].converged
     for name in ("ccsd", "ccsd(t)"):
         assert not records[name].converged and math.isnan(records[name].energy_hartree)
@@ -210,8 +230,8 @@ STRETCHED_WATER_ANGSTROM = [[0, 0, 0], [0, -1.6, 1.2], [0, 1.6, 1.2]]
 
 def test_scf_failure_is_recorded_not_raised(engine):
     geometry = Geometry(WATER_SYMBOLS, STRETCHED_WATER_ANGSTROM)
-    settings = EngineSettings(max_cycle=3, scf_ladder=("default",))
-    records, density = engine.compute(geometry, "6-31g", ["hf", "mp2"], settings)
+    settings = EngineSettings(scf_max_iterations=3, scf_ladder=("default",))
+    records, density = compute(engine, geometry, "6-31g", ["hf", "mp2"], settings)
     assert density is None
     for record in records.values():
         assert not record.converged and math.isnan(record.energy_hartree)
@@ -224,8 +244,8 @@ def test_later_rung_converges_and_attempts_are_in_order(engine):
     geometry = Geometry(WATER_SYMBOLS, STRETCHED_WATER_ANGSTROM)
     # Three iterations per rung: DIIS, damping and level shifting all run out; the
     # second-order (Newton) solver converges quadratically within its three.
-    settings = EngineSettings(max_cycle=3)
-    records, density = engine.compute(geometry, "6-31g", ["hf"], settings)
+    settings = EngineSettings(scf_max_iterations=3)
+    records, density = compute(engine, geometry, "6-31g", ["hf"], settings)
     hf = records["hf"]
     rungs = [a["rung"] for a in hf.attempts]
     assert rungs == ["default", "damped", "level-shift", "second-order"]
@@ -244,9 +264,9 @@ def test_neighbour_density_saves_cycles_and_gives_the_same_energy(engine):
     settings = EngineSettings()
     first = Geometry(WATER_SYMBOLS, [[0, 0, 0], [0, -0.757, 0.587], [0, 0.757, 0.587]])
     second = Geometry(WATER_SYMBOLS, [[0, 0, 0], [0, -0.767, 0.597], [0, 0.767, 0.597]])
-    _, density = engine.compute(first, "cc-pvdz", ["hf"], settings)
-    from_scratch, _ = engine.compute(second, "cc-pvdz", ["hf"], settings)
-    from_neighbour, _ = engine.compute(second, "cc-pvdz", ["hf"], settings, guess=density)
+    _, density = compute(engine, first, "cc-pvdz", ["hf"], settings)
+    from_scratch, _ = compute(engine, second, "cc-pvdz", ["hf"], settings)
+    from_neighbour, _ = compute(engine, second, "cc-pvdz", ["hf"], settings, guess=density)
     scratch, neighbour = from_scratch["hf"], from_neighbour["hf"]
     assert neighbour.scf_cycles < scratch.scf_cycles
     assert neighbour.energy_hartree == pytest.approx(scratch.energy_hartree, abs=1e-8)
@@ -254,18 +274,18 @@ def test_neighbour_density_saves_cycles_and_gives_the_same_energy(engine):
 
 def test_guess_of_another_shape_is_converted_or_ignored(engine):
     settings = EngineSettings()
-    records, rhf_density = engine.compute(water(), "6-31g", ["hf"], settings)
+    records, rhf_density = compute(engine, water(), "6-31g", ["hf"], settings)
     e_rhf = records["hf"].energy_hartree
     # A restricted density handed to an unrestricted SCF is split into alpha and beta.
     unrestricted = EngineSettings(reference="unrestricted")
-    records, uhf_density = engine.compute(water(), "6-31g", ["hf"], unrestricted, rhf_density)
+    records, uhf_density = compute(engine, water(), "6-31g", ["hf"], unrestricted, rhf_density)
     assert records["hf"].reference == "UHF" and records["hf"].converged
     assert records["hf"].energy_hartree == pytest.approx(e_rhf, abs=1e-8)
     # And back: the alpha and beta densities are summed for a restricted SCF.
-    records, _ = engine.compute(water(), "6-31g", ["hf"], settings, guess=uhf_density)
+    records, _ = compute(engine, water(), "6-31g", ["hf"], settings, guess=uhf_density)
     assert records["hf"].energy_hartree == pytest.approx(e_rhf, abs=1e-8)
     # A density of another basis cannot be used; it is ignored.
-    records, _ = engine.compute(water(), "6-31g", ["hf"], settings, guess=np.eye(3))
+    records, _ = compute(engine, water(), "6-31g", ["hf"], settings, guess=np.eye(3))
     assert records["hf"].energy_hartree == pytest.approx(e_rhf, abs=1e-8)
 
 
@@ -274,8 +294,8 @@ def test_guess_of_another_shape_is_converted_or_ignored(engine):
 
 @pytest.mark.parametrize("grid_level", [1, 3])
 def test_b3lyp_equals_plain_pyscf_rks_at_the_same_grid(engine, grid_level):
-    settings = EngineSettings(grid_level=grid_level)
-    records, _ = engine.compute(water(), "6-31g", ["B3LYP"], settings)
+    settings = EngineSettings(dft_grid_level=grid_level)
+    records, _ = compute(engine, water(), "6-31g", ["B3LYP"], settings)
     record = records["b3lyp"]
     assert record.reference == "RKS" and record.converged
     mf = dft.RKS(plain_mole(water(), "6-31g"))
@@ -287,8 +307,8 @@ def test_b3lyp_equals_plain_pyscf_rks_at_the_same_grid(engine, grid_level):
 
 
 def test_grid_level_reaches_the_functional(engine):
-    coarse, _ = engine.compute(water(), "6-31g", ["b3lyp"], EngineSettings(grid_level=0))
-    fine, _ = engine.compute(water(), "6-31g", ["b3lyp"], EngineSettings(grid_level=3))
+    coarse, _ = compute(engine, water(), "6-31g", ["b3lyp"], EngineSettings(dft_grid_level=0))
+    fine, _ = compute(engine, water(), "6-31g", ["b3lyp"], EngineSettings(dft_grid_level=3))
     # The grid error of level 0 is far above the SCF tolerance (common practice: levels
     # 0-1 are for tests only); equal energies would mean the setting was not applied.
     assert abs(coarse["b3lyp"].energy_hartree - fine["b3lyp"].energy_hartree) > 1e-6
@@ -300,17 +320,17 @@ def test_grid_level_reaches_the_functional(engine):
 def test_setup_errors_are_raised_before_computing(engine):
     settings = EngineSettings()
     with pytest.raises(EngineSetupError, match="cannot have multiplicity 2"):
-        engine.compute(water(multiplicity=2), "6-31g", ["hf"], settings)  # 10 electrons
+        compute(engine, water(multiplicity=2), "6-31g", ["hf"], settings)  # 10 electrons
     with pytest.raises(EngineSetupError, match="element Kr"):
-        engine.compute(Geometry(("Kr",), [[0, 0, 0]]), "6-31g", ["hf"], settings)
+        compute(engine, Geometry(("Kr",), [[0, 0, 0]]), "6-31g", ["hf"], settings)
     with pytest.raises(EngineSetupError, match="share one SCF"):
-        engine.compute(water(), "6-31g", ["hf", "b3lyp"], settings)
+        compute(engine, water(), "6-31g", ["hf", "b3lyp"], settings)
     with pytest.raises(EngineSetupError, match="unknown method"):
-        engine.compute(water(), "6-31g", ["rhf"], settings)
+        compute(engine, water(), "6-31g", ["rhf"], settings)
 
 
 def test_no_stray_files(engine, tmp_path):
-    engine.compute(water(), "sto-3g", ["hf", "ccsd"], EngineSettings())
+    compute(engine, water(), "sto-3g", ["hf", "ccsd"], EngineSettings())
     assert os.listdir(tmp_path) == []
 
 
@@ -327,10 +347,13 @@ def plain_atom_uhf(symbol, spin, basis):
 
 
 def test_broken_symmetry_h2_dissociates_to_two_atoms_where_rhf_fails(engine):
-    basis, settings = "6-31g", EngineSettings(conv_tol=1e-12, broken_symmetry=True)
+    basis, settings = (
+        "6-31g",
+        EngineSettings(scf_energy_tolerance_hartree=1e-12, broken_symmetry=True),
+    )
     # One electron: UHF is exact within the basis; computed with plain PySCF.
     two_atoms = 2 * plain_atom_uhf("H", 1, basis)
-    records, density = engine.compute(h2(5.0), basis, ["hf", "mp2", "ccsd(t)"], settings)
+    records, density = compute(engine, h2(5.0), basis, ["hf", "mp2", "ccsd(t)"], settings)
     hf = records["hf"]
     assert hf.reference == "UHF" and hf.converged
     assert density.shape == (2, 4, 4)
@@ -355,7 +378,9 @@ def test_broken_symmetry_h2_dissociates_to_two_atoms_where_rhf_fails(engine):
     e_fci = fci.FCI(plain_rhf).kernel()[0]
     assert records["ccsd"].energy_hartree == pytest.approx(e_fci, abs=1e-6)
 
-    rhf, _ = engine.compute(h2(5.0), basis, ["hf"], EngineSettings(conv_tol=1e-12))
+    rhf, _ = compute(
+        engine, h2(5.0), basis, ["hf"], EngineSettings(scf_energy_tolerance_hartree=1e-12)
+    )
     assert rhf["hf"].reference == "RHF"
     assert rhf["hf"].energy_hartree == pytest.approx(plain_rhf.e_tot, abs=1e-8)
     # The textbook failure of RHF at dissociation: its determinant keeps half ionic
@@ -366,8 +391,8 @@ def test_broken_symmetry_h2_dissociates_to_two_atoms_where_rhf_fails(engine):
 
 def test_broken_symmetry_keeps_the_restricted_solution_near_equilibrium(engine):
     # Short of the Coulson-Fischer point the restricted solution is the only one.
-    settings = EngineSettings(conv_tol=1e-12, broken_symmetry=True)
-    records, _ = engine.compute(h2(0.74), "6-31g", ["hf"], settings)
+    settings = EngineSettings(scf_energy_tolerance_hartree=1e-12, broken_symmetry=True)
+    records, _ = compute(engine, h2(0.74), "6-31g", ["hf"], settings)
     hf = records["hf"]
     plain = scf.RHF(plain_mole(h2(0.74), "6-31g")).run(conv_tol=1e-12)
     assert hf.reference == "UHF"
@@ -378,8 +403,8 @@ def test_broken_symmetry_keeps_the_restricted_solution_near_equilibrium(engine):
 
 
 def test_broken_symmetry_dft_is_uks(engine):
-    settings = EngineSettings(broken_symmetry=True, grid_level=1)
-    records, _ = engine.compute(h2(5.0), "6-31g", ["b3lyp"], settings)
+    settings = EngineSettings(broken_symmetry=True, dft_grid_level=1)
+    records, _ = compute(engine, h2(5.0), "6-31g", ["b3lyp"], settings)
     record = records["b3lyp"]
     assert record.reference == "UKS" and record.converged
     atom = dft.UKS(gto.M(atom="H", spin=1, basis="6-31g", verbose=0))
@@ -396,7 +421,7 @@ def test_broken_symmetry_n2_triple_bond_to_two_quartet_atoms(engine):
     two_atoms = 2 * plain_atom_uhf("N", 3, basis)
     settings = EngineSettings(broken_symmetry=True)
     n2 = Geometry(("N", "N"), [[0, 0, 0], [0, 0, 5.0]])
-    records, _ = engine.compute(n2, basis, ["hf"], settings)
+    records, _ = compute(engine, n2, basis, ["hf"], settings)
     hf = records["hf"]
     # 5 angstrom = 9.4 bohr: the 2p overlap is a few 1e-3, its square ~1e-5.
     assert hf.energy_hartree == pytest.approx(two_atoms, abs=1e-4)
@@ -414,7 +439,7 @@ def test_broken_symmetry_walk_carries_the_spin_broken_density(engine):
         density = None
         for r in direction:
             n2 = Geometry(("N", "N"), [[0, 0, 0], [0, 0, r]])
-            records, density = engine.compute(n2, "6-31g", ["hf"], settings, guess=density)
+            records, density = compute(engine, n2, "6-31g", ["hf"], settings, guess=density)
             hf = records["hf"]
             energies.setdefault(r, []).append(hf.energy_hartree)
             if r == 3.0 and direction[0] == 1.1:
@@ -431,10 +456,12 @@ def test_broken_symmetry_walk_carries_the_spin_broken_density(engine):
 def test_stability_analysis_follows_the_rhf_to_uhf_instability(engine):
     basis = "6-31g"
     two_atoms = 2 * plain_atom_uhf("H", 1, basis)
-    _, rhf_density = engine.compute(h2(4.0), basis, ["hf"], EngineSettings())
+    _, rhf_density = compute(engine, h2(4.0), basis, ["hf"], EngineSettings())
     # A restricted starting density keeps UHF on the restricted solution ...
-    settings = EngineSettings(reference="unrestricted", stability=True, conv_tol=1e-12)
-    records, _ = engine.compute(h2(4.0), basis, ["hf"], settings, guess=rhf_density)
+    settings = EngineSettings(
+        reference="unrestricted", stability=True, scf_energy_tolerance_hartree=1e-12
+    )
+    records, _ = compute(engine, h2(4.0), basis, ["hf"], settings, guess=rhf_density)
     hf = records["hf"]
     plain_rhf = scf.RHF(plain_mole(h2(4.0), basis)).run(conv_tol=1e-12)
     assert hf.attempts[0]["energy_hartree"] == pytest.approx(plain_rhf.e_tot, abs=1e-8)
@@ -453,13 +480,13 @@ def test_stability_analysis_follows_the_rhf_to_uhf_instability(engine):
 
 def test_stability_analysis_of_rhf_reports_the_external_instability(engine):
     settings = EngineSettings(stability=True)
-    stretched, _ = engine.compute(h2(4.0), "6-31g", ["hf"], settings)
+    stretched, _ = compute(engine, h2(4.0), "6-31g", ["hf"], settings)
     rung = stretched["hf"].attempts[-1]
     # RHF is stable within RHF (no internal instability) but not towards UHF; the
     # reference is a setting, so this is reported, not followed.
     assert rung["stable"] is True and rung["rhf_to_uhf_stable"] is False
     assert stretched["hf"].reference == "RHF"
-    equilibrium, _ = engine.compute(h2(0.74), "6-31g", ["hf"], settings)
+    equilibrium, _ = compute(engine, h2(0.74), "6-31g", ["hf"], settings)
     rung = equilibrium["hf"].attempts[-1]
     assert rung["stable"] is True and rung["rhf_to_uhf_stable"] is True
 
@@ -467,7 +494,7 @@ def test_stability_analysis_of_rhf_reports_the_external_instability(engine):
 @pytest.mark.parametrize("reference", ["restricted-open", "unrestricted"])
 def test_stability_analysis_of_open_shells_agrees_with_plain_pyscf(engine, reference):
     settings = EngineSettings(reference=reference, stability=True)
-    records, _ = engine.compute(water(charge=1, multiplicity=2), "6-31g", ["hf"], settings)
+    records, _ = compute(engine, water(charge=1, multiplicity=2), "6-31g", ["hf"], settings)
     rung = records["hf"].attempts[-1]
     cls = scf.ROHF if reference == "restricted-open" else scf.UHF
     plain = cls(plain_mole(water(charge=1, multiplicity=2), "6-31g")).run(conv_tol=1e-10)
@@ -503,9 +530,9 @@ def test_relaxed_torsion_holds_the_dihedral_and_lowers_the_energy(engine, method
 
     start = hydrogen_peroxide(90.0)
     settings = EngineSettings()
-    rigid, _ = engine.compute(start, "sto-3g", [method], settings)
+    rigid, _ = compute(engine, start, "sto-3g", [method], settings)
     constraint = [("dihedral", (2, 0, 1, 3), 90.0)]
-    relaxed, record, info, density = engine.relax(start, "sto-3g", method, settings, constraint)
+    relaxed, record, info, density = relax(engine, start, "sto-3g", method, settings, constraint)
 
     # The dihedral measured by ASE's own geometry code.
     assert ase_atoms(relaxed).get_dihedral(2, 0, 1, 3) == pytest.approx(90.0, abs=1e-3)
@@ -554,9 +581,9 @@ def test_ethane_relaxed_torsion_barrier(engine):
     rigid, relaxed, c_c = {}, {}, {}
     for name, dihedral in (("staggered", 180.0), ("eclipsed", 0.0)):
         start = ethane(dihedral)
-        rigid[name] = engine.compute(start, basis, ["hf"], settings)[0]["hf"].energy_hartree
+        rigid[name] = compute(engine, start, basis, ["hf"], settings)[0]["hf"].energy_hartree
         constraint = [("dihedral", (2, 0, 1, 5), dihedral)]
-        geometry, record, info, _ = engine.relax(start, basis, "hf", settings, constraint)
+        geometry, record, info, _ = relax(engine, start, basis, "hf", settings, constraint)
         assert info["converged"] and record.converged
         final = ase_atoms(geometry).get_dihedral(2, 0, 1, 5)
         assert abs((final - dihedral + 180.0) % 360.0 - 180.0) < 1e-3
@@ -584,7 +611,7 @@ def test_relaxation_is_silent_leaves_logging_and_no_files(engine, tmp_path, capf
     # logging must come out as it went in, and nothing may be printed.
     root = logging.getLogger()
     handlers, level = list(root.handlers), root.level
-    engine.relax(hydrogen_peroxide(120.0), "sto-3g", "hf", EngineSettings(),
+    relax(engine, hydrogen_peroxide(120.0), "sto-3g", "hf", EngineSettings(),
                  [("dihedral", (2, 0, 1, 3), 120.0)])  # fmt: skip
     out, err = capfd.readouterr()
     assert out == "" and err == ""
@@ -597,9 +624,9 @@ def test_relaxation_is_silent_leaves_logging_and_no_files(engine, tmp_path, capf
 def test_failed_relaxation_is_recorded_not_raised(engine, monkeypatch):
     start = hydrogen_peroxide(90.0)
     constraint = [("dihedral", (2, 0, 1, 3), 90.0)]
-    monkeypatch.setattr(engine_module, "RELAX_MAX_STEPS", 2)
-    geometry, record, info, density = engine.relax(
-        start, "sto-3g", "hf", EngineSettings(), constraint
+    monkeypatch.setattr(relax_module, "RELAX_MAX_STEPS", 2)
+    geometry, record, info, density = relax(
+        engine, start, "sto-3g", "hf", EngineSettings(), constraint
     )
     assert not record.converged and math.isnan(record.energy_hartree) and density is None
     assert record.error == info["error"] == "geometry optimisation did not converge in 2 steps"
@@ -608,8 +635,8 @@ def test_failed_relaxation_is_recorded_not_raised(engine, monkeypatch):
     assert ase_atoms(geometry).get_dihedral(2, 0, 1, 3) == pytest.approx(90.0, abs=1e-3)
 
     # An SCF that cannot converge at the start: recorded too.
-    settings = EngineSettings(max_cycle=1, scf_ladder=("default",))
-    geometry, record, info, density = engine.relax(start, "sto-3g", "hf", settings, constraint)
+    settings = EngineSettings(scf_max_iterations=1, scf_ladder=("default",))
+    geometry, record, info, density = relax(engine, start, "sto-3g", "hf", settings, constraint)
     assert not record.converged and density is None
     assert record.error == "SCF did not converge at the starting geometry"
     assert info["steps"] == 0 and geometry is start
@@ -617,9 +644,9 @@ def test_failed_relaxation_is_recorded_not_raised(engine, monkeypatch):
     # Stretched water: the ladder converges the start (second-order rung), but the
     # steps run plain DIIS from the previous density, and 3 iterations are too few.
     start = Geometry(WATER_SYMBOLS, STRETCHED_WATER_ANGSTROM)
-    settings = EngineSettings(max_cycle=3)
-    geometry, record, info, density = engine.relax(
-        start, "6-31g", "hf", settings, [("angle", (1, 0, 2), 106.0)]
+    settings = EngineSettings(scf_max_iterations=3)
+    geometry, record, info, density = relax(
+        engine, start, "6-31g", "hf", settings, [("angle", (1, 0, 2), 106.0)]
     )
     assert record.attempts[-1]["rung"] == "second-order" and record.attempts[-1]["converged"]
     assert record.error == info["error"] == "SCF did not converge at optimisation step 2"
@@ -630,6 +657,6 @@ def test_failed_relaxation_is_recorded_not_raised(engine, monkeypatch):
 def test_relaxation_setup_errors_are_raised_before_computing(engine):
     start = hydrogen_peroxide(90.0)
     with pytest.raises(EngineSetupError, match="relax needs analytic gradients"):
-        engine.relax(start, "sto-3g", "ccsd(t)", EngineSettings(), [])
+        relax(engine, start, "sto-3g", "ccsd(t)", EngineSettings(), [])
     with pytest.raises(EngineSetupError, match="distinct 0-based indices below 4"):
-        engine.relax(start, "sto-3g", "hf", EngineSettings(), [("dihedral", (1, 2, 3, 4), 90)])
+        relax(engine, start, "sto-3g", "hf", EngineSettings(), [("dihedral", (1, 2, 3, 4), 90)])

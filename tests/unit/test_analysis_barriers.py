@@ -44,8 +44,10 @@ def test_threefold_torsion_barrier_is_exact_with_three_equivalent_minima():
     )
     # Any of the three equivalent minima may come out lowest.
     assert min(abs(row["dihedral_e_degree"] - m) for m in (0.0, 120.0, 240.0, 360.0)) < 1e-4
+    # A dihedral's curvature is labelled as a torsion, not as a bend.
+    assert np.isnan(row["k_hartree_rad-2"]) and np.isnan(row["k_aj_rad-2"])
     # Torsional force constant 9 V0 / 2 per rad^2; a 5-degree grid gives it to ~1e-5.
-    assert row["k_hartree_rad-2"] == pytest.approx(
+    assert row["k_torsion_hartree_rad-2"] == pytest.approx(
         9 / 2 * V0_KCAL_MOL / HARTREE_TO_KCAL_MOL, rel=1e-4
     )
 

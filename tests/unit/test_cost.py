@@ -4,6 +4,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from pesflow.engine import method_info
 from pesflow.plan import cost
 
 
@@ -24,7 +25,7 @@ def test_scaling_model_calibrated_on_another_molecule():
     # one timing of water at 50 basis functions: 1 s; ethanol at 100 functions by N^p
     rows = [("w", "hf/b", "hf", "b", "done", 1.0), ("e", "hf/b", "hf", "b", "pending", np.nan)]
     est = cost.estimate(table(rows), {("w", "b"): 50, ("e", "b"): 100})
-    expected = cost.OVERHEAD_S + (1.0 - cost.OVERHEAD_S) * 2.0 ** cost.EXPONENT["hf"]
+    expected = cost.OVERHEAD_S + (1.0 - cost.OVERHEAD_S) * 2.0 ** method_info("hf").cost_exponent
     assert est.loc[0, "estimate_core_h"] == pytest.approx(expected / 3600)
     assert est.loc[0, "source"] == "scaling model"
 
@@ -33,7 +34,7 @@ def test_small_points_do_not_calibrate_the_model():
     # a 10-function point is all overhead: it must not inflate the prefactor
     rows = [("w", "hf/b", "hf", "b", "done", 0.05), ("e", "hf/b", "hf", "b", "pending", np.nan)]
     est = cost.estimate(table(rows), {("w", "b"): 10, ("e", "b"): 50})
-    expected = cost.OVERHEAD_S + cost.DEFAULT_PREFACTOR_S["hf"]
+    expected = cost.OVERHEAD_S + method_info("hf").cost_prefactor_s
     assert est.loc[0, "estimate_core_h"] == pytest.approx(expected / 3600)
 
 

@@ -143,11 +143,11 @@ def test_key_dict_is_stable_json_and_leaves_out_resources():
 @pytest.mark.parametrize(
     "change",
     [
-        {"conv_tol": 1e-8},
-        {"max_cycle": 50},
+        {"scf_energy_tolerance_hartree": 1e-8},
+        {"scf_max_iterations": 50},
         {"reference": "unrestricted"},
         {"frozen_core": True},
-        {"grid_level": 4},
+        {"dft_grid_level": 4},
         {"scf_ladder": ("default", "second-order")},
         {"broken_symmetry": True},
         {"stability": True},
@@ -167,7 +167,7 @@ def test_reference_changing_settings_are_in_every_method_key(method, change):
 def test_key_dict_rebuilds_the_settings():
     # The planner stores key_dict() and the batch rebuilds EngineSettings from it.
     settings = EngineSettings(broken_symmetry=True, stability=True, reference="unrestricted")
-    assert EngineSettings(**settings.key_dict()) == settings
+    assert EngineSettings.from_key_dict(settings.key_dict()) == settings
 
 
 def test_broken_symmetry_needs_an_unrestricted_reference():
@@ -218,11 +218,11 @@ def test_bad_constraints_are_setup_errors(bad, message):
 
 
 def test_key_dict_per_method_drops_fields_that_cannot_change_it():
-    fine_grid = EngineSettings(grid_level=5, frozen_core=True)
+    fine_grid = EngineSettings(dft_grid_level=5, frozen_core=True)
     # The DFT grid does not touch a wavefunction number, nor the frozen core an SCF one.
     assert fine_grid.key_dict("mp2") == EngineSettings(frozen_core=True).key_dict("mp2")
     assert fine_grid.key_dict("hf") == EngineSettings().key_dict("hf")
-    assert fine_grid.key_dict("b3lyp") == EngineSettings(grid_level=5).key_dict("b3lyp")
+    assert fine_grid.key_dict("b3lyp") == EngineSettings(dft_grid_level=5).key_dict("b3lyp")
     assert fine_grid.key_dict("B3LYP") != EngineSettings().key_dict("b3lyp")
 
 
@@ -233,8 +233,8 @@ def test_key_dict_per_method_drops_fields_that_cannot_change_it():
         {"scf_ladder": ("default", "magic")},
         {"scf_ladder": ()},
         {"broken_symmetry": True, "reference": "restricted"},
-        {"conv_tol": 0.0},
-        {"max_cycle": 0},
+        {"scf_energy_tolerance_hartree": 0.0},
+        {"scf_max_iterations": 0},
     ],
 )
 def test_invalid_settings_are_setup_errors(bad):

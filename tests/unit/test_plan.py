@@ -5,7 +5,7 @@ from pathlib import Path
 
 import numpy as np
 
-from pesflow.campaign.spec import load_campaign
+from pesflow.campaign import load_campaign
 from pesflow.coordinates import geometry as coordinates
 from pesflow.plan import keys
 from pesflow.plan.expand import expand, make_batches, points_frame
@@ -75,7 +75,7 @@ def test_keys_are_stable_and_content_addressed():
     assert set(a.points["key"]) == set(c.points["key"])
     # the engine version and every result-changing setting are part of the key
     assert set(expand(campaign(), version="other").points["key"]).isdisjoint(a.points["key"])
-    tighter = SPEC + "engine: {conv_tol: 1.0e-9}\n"
+    tighter = SPEC + "engine: {scf_energy_tolerance_hartree: 1.0e-9}\n"
     assert set(expand(campaign(tighter, "t.yaml"), version="test").points["key"]).isdisjoint(
         a.points["key"]
     )
@@ -101,7 +101,7 @@ def test_key_matches_single_point_function():
 
 def test_settings_that_cannot_change_a_method_do_not_split_its_cache():
     a = expand(campaign(), version="test")
-    finer_grid = expand(campaign(SPEC + "engine: {grid_level: 5}\n", "g.yaml"), version="test")
+    finer_grid = expand(campaign(SPEC + "engine: {dft_grid_level: 5}\n", "g.yaml"), version="test")
     hf = a.points["method"] != "b3lyp"
     assert list(a.points[hf]["key"]) == list(finer_grid.points[hf]["key"])
     assert set(a.points[~hf]["key"]).isdisjoint(finer_grid.points[~hf]["key"])
@@ -200,3 +200,54 @@ def test_cheap_walks_are_not_split_below_the_start_up_cost():
     batches = make_batches(plan, set(), cores=2, size_weight=cheap)
     stretch = [b for b in batches if plan.geometry_sets[b.set_id].scan == "stretch"]
     assert len(stretch) == 2  # one walk per SCF family: 60 points of 0.02 s are one job
+
+
+def test_tight_binding_levels_are_planned_beside_pyscf_levels_by_engine():
+    import importlib.metadata
+
+    text = SPEC.replace("  - {method: b3lyp, basis: sto-3g}\n", "  - {method: gfn2-xtb}\n")
+    plan = expand(campaign(text, "tb.yaml"), version="test")
+    assert {"hf/sto-3g", "mp2/sto-3g", "gfn2-xtb"} == set(plan.points["level"])
+    batches = make_batches(plan, done=set(), cores=2)
+    engines = {b.family: plan.batch_engine(b) for b in batches}
+    assert engines["gfn2-xtb"] == ("tblite", importlib.metadata.version("tblite"))
+    assert engines["hf"] == ("pyscf", "test")
+    # the key of a tight-binding point: no basis, tblite's name and version, its settings
+    gs = plan.geometry_sets[0]
+    row = plan.points[(plan.points.set_id == 0) & (plan.points.level == "gfn2-xtb")].iloc[0]
+    expected = keys.point_key(
+        gs.symbols,
+        gs.positions[int(row.walk)],
+        gs.charge,
+        gs.multiplicity,
+        "gfn2-xtb",
+        "",
+        {"conv_tol": 1e-10, "max_cycle": 100},
+        "tblite",
+        importlib.metadata.version("tblite"),
+    )
+    assert row.key == expected
+
+
+def test_byproduct_keys_are_made_in_the_plan_and_carried_by_the_task():
+    from pesflow.engine import EngineSettings
+    from pesflow.execution.driver import task_dict
+
+    text = SPEC.replace("method: [hf, mp2]", "method: [hf, ccsd(t)]")
+    plan = expand(campaign(text, "t.yaml"), version="test")
+    batch = next(b for b in make_batches(plan, done=set(), cores=1) if b.family == "hf")
+    task = task_dict(plan, batch, "store")
+    gs = plan.geometry_sets[batch.set_id]
+    for point in task["points"]:
+        assert set(point["keys"]) == {"hf", "ccsd(t)"}
+        assert point["byproduct_keys"]["ccsd"] == keys.point_key(
+            gs.symbols,
+            gs.positions[point["walk"]],
+            gs.charge,
+            gs.multiplicity,
+            "ccsd",
+            "sto-3g",
+            EngineSettings().key_dict("ccsd"),
+            "pyscf",
+            "test",
+        )

@@ -17,7 +17,7 @@ import pytest
 
 from pesflow.analysis.derived import ONE_D_FLAG, RESTRICTED_FLAG
 from pesflow.report.stats import closest_levels, error_statistics, level_statistics
-from pesflow.report.tables import cardinal_number, flag_concerns, split_flags
+from pesflow.report.tables import cardinal_number, split_flags
 
 
 def test_error_statistics_hand_computed():
@@ -109,24 +109,33 @@ def test_closest_level_is_the_smallest_mean_absolute_deviation():
     assert not row["same_n"]
 
 
-def test_split_flags_splits_on_the_separator_only():
-    from pesflow.analysis.derived import FLAG_SEPARATOR
+def test_split_flags_reads_the_structured_records():
+    from pesflow.analysis.flags import Flag, flag_records
 
     warnings = [
-        "only 0 vibrational level(s) converged within the scanned range (0.75-1.25 A; "
-        "levels are trapped by its ends): extend the scan",
-        "omega_e x_e from the Morse fit (fewer than two trusted levels)",
-        "noisy energies at 1.2 A: up to 4.9e-06 hartree off; tighten the SCF convergence",
+        Flag(
+            "few-vibrational-levels",
+            "only 0 vibrational level(s) converged within the scanned range (0.75-1.25 A; "
+            "levels are trapped by its ends): extend the scan | even with a separator inside",
+            (1.25,),
+        ),
+        Flag("anharmonicity-from-morse", "omega_e x_e from the Morse fit (fewer than two)"),
+        Flag("noisy-points", "noisy energies at 1.2 A: up to 4.9e-06 hartree off", (1.2,)),
     ]
-    assert split_flags(FLAG_SEPARATOR.join(warnings)) == warnings
+    assert split_flags(flag_records(warnings)) == warnings
+    assert [f.code for f in split_flags(flag_records(warnings))] == [w.code for w in warnings]
+    assert split_flags(flag_records(warnings))[0].positions == (1.25,)
     assert split_flags(float("nan")) == [] and split_flags("") == []
 
 
 def test_flags_are_attached_to_the_quantities_they_concern():
-    assert flag_concerns(ONE_D_FLAG) == {"omega_1d_cm-1"}
-    assert {"d_e_ev", "d_0_ev"} <= flag_concerns(RESTRICTED_FLAG)
-    assert "r_e_angstrom" not in flag_concerns(RESTRICTED_FLAG)
-    assert flag_concerns("minimum not bracketed: the lowest energy is at the end") is None
+    from pesflow.analysis.flags import Flag
+
+    assert ONE_D_FLAG.concerns == {"omega_1d_cm-1"}
+    assert {"d_e_ev", "d_0_ev"} <= RESTRICTED_FLAG.concerns
+    assert "r_e_angstrom" not in RESTRICTED_FLAG.concerns
+    unbracketed = Flag("minimum-not-bracketed", "the lowest energy is at the end of the scan")
+    assert unbracketed.concerns is None
 
 
 def test_cardinal_numbers():

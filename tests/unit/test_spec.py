@@ -12,7 +12,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from pesflow.campaign.spec import json_schema, load_campaign
+from pesflow.campaign import load_campaign
+from pesflow.campaign.spec import json_schema
 from pesflow.cli import main
 from pesflow.errors import SpecError
 
@@ -566,3 +567,39 @@ def test_run_refuses_an_absurd_point_count_at_once_without_writing(capsys):
     assert main(["run", str(path), "--cores", "1"]) == 2
     assert "at most 200,000 points" in capsys.readouterr().err
     assert not Path("results").exists() and not Path("pesflow-store").exists()
+
+
+def test_tight_binding_level_has_no_basis_and_its_label_is_the_method():
+    campaign = load_campaign(
+        write(GOOD.replace("method: b3lyp, basis: sto-3g", "method: GFN2-xTB"))
+    )
+    labels = [level.label for level in campaign.levels]
+    assert "gfn2-xtb" in labels and "hf/sto-3g" in labels
+    assert next(lvl for lvl in campaign.levels if lvl.method == "gfn2-xtb").basis == ""
+
+
+def test_basis_given_to_a_tight_binding_level(capsys):
+    refused(
+        GOOD.replace("method: b3lyp", "method: gfn2-xtb"),
+        capsys,
+        "levels[1].basis",
+        "gfn2-xtb has its own built-in basis",
+    )
+
+
+def test_method_without_basis(capsys):
+    refused(
+        GOOD.replace("method: b3lyp, basis: sto-3g", "method: b3lyp"),
+        capsys,
+        "levels[1]",
+        "b3lyp needs a basis set",
+    )
+
+
+def test_renamed_engine_key_names_its_new_name(capsys):
+    refused(
+        GOOD + "engine: {conv_tol: 1.0e-9}\n",
+        capsys,
+        "engine",
+        "unknown key 'conv_tol'; it is now called 'scf_energy_tolerance_hartree'",
+    )

@@ -229,6 +229,8 @@ def test_shipped_profiles_parse_with_snakemakes_own_parser():
 
     slurm = get_argument_parser(profiles=[str(SLURM)]).parse_args([])
     assert slurm.executor == "slurm"
+    # squeue answers on a cluster without accounting storage; sacct does not
+    assert slurm.slurm_status_command == "squeue"
     assert slurm.jobs >= 1 and slurm.latency_wait >= 30
     assert {"slurm_partition", "slurm_account"} <= set(slurm.default_resources)
     # the batch rule declares runtime and mem_mb itself, so only set-resources reaches them
@@ -245,3 +247,44 @@ def test_shipped_profiles_parse_with_snakemakes_own_parser():
         assert getattr(local, f"cluster_generic_{option}_cmd") == str(LOCAL_CLUSTER / script)
         assert os.access(LOCAL_CLUSTER / script, os.X_OK)
     assert "slurm" in (SLURM / "README.md").read_text().lower()
+
+
+@pytest.mark.workflow
+@pytest.mark.integration
+def test_run_stops_when_every_batch_ended_but_jobs_are_still_reported_running(tmp_path):
+    """A status query that never sees jobs end (sacct without accounting storage) must
+    not keep ``pesflow run`` waiting forever: once every batch has ended and the grace
+    period is over, Snakemake is stopped, the run says why, and it exits 0 with every
+    point stored; a rerun has nothing left to compute."""
+    (tmp_path / "campaign.yaml").write_text(SPEC)
+    env = dict(
+        os.environ,
+        OMP_NUM_THREADS="1",
+        PESFLOW_LOCAL_CLUSTER_STUCK="1",  # status.sh answers "running" for every job
+        PESFLOW_STALL_GRACE_S="3",
+    )
+    cmd = [sys.executable, "-m", "pesflow", "run", "campaign.yaml", "--cores", "2"]
+    run = subprocess.run(
+        [*cmd, "--profile", str(LOCAL_CLUSTER)],
+        cwd=tmp_path,
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=300,  # the stand-in would answer "running" for ever
+    )
+    out = run.stdout + run.stderr
+    assert run.returncode == 0, out
+    assert f"all {N_POINTS} points are stored but the scheduler still reported jobs" in out
+    assert "configs/profiles/slurm/README.md" in out
+    assert f"{N_POINTS} done, 0 failed, 0 pending" in run.stdout
+
+    wd = tmp_path / "results" / "cluster-check" / ".pesflow" / "workflow"
+    jobs = list((wd / ".local-cluster").iterdir())
+    assert jobs and all((job / "exit_code").read_text().strip() == "0" for job in jobs)
+    assert len(stored_energies(tmp_path / "store")) == N_POINTS
+
+    rerun = subprocess.run(
+        cmd, cwd=tmp_path, env=env, capture_output=True, text=True, timeout=300, check=False
+    )
+    assert rerun.returncode == 0, rerun.stdout + rerun.stderr
+    assert "nothing to compute: every point is in the store" in rerun.stdout

@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pesflow.campaign.spec import load_campaign
+from pesflow.campaign import load_campaign
 from pesflow.plan.expand import expand
 from pesflow.report import build_report, terminal_summary
 from pesflow.report.tables import QUANTITY, fmt_dev, split_flags
@@ -260,7 +260,7 @@ def test_user_text_is_escaped_and_no_script_exists(report):
     refs = pd.read_csv(paths["reference_values_csv"])
     assert EVIL_SOURCE in set(refs["source"])
     # The summary's flags are shown, each next to the numbers it concerns (escaped).
-    for text in summary["flags"]:
+    for text in summary["flag_records"]:
         for flag in split_flags(text):
             assert html.escape(flag, quote=True) in page
 

@@ -1,0 +1,112 @@
+"""The PySCF engine's methods: names, information for plan and cost, basis checks.
+
+Cheap to import; PySCF's libxc parser and basis library are imported only when a
+functional name or a basis set has to be checked.
+"""
+
+from __future__ import annotations
+
+import functools
+import importlib.util
+import warnings
+
+from pesflow.engine import MethodInfo
+from pesflow.errors import EngineSetupError
+
+#: Every setting (by its key name) that can change an SCF-based number.
+_ALL_SETTINGS = ("conv_tol", "max_cycle", "reference", "frozen_core", "grid_level",
+                 "scf_ladder", "broken_symmetry", "stability")  # fmt: skip
+
+#: Per wavefunction method: order in its SCF family, cost weight relative to the SCF
+#: (for batching; common practice: correlated steps cost several SCFs on small
+#: molecules), scaling exponent and default prefactor of the cost model (wall s at
+#: 50 basis functions, one thread; measured here on small molecules with PySCF
+#: 2.14, e.g. HF 0.034 s at 28 and 0.19 s at 60 functions for CO, about N^2.3-N^3),
+#: analytic gradients used for relaxed scans, byproducts.
+_WAVEFUNCTION = {
+    "hf": (0, 1.0, 3, 0.12, True, ()),
+    "mp2": (1, 1.5, 4, 0.15, True, ()),
+    "ccsd": (2, 6.0, 6, 1.5, True, ()),
+    "ccsd(t)": (3, 9.0, 7, 3.0, False, ("ccsd",)),
+}
+#: Every DFT functional: one SCF each, cost class ``dft`` (exponent 3, 0.4 s at 50
+#: basis functions, measured as above), analytic gradients.
+_DFT = (0, 1.0, 3, 0.4, True, ())
+
+
+def method_info(name: str) -> MethodInfo | None:
+    """The :class:`~pesflow.engine.MethodInfo` of a PySCF method, or None when PySCF
+    cannot compute ``name``.  Raises EngineSetupError for a functional whose
+    dispersion correction needs the missing ``pyscf-dispersion`` package."""
+    lowered = name.strip().lower()
+    compact = "".join(lowered.split())
+    if compact in _WAVEFUNCTION:
+        order, weight, exponent, prefactor, gradients, byproducts = _WAVEFUNCTION[compact]
+        dropped = ("grid_level",) if compact != "hf" else ("grid_level", "frozen_core")
+        return MethodInfo(
+            name=compact, engine="pyscf", family="hf", order=order, weight=weight,
+            cost_class=compact, cost_exponent=exponent, cost_prefactor_s=prefactor,
+            needs_basis=True, has_gradients=gradients, byproducts=byproducts,
+            settings=tuple(s for s in _ALL_SETTINGS if s not in dropped),
+        )  # fmt: skip
+    functional = _canonical_functional(lowered, name)
+    if functional is None:
+        return None
+    order, weight, exponent, prefactor, gradients, byproducts = _DFT
+    return MethodInfo(
+        name=functional, engine="pyscf", family=functional, order=order, weight=weight,
+        cost_class="dft", cost_exponent=exponent, cost_prefactor_s=prefactor,
+        needs_basis=True, has_gradients=gradients, byproducts=byproducts,
+        settings=tuple(s for s in _ALL_SETTINGS if s != "frozen_core"),
+    )  # fmt: skip
+
+
+@functools.lru_cache(maxsize=256)
+def _canonical_functional(lowered: str, given: str) -> str | None:
+    from pyscf.dft import libxc
+    from pyscf.scf import dispersion
+
+    try:
+        hybrid, components = libxc.parse_xc(lowered)
+    except (KeyError, ValueError, IndexError, TypeError):
+        hybrid, components = (0, 0, 0), ()
+    if not components and not any(hybrid):
+        return None
+    correction = dispersion.parse_dft(lowered)[2]
+    if correction and importlib.util.find_spec("pyscf.dispersion") is None:
+        raise EngineSetupError(
+            f"method {given!r} asks for the dispersion correction {correction!r}, "
+            "which needs the pyscf-dispersion package (not installed)"
+        )
+    return lowered
+
+
+def check_basis(basis: str, elements) -> None:
+    """Raise EngineSetupError naming the basis and the first element it lacks.
+
+    Inputs:
+        basis: a basis-set name PySCF knows (``cc-pvdz``, ``def2-svp``, ``6-31g*``).
+        elements: element symbols, in the order to check (duplicates are fine).
+
+    >>> check_basis("sto-3g", ["O", "H", "H"])
+    """
+    from pyscf.gto import basis as pyscf_basis
+
+    if not isinstance(basis, str) or not basis.strip():
+        raise EngineSetupError(f"basis must be a non-empty name, got {basis!r}")
+    for element in dict.fromkeys(elements):
+        try:
+            with warnings.catch_warnings():
+                # PySCF suggests installing basis-set-exchange for unknown names.
+                warnings.simplefilter("ignore")
+                shells = pyscf_basis.load(basis, element)
+        except pyscf_basis.BasisNotFoundError as exc:
+            if "not found for" not in str(exc):
+                raise EngineSetupError(
+                    f"unknown basis {basis!r} (not in PySCF's library)"
+                ) from None
+            shells = []
+        except (KeyError, ValueError, RuntimeError) as exc:
+            raise EngineSetupError(f"basis {basis!r} for {element}: {exc}") from exc
+        if not shells:
+            raise EngineSetupError(f"basis {basis!r} has no functions for element {element}")
