@@ -603,3 +603,24 @@ def test_renamed_engine_key_names_its_new_name(capsys):
         "engine",
         "unknown key 'conv_tol'; it is now called 'scf_energy_tolerance_hartree'",
     )
+
+
+def test_points_given_as_true_is_refused_not_read_as_one(capsys):
+    refused_at_line(
+        GOOD.replace("points: 15", "points: true"),
+        capsys,
+        "scans.stretch.coordinates[0].points:",
+        "whole number",
+    )
+
+
+def test_reference_value_that_is_not_finite_is_refused(capsys):
+    refused_at_line(
+        GOOD
+        + "  reference_values:\n"
+        + "    - {molecule: hf_molecule, scan: stretch, quantity: r_e_angstrom, value: .nan,"
+        + " source: x}\n",
+        capsys,
+        "compare.reference_values[0].value:",
+        "finite number",
+    )

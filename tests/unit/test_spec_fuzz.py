@@ -8,7 +8,7 @@ YAML (a value replaced by one of another type, an out-of-range or huge number, o
 key deleted or added; a list item deleted or duplicated) and may duplicate one line of the
 text (a key given twice), then runs ``pesflow check`` in-process (``pesflow.cli.main``).
 
-The default run is bounded and reproducible (derandomized, 120 examples, about 30-60 s).
+The default run is bounded and reproducible (derandomized, 250 examples, about 30-60 s).
 Run it longer, with fresh random examples:
 
     PESFLOW_FUZZ_EXAMPLES=5000 PESFLOW_FUZZ_RANDOM=1 python -m pytest tests/unit/test_spec_fuzz.py
@@ -163,7 +163,7 @@ def test_every_base_spec_is_valid():
 
 
 @settings(
-    max_examples=int(os.environ.get("PESFLOW_FUZZ_EXAMPLES", "120")),
+    max_examples=int(os.environ.get("PESFLOW_FUZZ_EXAMPLES", "250")),
     derandomize=not os.environ.get("PESFLOW_FUZZ_RANDOM"),
     deadline=timedelta(seconds=10),  # "answered within seconds", with room for a loaded machine
     database=None,  # writes nothing
