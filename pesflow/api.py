@@ -9,7 +9,7 @@ campaign that is running raises :class:`~pesflow.errors.RunError`).  The command
 
 >>> import pesflow
 >>> c = pesflow.load("configs/demo-hydrides.yaml")      # doctest: +SKIP
->>> c.plan()[["level", "to_compute", "estimate"]]       # doctest: +SKIP
+>>> c.plan()[["level", "to_compute", "estimate_core_s"]]  # doctest: +SKIP
 >>> c.run(cores=2).failed                               # doctest: +SKIP
 0
 >>> c.summary()[["molecule", "level", "r_e_angstrom"]]  # doctest: +SKIP
