@@ -130,6 +130,8 @@ def our_jobs(folder: Path, states: str) -> list[str]:
     ]
 
 
+# ~30 s on a quiet machine, a minute under load: run by .ci/run's slow call, not the default run.
+@pytest.mark.slow
 def test_slurm_profile_and_local_run_give_the_same_store(tmp_path):
     for name in ("slurm", "local"):
         (tmp_path / name).mkdir()
