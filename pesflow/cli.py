@@ -127,9 +127,12 @@ def _plan_table(plan, store, done, sample_per_curve=20):
     sample = pts[is_done].groupby(["molecule", "level"], sort=False).head(sample_per_curve)
     if sample.empty:
         pts["wall_s"] = np.nan
+        pts["step_wall_s"] = np.nan
         return pts
-    timing = store.load(keys=set(sample["key"]), columns=("wall_s", "converged")).to_pandas()
-    timing = timing.loc[timing["converged"].astype(bool), ["key", "wall_s"]]
+    timing = store.load(
+        keys=set(sample["key"]), columns=("wall_s", "step_wall_s", "converged")
+    ).to_pandas()
+    timing = timing.loc[timing["converged"].astype(bool), ["key", "wall_s", "step_wall_s"]]
     return pts.merge(timing, on="key", how="left")
 
 
@@ -141,14 +144,19 @@ def cmd_plan(args) -> int:
     plan = _plan(campaign)
     store = _store(campaign)
     done = _done_keys(store)
-    nbf = cost.basis_function_counts(campaign)
-    jobs = plan_jobs(
-        plan, done, cores=args.cores or _cpu_count(), size_weight=cost.size_weights(nbf)
-    )
+    sizes = cost.molecule_sizes(campaign)
+    grid_level = campaign.engine_settings().grid_level
     table = _plan_table(plan, store, done)
-    estimate = cost.estimate(table, nbf).set_index("level")
+    estimate = cost.estimate(table, sizes, grid_level=grid_level).set_index("level")
+    jobs = plan_jobs(
+        plan,
+        done,
+        cores=args.cores or _cpu_count(),
+        size_weight=cost.size_weights(sizes),
+        walk_seconds=cost.walk_seconds(plan, sizes),
+    )
     out = Table(title=f"campaign {campaign.name}: plan", title_justify="left")
-    for col in ("level", "points", "cached", "to compute", "estimate (core-h)", "from"):
+    for col in ("level", "points", "cached", "to compute", "estimate (core time)", "from"):
         out.add_column(col, justify="left" if col in ("level", "from") else "right")
     for level, sub in table.groupby("level", sort=False):
         cached = int((sub["status"] != "pending").sum())
@@ -158,16 +166,21 @@ def cmd_plan(args) -> int:
             str(len(sub)),
             str(cached),
             str(len(sub) - cached),
-            "-" if est is None else f"{est['estimate_core_h']:.3g}",
+            "-" if est is None else cost.format_duration(est["estimate_s"]),
             "-" if est is None else est["source"],
         )
     console.print(out)
     n_cached = int((table["status"] != "pending").sum())
-    total_h = float(estimate["estimate_core_h"].sum()) if len(estimate) else 0.0
+    total_s = (
+        cost.total_seconds(estimate.reset_index(), table, sizes, grid_level)
+        if len(estimate)
+        else 0.0
+    )
     console.print(
         f"{len(table)} points, {n_cached} cached, {len(table) - n_cached} to compute "
         f"in {len(jobs)} jobs ({sum(len(j.batches) for j in jobs)} walks); "
-        f"about {total_h:.3g} core-hours left; store: "
+        f"about {cost.format_duration(total_s)} of core time left (each SCF shared "
+        f"by its levels counted once); store: "
         f"{campaign.store_path}",
         soft_wrap=True,
     )
@@ -227,13 +240,15 @@ def _print_status(campaign, plan, store, show_failed=10) -> tuple[int, int, int]
     return int(n.get("done", 0)), int(n.get("failed", 0)), int(n.get("pending", 0))
 
 
-def _size_weights(campaign, plan, done):
-    """Per (molecule, basis) cost weights for batching; skipped when nothing is pending."""
+def _cost_weights(campaign, plan, done):
+    """Per (molecule, basis) SCF seconds and the per-walk model seconds, for packing jobs;
+    (None, None) when nothing is pending (no PySCF import for a cached run)."""
     from pesflow.plan import cost
 
     if plan.points["key"].isin(done).all():
-        return None
-    return cost.size_weights(cost.basis_function_counts(campaign))
+        return None, None
+    sizes = cost.molecule_sizes(campaign)
+    return cost.size_weights(sizes), cost.walk_seconds(plan, sizes)
 
 
 def cmd_status(args) -> int:
@@ -264,11 +279,13 @@ def cmd_run(args) -> int:
         target_job_s = options.target_job_s or (
             packing.TARGET_JOB_S_CLUSTER if options.profile else packing.TARGET_JOB_S_LOCAL
         )
+        size_weight, walk_seconds = _cost_weights(campaign, plan, done)
         batches = packing.plan_jobs(
             plan,
             done,
             cores=args.cores or _cpu_count(),
-            size_weight=_size_weights(campaign, plan, done),
+            size_weight=size_weight,
+            walk_seconds=walk_seconds,
             target_job_s=target_job_s,
         )
         pending = set(plan.points["key"]) - done
@@ -284,7 +301,8 @@ def cmd_run(args) -> int:
             config = runner.write_tasks(
                 plan, batches, campaign.store_path, wd, options, recompute=recompute
             )
-            outcome = _run_with_progress(runner, wd, config, options, lock, store, pending)
+            costs = _point_costs(campaign, plan, pending)
+            outcome = _run_with_progress(runner, wd, config, options, lock, store, pending, costs)
             if outcome.interrupted:
                 console.print(
                     "[yellow]interrupted[/yellow]: every finished point is stored; "
@@ -304,9 +322,56 @@ def cmd_run(args) -> int:
     return EXIT_OK
 
 
-def _run_with_progress(runner, wd, config, options, lock, store, pending):
-    seen: dict[str, bool] = {}
+def _point_costs(campaign, plan, pending) -> dict[str, float]:
+    """Model seconds of each pending point (an SCF counted once per geometry), for the ETA."""
+    from pesflow.plan import cost
+
+    sizes = cost.molecule_sizes(campaign)
+    pts = plan.points[plan.points["key"].isin(pending)]
+    out = {}
+    for (mol, method, basis), sub in pts.groupby(["molecule", "method", "basis"]):
+        size = sizes.get((mol, basis), cost.Size(50))
+        cls = cost.method_class(method)
+        if cls in ("hf", "dft"):
+            seconds = cost.point_seconds(method, size)
+        else:
+            seconds = cost.step_seconds(cls, size)
+        out.update(dict.fromkeys(sub["key"], seconds))
+    return out
+
+
+def _job_progress(wd: Path) -> tuple[set[str], list[str]]:
+    """Failed keys and the walks running now, from the jobs' progress files."""
+    import json
+
+    failed, running = set(), []
+    for path in sorted((wd / "progress").glob("*.json")):
+        try:
+            content = json.loads(path.read_text())
+        except (OSError, ValueError):  # being replaced right now; next poll
+            continue
+        failed.update(content.get("failed", ()))
+        walk = content.get("running")
+        if walk:
+            running.append(f"{walk['molecule']} {', '.join(walk['levels'])}")
+    return failed, running
+
+
+def _run_with_progress(runner, wd, config, options, lock, store, pending, costs=None):
+    """Run Snakemake with a progress display.
+
+    Points are counted as they appear in the store (a directory listing, no record is
+    read); failures and the walks running now come from the jobs' progress files; the
+    ETA is the cost model's remaining work at the rate measured so far (before the
+    first point: the model's seconds over the cores).
+    """
+    from pesflow.plan.cost import format_duration
+
+    seen: set[str] = set()
     total = len(pending)
+    costs = costs or {}
+    total_work = sum(costs.values()) or float(total)
+    cores = options.cores or _cpu_count()
     start = time.monotonic()
     progress = Progress(
         TextColumn("[bold]points"),
@@ -315,36 +380,47 @@ def _run_with_progress(runner, wd, config, options, lock, store, pending):
             "{task.fields[done]} done, {task.fields[failed]} failed, {task.fields[left]} left"
         ),
         TimeElapsedColumn(),
+        TextColumn("ETA {task.fields[eta]}"),
+        TextColumn("{task.fields[running]}"),
         console=console,
         transient=False,
     )
-    task = progress.add_task("run", total=total, done=0, failed=0, left=total)
+    task = progress.add_task("run", total=total, done=0, failed=0, left=total, eta="-", running="")
     last_print = [start]
-
-    timing = {"next": 0.0, "compacted_at": 0}
+    timing = {"next": 0.0, "compacted_at": 0, "work": 0.0}
 
     def poll(force=False):
         now = time.monotonic()
         if not force and now < timing["next"]:
             return
         if store.exists():
-            keys = store.keys()
-            new = (keys & pending) - seen.keys()
-            for key in new:
-                record = store.get(key)
-                seen[key] = bool(record and record.get("converged"))
-        failed = sum(1 for ok in seen.values() if not ok)
+            new = (store.keys() & pending) - seen
+            seen.update(new)
+            timing["work"] += sum(costs.get(k, 1.0) for k in new)
+        failed_keys, running = _job_progress(wd)
+        failed = len(failed_keys & seen)
+        elapsed = now - start
+        left_work = max(total_work - timing["work"], 0.0)
+        if timing["work"] > 0 and elapsed > 5:
+            eta = format_duration(left_work * elapsed / timing["work"])
+        else:
+            eta = "~" + format_duration(left_work / max(1, cores))
+        shown = "; ".join(running[:3]) + (f" (+{len(running) - 3})" if len(running) > 3 else "")
         progress.update(
             task,
             completed=len(seen),
             done=len(seen) - failed,
             failed=failed,
             left=total - len(seen),
+            eta=eta if len(seen) < total else "-",
+            running=escape(f"running: {shown}") if shown else "",
         )
         if not console.is_terminal and time.monotonic() - last_print[0] > 30:
             last_print[0] = time.monotonic()
             console.print(
-                f"  {len(seen)}/{total} points, {failed} failed, {time.monotonic() - start:.0f} s"
+                f"  {len(seen)}/{total} points, {failed} failed, {elapsed:.0f} s, "
+                f"ETA {eta}" + (f"; running: {shown}" if shown else ""),
+                markup=False,
             )
         # Keep the fragment folder small during long runs so that listing it stays cheap;
         # compaction is safe while batches write (see pesflow.store.point_store).

@@ -134,6 +134,8 @@ def write_tasks(plan, jobs, store_root, wd: Path, options: RunOptions, recompute
     ]
     (wd / "tasks").mkdir(parents=True, exist_ok=True)
     (wd / "done").mkdir(parents=True, exist_ok=True)
+    for stale in (wd / "progress").glob("*.json"):  # the display of an earlier run
+        stale.unlink(missing_ok=True)
     for job in jobs:
         atomic_write(
             wd / "tasks" / f"{job.job_id}.json",

@@ -148,6 +148,7 @@ def plan_jobs(
     cores: int = 2,
     *,
     size_weight: dict[tuple[str, str], float] | None = None,
+    walk_seconds=None,
     target_job_s: float = TARGET_JOB_S_LOCAL,
     min_points: int = 4,
     max_points: int = 250,
@@ -157,6 +158,8 @@ def plan_jobs(
     ``size_weight`` (estimated seconds of one SCF point per (molecule, basis), from
     :func:`pesflow.plan.cost.size_weights`) makes the weights seconds; without it they
     are relative and ``target_job_s`` is read in the same relative units.
+    ``walk_seconds`` (a function of a walk, e.g. :func:`pesflow.plan.cost.walk_seconds`)
+    replaces the walks' weights by the cost model's seconds.
     """
     # whole walks (cut only above max_points geometries)
     walks = make_batches(
@@ -170,6 +173,9 @@ def plan_jobs(
     )
     if not walks:
         return []
+    if walk_seconds is not None:
+        for walk in walks:
+            walk.weight = float(walk_seconds(walk))
     total = sum(b.weight for b in walks)
     n_points = sum(len(b.entries) for b in walks)
     n_jobs = jobs_count(total, cores, max(1, n_points // min_points), target_job_s)
