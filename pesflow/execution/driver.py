@@ -209,6 +209,9 @@ def snakemake_command(wd: Path, config_path: Path, options: RunOptions) -> list[
         "--scheduler",
         "greedy",
         "--show-failed-logs",
+        # pesflow's run lock already excludes a second run; mtime triggers need no metadata
+        "--nolock",
+        "--drop-metadata",
     ]
     if options.profile:
         cmd += ["--profile", str(Path(options.profile).resolve())]

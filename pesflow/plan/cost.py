@@ -38,7 +38,7 @@ import pandas as pd
 #: Fixed cost of one small single point (integral set-up, Python), seconds.
 OVERHEAD_S = 0.01
 #: Only timings of points at least this large calibrate the model.
-MIN_CALIBRATION_NBF = 30
+MIN_CALIBRATION_NBF = 15
 
 # ---------------------------------------------------------------------------
 # Per-family cost table (one place; meant to move into the engine's method registry).
