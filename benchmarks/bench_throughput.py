@@ -282,11 +282,12 @@ def main(argv=None) -> int:
                 f"{res['ratio']:.2f}",
                 f"<= {res['goal']}",
                 verdict,
+                f"{res['pesflow_cpu_s'] / res['script_cpu_s']:.2f}",
             ]
         )
     print_table(
         f"benchmark 4: medians of {args.repeats}, wall seconds",
-        ["campaign", "careful script", "pesflow run", "ratio", "goal", ""],
+        ["campaign", "careful script", "pesflow run", "ratio", "goal", "", "CPU ratio"],
         rows,
     )
     rows = []

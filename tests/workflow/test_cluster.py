@@ -206,7 +206,9 @@ def test_interrupt_cancels_cluster_jobs(tmp_path):
     fragments = tmp_path / "store" / "fragments"
     try:
         assert _wait_for(
-            lambda: fragments.exists() and len(list(fragments.iterdir())) >= 4, timeout_s=120
+            # (dot-named files are writes in flight, not points yet)
+            lambda: fragments.exists() and len(list(fragments.glob("[!.]*.parquet"))) >= 4,
+            timeout_s=120,
         )
         pids = [int((job / "pid").read_text()) for job in state.iterdir() if (job / "pid").exists()]
         assert pids and all(alive(p) for p in pids)
