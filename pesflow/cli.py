@@ -108,9 +108,38 @@ def cmd_check(args) -> int:
         )
         scans.add_row(scan.name, coords, str(len(scan.grid())))
     console.print(scans)
+    _print_sets_and_rules(campaign)
     console.print("levels: " + ", ".join(lvl.label for lvl in campaign.levels))
     console.print(f"{len(plan.points)} points in all; nothing was computed.")
     return EXIT_OK
+
+
+#: How ``pesflow check`` words each kind of note about sets and rules.
+_NOTE_WORDS = {
+    "member": "built",
+    "refused": "refused",
+    "rule": "",
+    "no-match": "",
+    "left-out": "left out",
+}
+
+
+def _print_sets_and_rules(campaign) -> None:
+    """What each set member was built from (or why it was refused), what each rule found
+    in each molecule (or that it found nothing), and which molecules a scan left out."""
+    if not campaign.notes:
+        return
+    out = Table(title="sets and rules", title_justify="left")
+    for col in ("molecule", "scan", "what"):
+        out.add_column(col)
+    for note in campaign.notes:
+        out.add_row(
+            escape(note["molecule"]),
+            escape(note["scan"] or "-"),
+            f"{_NOTE_WORDS[note['what']]}: " * bool(_NOTE_WORDS[note["what"]])
+            + escape(note["text"]),
+        )
+    console.print(out)
 
 
 def _plan_table(plan, store, done, sample_per_curve=20):
