@@ -1024,7 +1024,7 @@ def _scan_members(name, spec: ScanSpec, groups, err) -> list[str]:
     """The molecules a scan lists, with each set and member expanded into its molecules."""
     loc = ("scans", name)
     members = {}
-    for entry, names in groups.items():
+    for names in groups.values():
         for m in names:
             member = m.rsplit("/c", 1)[0] if m.rsplit("/c", 1)[-1].isdigit() else m
             members.setdefault(member, []).append(m)
@@ -1315,7 +1315,7 @@ def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
         spec.levels, ("levels",), elements_of(default_users), err, checked_basis
     )
     union = list(campaign_levels)
-    for name, scan in scans.items():
+    for scan in scans.values():
         own = spec.scans[scan.source].levels
         if own is None:
             if not campaign_levels:
