@@ -591,6 +591,11 @@ def _float(row, key):
         return float("nan")
 
 
+def _file_name(kind, molecule, scan) -> str:
+    """A figure's file name; set members and rule scans carry ``/`` in their names."""
+    return f"{kind}-{molecule}-{scan}.png".replace("/", "_")
+
+
 def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
     """Every figure of the report, keyed ``curve:<molecule>:<scan>``,
     ``surface:<molecule>:<scan>``, ``difference:<molecule>:<scan>``,
@@ -631,7 +636,7 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
                         periodic=periodic_curve(kinds[0], q[:, 0]),
                     )
                 )
-            name = f"curve-{molecule}-{scan}.png"
+            name = _file_name("curve", molecule, scan)
             figures[f"curve:{molecule}:{scan}"] = ReportFigure(
                 name,
                 curve_figure(
@@ -663,7 +668,7 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
             )
         xlabel, ylabel = (_axis_label(k, c.label) for k, c in zip(kinds, coords))
         figures[f"surface:{molecule}:{scan}"] = ReportFigure(
-            f"surface-{molecule}-{scan}.png",
+            _file_name("surface", molecule, scan),
             surface_figure(
                 grids,
                 xlabel=xlabel,
@@ -676,7 +681,7 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
         ref = [g for g in grids if g.level == data.reference_level]
         if ref and len(grids) > 1:
             figures[f"difference:{molecule}:{scan}"] = ReportFigure(
-                f"difference-{molecule}-{scan}.png",
+                _file_name("difference", molecule, scan),
                 difference_figure(
                     grids,
                     ref[0],
