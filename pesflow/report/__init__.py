@@ -111,8 +111,8 @@ def build_report(
         ``{"html": .../report.html, "markdown": .../report.md, "figures": .../figures,
         "quantities_csv": ..., "reference_values_csv": ..., "statistics_csv": ...,
         "cost_csv": ..., "status_csv": ..., "failed_csv": ..., "pending_csv": ...,
-        "convergence_csv": ..., "summary_csv": ..., "sets_csv": ...}``.  Each file is written atomically
-        (temporary file, then rename); figures of an earlier report that are no longer
+        "convergence_csv": ..., "summary_csv": ..., "sets_csv": ...}``.  Each file is written
+        atomically (temporary file, then rename); figures of an earlier report that are no longer
         produced are removed.  Reads nothing but the arguments (and PySCF's basis-function
         counts when some method was run with two or more basis sets); computes no energies.
     """
