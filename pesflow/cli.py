@@ -162,6 +162,32 @@ def _plan_table(plan, store, done, sample_per_curve=20):
     return pts.merge(timing, on="key", how="left")
 
 
+def _print_rule_scans(campaign, table, plan, shown=12) -> None:
+    """Per scan chosen by rule: the coordinates it expanded to (by name), its molecules and
+    its points (the first ``shown`` names; the rest counted)."""
+    rule_scans = [s for s in campaign.scans.values() if s.rule]
+    if not rule_scans:
+        return
+    counts = plan.points.groupby("scan").size()
+    out = Table(title="scans chosen by rule", title_justify="left")
+    for col in ("scan", "rule", "coordinates", "molecules", "points"):
+        out.add_column(col, justify="right" if col in ("molecules", "points") else "left")
+    for source in dict.fromkeys(s.source for s in rule_scans):
+        mine = [s for s in rule_scans if s.source == source]
+        names = [s.coordinates[0].name for s in mine]
+        listed = ", ".join(names[:shown]) + (
+            f" and {len(names) - shown} more" * (len(names) > shown)
+        )
+        out.add_row(
+            escape(source),
+            mine[0].rule,
+            f"{len(names)}: {escape(listed)}",
+            str(len({m for s in mine for m in s.molecules})),
+            str(int(sum(counts.get(s.name, 0) for s in mine))),
+        )
+    console.print(out)
+
+
 def cmd_plan(args) -> int:
     from pesflow.plan import cost
     from pesflow.plan.batches import plan_jobs
@@ -191,6 +217,7 @@ def cmd_plan(args) -> int:
             "-" if est is None else est["source"],
         )
     console.print(out)
+    _print_rule_scans(campaign, table, plan)
     n_cached = int((table["status"] != "pending").sum())
     total_h = float(estimate["estimate_core_h"].sum()) if len(estimate) else 0.0
     console.print(
