@@ -1020,14 +1020,13 @@ def _check_values(kind, values, loc, err):
         raise err(loc, problem)
 
 
-def _scan_members(name, spec: ScanSpec, groups, err) -> list[str]:
-    """The molecules a scan lists, with each set and member expanded into its molecules."""
+def _scan_members(name, spec: ScanSpec, groups, molecules, err) -> list[str]:
+    """The molecules a scan lists, with each set and member expanded into its molecules
+    (a member with several conformers into one molecule per conformer)."""
     loc = ("scans", name)
-    members = {}
-    for names in groups.values():
-        for m in names:
-            member = m.rsplit("/c", 1)[0] if m.rsplit("/c", 1)[-1].isdigit() else m
-            members.setdefault(member, []).append(m)
+    members: dict[str, list[str]] = {}
+    for m in molecules.values():
+        members.setdefault(m.member, []).append(m.name)
     out = []
     for i, mname in enumerate(spec.molecules):
         if mname in groups:
@@ -1057,7 +1056,7 @@ def _resolve_scans(spec: CampaignSpec, molecules, groups, err, notes) -> dict[st
 
     scans = {}
     for name, sspec in spec.scans.items():
-        names = _scan_members(name, sspec, groups, err)
+        names = _scan_members(name, sspec, groups, molecules, err)
         cspec = sspec.coordinates[0]
         if cspec.rule is None:
             scans[name] = _resolve_scan(name, sspec, molecules, err, names, notes=notes)
@@ -1109,7 +1108,7 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err, names=None, notes=None) 
 
     loc = ("scans", name)
     if names is None:
-        names = _scan_members(name, spec, {m: [m] for m in molecules}, err)
+        names = _scan_members(name, spec, {m: [m] for m in molecules}, molecules, err)
     resolved = []
     for c, cspec in enumerate(spec.coordinates):
         cloc = loc + ("coordinates", c)

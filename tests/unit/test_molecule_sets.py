@@ -302,3 +302,16 @@ def test_conformers_are_separate_molecules_of_one_member(tmp_path):
     assert c.scans["t/O1-C2-C3-O4"].molecules == ["glycol/c1", "glycol/c2", "glycol/c3"]
     positions = [c.molecules[f"glycol/c{k}"].atoms.positions for k in (1, 2, 3)]
     assert np.abs(positions[0] - positions[1]).max() > 0.1  # different starting structures
+
+
+def test_a_scan_may_list_one_member_of_a_set(tmp_path):
+    spec = _write_set(tmp_path)
+    spec.write_text(
+        spec.read_text().replace(
+            "molecules: [survey]\n    coordinates:\n      - {type: dihedral",
+            "molecules: [survey/ethanol]\n    coordinates:\n      - {type: dihedral",
+        )
+    )
+    c = load_campaign(spec)
+    assert [s for s in c.scans if s.startswith("torsions/")] == ["torsions/C1-C2-O3-H9"]
+    assert c.scans["torsions/C1-C2-O3-H9"].molecules == ["survey/ethanol"]
