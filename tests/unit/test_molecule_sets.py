@@ -8,7 +8,7 @@ import pytest
 
 from pesflow.campaign import molecules as mol
 from pesflow.campaign.rules import coordinate_name, expand_rule
-from pesflow.campaign.spec import load_campaign
+from pesflow.campaign import load_campaign
 from pesflow.errors import SpecError
 
 

@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pesflow.campaign.spec import load_campaign
+from pesflow.campaign import load_campaign
 from pesflow.plan.expand import expand
 from pesflow.store.point_store import PointStore
 from tests.workflow.helpers import direct_energy, pesflow
