@@ -96,6 +96,11 @@ def _resolve_entry(name, spec: MoleculeSpec, base: Path, err, notes) -> dict[str
                     raise ValueError(why)
                 if not rdmol.GetConformer().Is3D():
                     raise ValueError("the record has no 3-D coordinates")
+                if any(a.GetNumImplicitHs() for a in rdmol.GetAtoms()):
+                    raise ValueError(
+                        "the record leaves hydrogens implicit; write every hydrogen with its "
+                        "3-D position (or give the set as SMILES to have them built)"
+                    )
                 stack, built = [rdmol.GetConformer().GetPositions()], f"SDF {where}"
             else:
                 read = mol.from_file(source)

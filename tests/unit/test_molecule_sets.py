@@ -6,9 +6,9 @@ import sys
 import numpy as np
 import pytest
 
+from pesflow.campaign import load_campaign
 from pesflow.campaign import molecules as mol
 from pesflow.campaign.rules import coordinate_name, expand_rule
-from pesflow.campaign import load_campaign
 from pesflow.errors import SpecError
 
 
@@ -315,3 +315,29 @@ def test_a_scan_may_list_one_member_of_a_set(tmp_path):
     c = load_campaign(spec)
     assert [s for s in c.scans if s.startswith("torsions/")] == ["torsions/C1-C2-O3-H9"]
     assert c.scans["torsions/C1-C2-O3-H9"].molecules == ["survey/ethanol"]
+
+
+def test_sdf_record_without_hydrogens_or_without_3d_is_refused_by_name(tmp_path):
+    from rdkit import Chem
+    from rdkit.Chem import AllChem
+
+    rdmol, _ = mol.embed_smiles("CCO")
+    rdmol.SetProp("_Name", "ethanol")
+    heavy = Chem.RemoveHs(rdmol)  # 3-D, but the hydrogens left implicit
+    heavy.SetProp("_Name", "no-hydrogens")
+    flat = Chem.AddHs(Chem.MolFromSmiles("CCCO"))
+    AllChem.Compute2DCoords(flat)  # 2-D drawing coordinates only
+    flat.SetProp("_Name", "flat")
+    (tmp_path / "set.sdf").write_text(
+        "".join(Chem.MolToMolBlock(m) + "$$$$\n" for m in (rdmol, heavy, flat))
+    )
+    (tmp_path / "c.yaml").write_text(
+        "campaign: sdf\nmolecules:\n  s: {sdf: set.sdf}\nscans:\n  oh:\n    molecules: [s]\n"
+        "    coordinates:\n      - {type: distance, rule: bonds-to-hydrogen, from: 0.9, to: 1.1, "
+        "points: 3}\nlevels: [{method: gfn2-xtb}]\n"
+    )
+    c = load_campaign(tmp_path / "c.yaml")
+    assert c.groups["s"] == ["s/ethanol"]
+    refused = {n["molecule"]: n["text"] for n in c.notes if n["what"] == "refused"}
+    assert "hydrogens implicit" in refused["s/no-hydrogens"]
+    assert "no 3-D coordinates" in refused["s/flat"]
