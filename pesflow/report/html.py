@@ -496,7 +496,10 @@ def _curve_sections(d: ReportData, figures) -> Markup:
                 items.append(tag("li", join([tag("strong", lvl), f" ({len(sub)}): ", text])))
             parts.append(tag("h4", f"Pending points ({len(pending)}), not computed yet"))
             parts.append(tag("ul", join(items), class_="flags"))
-        out.append(join(parts))
+        if "set" in curve and curve["set"].fillna("").iloc[0]:  # a set member's curve: folded
+            out.append(tag("details", join([tag("summary", f"{molecule}: {scan}"), *parts])))
+        else:
+            out.append(join(parts))
     return join(out)
 
 
