@@ -211,6 +211,22 @@ def test_unbuildable_member_and_ring_bond_are_left_out_by_name_not_stopping_the_
         assert text in out.stdout, text
 
 
+def test_plan_lists_what_each_rule_expanded_to(tmp_path):
+    spec = _write_set(tmp_path)
+    out = subprocess.run(
+        [sys.executable, "-m", "pesflow", "plan", str(spec)],
+        capture_output=True,
+        text=True,
+        env={"COLUMNS": "200", "PATH": "/usr/bin:/bin"},
+        timeout=120,
+    )
+    assert out.returncode == 0, out.stderr
+    row = next(line for line in out.stdout.splitlines() if "rotatable-torsions" in line)
+    # butane C1-C2-C3-C4 and ethanol C1-C2-O3-H9: two coordinates, two molecules, 6 points each
+    cells = [c.strip() for c in row.strip("│ ").split("│")]
+    assert cells == ["torsions", "rotatable-torsions", "2: C1-C2-C3-C4, C1-C2-O3-H9", "2", "12"]
+
+
 def test_strict_set_stops_at_the_first_member_that_cannot_be_built(tmp_path):
     spec = _write_set(tmp_path, strict=", strict: true")
     with pytest.raises(SpecError) as info:
