@@ -173,6 +173,18 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
         ]
     for q in d.quantities:
         lines += _quantity(d, q)
+    if not d.sets.empty:
+        lines += ["## Molecule sets and rules", ""]
+        lines += _table(
+            ["set", "rule", "level", "quantity", "molecules", "complete", "median", "min", "max"],
+            [
+                [md(r.set), md(r.rule), md(r.level), md(QUANTITY[r.quantity].title),
+                 str(r.n_molecules), f"{r.n_complete} of {r.n_curves}",
+                 *(fmt_value(v, QUANTITY[r.quantity].decimals)
+                   for v in (r.median, r.minimum, r.maximum))]
+                for r in d.sets.itertuples(index=False)
+            ],
+        )  # fmt: skip
     if d.convergence.empty:
         lines += [
             "(Basis-set convergence: left out, each method was computed with one basis set.)",

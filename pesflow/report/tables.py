@@ -24,6 +24,7 @@ from pesflow.analysis.quantities import Quantity
 from pesflow.coordinates.kinds import KINDS, UNIT_TEXT, column_names
 from pesflow.report.stats import common_curve_statistics, level_statistics
 from pesflow.tables.points import status_counts
+from pesflow.tables.summary import ENVELOPE
 
 #: The quantities the report can show, in the order it shows them (from the registry).
 QUANTITIES = tuple(q for q in ALL_QUANTITIES if q.shown)
@@ -109,6 +110,11 @@ class ReportData:
     convergence: pd.DataFrame
     totals: dict = field(default_factory=dict)
     ranking: pd.DataFrame | None = None
+    #: per set, rule, level and quantity: statistics over the set's molecules
+    #: (:func:`set_statistics`); empty when the campaign has no molecule sets
+    sets: pd.DataFrame = field(default_factory=pd.DataFrame)
+    #: the set members' summary rows behind :attr:`sets` (per-molecule detail)
+    set_members: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @property
     def complete(self) -> bool:
@@ -516,6 +522,9 @@ def collect(
                 "flags",
             ]
         )
+    sets, set_members = set_statistics(summary)
+    if "conformer" in summary:  # a lower envelope is a derived curve: sets only
+        summary = summary[summary["conformer"] != ENVELOPE].reset_index(drop=True)
     quantities, per_curve = _applicable(summary, kinds, refs)
     values = _values_table(summary, quantities, per_curve, kinds, reference_level)
     reference_values = _reference_values_table(values, refs, levels)
@@ -558,7 +567,76 @@ def collect(
         convergence=_convergence(values, campaign, basis_counts),
         totals={s: int(counts.get(s, 0)) for s in ("done", "failed", "pending")},
         ranking=_ranking(values, reference_values, levels, reference_level),
+        sets=sets,
+        set_members=set_members,
     )
+
+
+#: Columns of :func:`set_statistics`'s statistics table.
+SET_COLUMNS = (
+    "set", "rule", "level", "quantity", "n_molecules", "n_curves", "n_complete",
+    "median", "minimum", "maximum",
+)  # fmt: skip
+
+
+def set_statistics(summary: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Statistics of each molecule set, rule and level over its members, and the member rows.
+
+    Only rows of molecules from a set count; a member with several conformers counts once,
+    through its lower envelope.  For every shown curve quantity that some member has, the
+    median, minimum and maximum over the set's curves (NaN-free values only); ``n_curves``
+    counts every curve of the set and rule at that level, ``n_complete`` those with every
+    point done.  A torsion's minimum position has no statistics (its zero is a convention of
+    each molecule's four atoms).  ``rule`` is ``"atoms by number"`` for a scan that names its atoms.
+
+    Returns ``(statistics, members)``: the statistics (columns :data:`SET_COLUMNS`) and the
+    summary rows they come from, sorted by set, rule, molecule and scan.
+    """
+    empty = pd.DataFrame(columns=list(SET_COLUMNS))
+    if summary is None or summary.empty or "set" not in summary:
+        return empty, pd.DataFrame()
+    rows = summary[summary["set"].fillna("") != ""]
+    if "conformer" in rows:
+        conformer = rows["conformer"].astype(str)
+        envelope = rows[conformer == ENVELOPE]
+        covered = set(zip(envelope["molecule"], envelope["scan"], envelope["level"]))
+        member = rows["molecule"].str.replace(r"/c\d+$", "", regex=True)
+        is_conformer = conformer.str.match(r"^c\d+$")
+        replaced = [
+            c and (m, sc, lv) in covered
+            for c, m, sc, lv in zip(is_conformer, member, rows["scan"], rows["level"])
+        ]
+        rows = rows[~np.asarray(replaced, dtype=bool)]
+    if rows.empty:
+        return empty, pd.DataFrame()
+    rows = rows.assign(rule=rows["rule"].fillna("").replace("", "atoms by number"))
+    # The position of a periodic coordinate's minimum (a torsion's) differs from molecule to
+    # molecule by convention alone (which four atoms, which end of 0..360), so it has no
+    # statistics across a set.
+    quantities = [
+        q
+        for q in ALL_QUANTITIES
+        if q.curve and q.shown and q.headline and q.column in rows
+        and not (q.position_of and KINDS[q.position_of].period)
+    ]  # fmt: skip
+    out = []
+    for (set_name, rule, level), sub in rows.groupby(["set", "rule", "level"], sort=False):
+        complete = int(((sub["n_failed"] == 0) & (sub["n_pending"] == 0)).sum())
+        for q in quantities:
+            values = pd.to_numeric(sub[q.column], errors="coerce").dropna()
+            if values.empty:
+                continue
+            out.append(
+                {
+                    "set": set_name, "rule": rule, "level": level, "quantity": q.column,
+                    "n_molecules": int(sub.loc[values.index, "molecule"].nunique()),
+                    "n_curves": len(sub), "n_complete": complete,
+                    "median": float(values.median()), "minimum": float(values.min()),
+                    "maximum": float(values.max()),
+                }
+            )  # fmt: skip
+    members = rows.sort_values(["set", "rule", "molecule", "scan"], kind="stable")
+    return pd.DataFrame(out, columns=list(SET_COLUMNS)), members.reset_index(drop=True)
 
 
 def curve_arrays(campaign, points: pd.DataFrame, molecule: str, scan: str, level: str):

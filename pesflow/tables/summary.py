@@ -91,10 +91,14 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
             row = _curve_row(campaign, gs, sub, table)
         else:
             row = _surface_row(campaign, gs, sub)
+        mol, scan = campaign.molecules[gs.molecule], campaign.scans[gs.scan]
         head = {
             "campaign": campaign.name,
             "molecule": gs.molecule,
             "scan": gs.scan,
+            "set": mol.set_name,
+            "rule": scan.rule,
+            "conformer": f"c{mol.conformer}" if mol.conformer else "",
             "level": level,
             "method": sub["method"].iloc[0],
             "basis": sub["basis"].iloc[0],
@@ -106,10 +110,68 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
         }
         # The analysis counts pending points as failed too; the status is what counts here.
         rows.append({**head, **row, "n_failed": head["n_failed"]})
+    rows += _envelope_rows(campaign, plan, scans, table)
     summary = pd.DataFrame(rows)
     if summary.empty:
         return summary
     return add_deviations(summary, campaign.spec.compare.reference_level)
+
+
+#: The ``conformer`` of a summary row that is the lower envelope of a member's conformers.
+ENVELOPE = "lower envelope"
+
+
+def _envelope_rows(campaign, plan, scans, table) -> list[dict]:
+    """One row per member, 1-D scan and level whose member has several conformers: the
+    lower envelope, at each scan value the lowest energy over the conformers' curves
+    (a value no conformer has finished stays missing).  A rigid torsion scan from one
+    conformer can miss the true profile; the envelope is the best curve the set gives."""
+    by_member: dict[tuple[str, str], list] = {}
+    for gs in plan.geometry_sets:
+        mol = campaign.molecules[gs.molecule]
+        if gs.role == "scan" and mol.conformer and len(gs.coordinate_kinds) == 1:
+            by_member.setdefault((mol.member, gs.scan), []).append(gs)
+    rows = []
+    for (member, scan_name), sets in by_member.items():
+        if len(sets) < 2:
+            continue
+        first = sets[0]
+        for level, sub in scans[scans["set_id"] == first.set_id].groupby("level", sort=False):
+            sub = sub.sort_values("walk")
+            stack = []
+            for gs in sets:
+                part = scans[(scans["set_id"] == gs.set_id) & (scans["level"] == level)]
+                part = part.set_index("walk").reindex(sub["walk"])
+                stack.append(np.where(part["status"] == "done", part["energy_hartree"], np.nan))
+            stack = np.asarray(stack, dtype=float)
+            envelope = np.full(stack.shape[1], np.nan)
+            finished = np.isfinite(stack).any(axis=0)
+            envelope[finished] = np.nanmin(stack[:, finished], axis=0)
+            curve = sub.assign(
+                energy_hartree=envelope, status=np.where(finished, "done", "pending")
+            )
+            row = _curve_row(campaign, first, curve, table)
+            scan = campaign.scans[scan_name]
+            rows.append(
+                {
+                    "campaign": campaign.name,
+                    "molecule": member,
+                    "scan": scan_name,
+                    "set": campaign.molecules[first.molecule].set_name,
+                    "rule": scan.rule,
+                    "conformer": ENVELOPE,
+                    "level": level,
+                    "method": sub["method"].iloc[0],
+                    "basis": sub["basis"].iloc[0],
+                    "coordinates": ", ".join(c.label for c in scan.coordinates),
+                    **row,
+                    "n_done": int(finished.sum()),
+                    "n_failed": 0,
+                    "n_pending": int((~finished).sum()),
+                    "cost_core_s": 0.0,
+                }
+            )
+    return rows
 
 
 def _set_ids(plan, frame):
