@@ -69,8 +69,8 @@ class ReportData:
             basis, quantity, value, uncertainty, dev_reference_level, state, n_done,
             n_failed, n_pending, flags`` (``uncertainty``: the summary's standard
             uncertainty ``u_<column>``, NaN when not known; ``state``: ``value`` /
-            ``pending`` / ``failed`` / ``not determined``; ``flags``: the warnings that concern this number, joined by
-            ``" | "``).
+            ``pending`` / ``failed`` / ``not determined``; ``flags``: the warnings that
+            concern this number, joined by ``" | "``).
         reference_values: one row per user reference value x level: ``molecule, scan,
             quantity, source, reference_value, level, value, deviation``.
         statistics: :func:`~pesflow.report.stats.level_statistics` rows against the
