@@ -142,8 +142,9 @@ def summarize_curve(
     if p is not None and analysis.minimum_bracketed:
         row[position_column(kind)] = p.q
         row["e_min_hartree"] = p.energy_hartree
+    stretch = None
     if KINDS[kind].motion == "stretch":
-        _stretch_columns(
+        stretch = _stretch_columns(
             row,
             flags,
             analysis,
@@ -194,6 +195,7 @@ def summarize_curve(
                 position=position_column(kind),
                 period=period if periodic else None,
                 noise_hartree=noise,
+                extra=_level_wall_errors(row, stretch),
             )
         )
     return row
@@ -202,7 +204,7 @@ def summarize_curve(
 def _stretch_columns(row, flags, analysis, mass, diatomic, fragments, restricted, bond_breaking):
     stretch = analyze_stretch(analysis, mass)
     if stretch is None:
-        return
+        return None
     flags.extend(stretch.flags)
     row["k_hartree_bohr-2"] = stretch.k_hartree_bohr2
     row["k_mdyn_angstrom-1"] = stretch.k_mdyn_angstrom
@@ -244,6 +246,19 @@ def _stretch_columns(row, flags, analysis, mass, diatomic, fragments, restricted
                 row["d_0_ev"] = dis.d_e_ev - zpe / HARTREE_TO_CM1 * HARTREE_TO_EV
     if restricted and breaking:
         flags.append(RESTRICTED_FLAG)
+    return stretch
+
+
+def _level_wall_errors(row, stretch):
+    """Extra uncertainty components of the vibrational levels: their wall error estimate."""
+    if stretch is None or stretch.levels is None or not np.isfinite(row["zpe_cm-1"]):
+        return {}
+    wall = np.abs(np.asarray(stretch.levels.wall_error_cm1, dtype=float))
+    out = {"zpe_cm-1": float(wall[0])}
+    out["d_0_ev"] = float(wall[0]) / HARTREE_TO_CM1 * HARTREE_TO_EV
+    if np.isfinite(row["nu_01_cm-1"]) and len(wall) > 1:
+        out["nu_01_cm-1"] = float(np.hypot(wall[0], wall[1]))
+    return out
 
 
 def summarize_surface(

@@ -31,7 +31,10 @@ quadrature:
   most, and the change is taken as it is.  ``eps`` is the level's SCF energy tolerance
   (``engine.scf_energy_tolerance_hartree``); when the noise check flags noisy points (DFT
   integration-grid noise, or another SCF solution), ``eps`` is raised to the largest
-  leave-one-out residual of those points.  Analytic energies (``eps = 0``) skip this term.
+  leave-one-out residual of those points.  Analytic energies still get ``eps`` = a few
+  units in the last place of the energies (float64 rounding).
+* vibrational levels (ZPE, nu_01, D_0) add the DVR's own estimate of the shift the ends of
+  the scan cause (``wall_error_cm1`` of :func:`pesflow.analysis.vibration.vibrational_levels`).
 
 Cautions: the estimate covers the numerical error of turning scanned points into numbers,
 not the error of the electronic-structure method; a curve whose minimum is not bracketed has
@@ -123,7 +126,7 @@ def _change(nominal, other, columns):
     return out
 
 
-def combine(nominal, *, interp, ranges=(), energy=None, columns=None):
+def combine(nominal, *, interp, ranges=(), energy=None, columns=None, extra=None):
     """Uncertainty columns from re-analysed rows (see the module docstring).
 
     Args:
@@ -133,6 +136,7 @@ def combine(nominal, *, interp, ranges=(), energy=None, columns=None):
         ranges: rows with fewer points (first or last dropped); NaN entries are ignored.
         energy: the row with perturbed energies, or None (analytic energies).
         columns: quantity columns to cover (default all of :data:`UNCERTAIN` in ``nominal``).
+        extra: further components by column (the vibrational levels' wall error).
 
     Returns ``{u_<column>: value}``; NaN where the value itself is NaN or has no estimate.
     """
@@ -153,6 +157,8 @@ def combine(nominal, *, interp, ranges=(), energy=None, columns=None):
             terms.append(max(rng))
         if d_energy is not None and np.isfinite(d_energy[c]):
             terms.append(d_energy[c])
+        if extra and np.isfinite(extra.get(c, np.nan)):
+            terms.append(extra[c])
         out[uncertainty_column(c)] = float(np.sqrt(np.sum(np.square(terms))))
     return out
 
@@ -167,6 +173,7 @@ def curve_uncertainties(
     position=None,
     period=None,
     noise_hartree=0.0,
+    extra=None,
 ):
     """Uncertainty columns of one curve's summary row.
 
@@ -180,6 +187,7 @@ def curve_uncertainties(
         period: the period of a periodic curve (positions compared modulo it), else None.
         noise_hartree: energy noise amplitude ``eps`` (SCF tolerance or measured noise); at
             least the rounding of the energies (:data:`ROUNDING_ULPS` units in the last place).
+        extra: further components by column, added in quadrature.
     """
     values = np.asarray(values, dtype=float)
     energies = np.asarray(energies, dtype=float)
@@ -198,7 +206,7 @@ def curve_uncertainties(
         ranges = [run(q[1:], e[1:]), run(q[:-1], e[:-1])]
     eps = max(float(noise_hartree), rounding_hartree(e))
     energy = run(q, e + eps * alternating(e.shape))
-    return combine(nominal, interp=interp, ranges=ranges, energy=energy)
+    return combine(nominal, interp=interp, ranges=ranges, energy=energy, extra=extra)
 
 
 def rounding_hartree(energies):
