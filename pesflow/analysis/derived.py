@@ -15,7 +15,12 @@ has the same columns (:data:`SUMMARY_COLUMNS`).  ``flags`` joins the warnings an
 import numpy as np
 
 from pesflow.analysis.barriers import dissociation_energy, torsion_barrier
-from pesflow.analysis.curves import analyze_curve, covers_full_circle, noisy_points
+from pesflow.analysis.curves import (
+    analyze_curve,
+    covers_full_circle,
+    leave_one_out_residuals,
+    noisy_points,
+)
 from pesflow.analysis.flags import FLAG_SEPARATOR, Flag, flag_records, flag_text
 from pesflow.analysis.quantities import (
     BARRIER_UNITS,
@@ -164,12 +169,7 @@ def summarize_curve(
             row[col] = barrier.height(unit)
     _set_flags(row, flags)
     if uncertainties:
-        noise = float(energy_noise_hartree)
-        noisy = [f for f in flags if f.code == "noisy-points"]
-        if noisy:
-            bad, res = noisy_points(analysis.curve)
-            if bad:
-                noise = max(noise, float(np.nanmax(np.abs(res[bad]))))
+        noise = energy_noise(analysis.curve, energy_noise_hartree, flags)
         options = dict(
             reduced_mass_amu=reduced_mass_amu,
             diatomic=diatomic,
@@ -247,6 +247,30 @@ def _stretch_columns(row, flags, analysis, mass, diatomic, fragments, restricted
     if restricted and breaking:
         flags.append(RESTRICTED_FLAG)
     return stretch
+
+
+def energy_noise(curve, tolerance_hartree, flags=()):
+    """Noise amplitude of a curve's energies for the uncertainty estimate (hartree).
+
+    The SCF energy tolerance bounds how far a converged energy may be off, but a converged
+    SCF is usually much better than its threshold: the largest leave-one-out residual of the
+    curve bounds the noise from the data (a noisy point is missed by every interpolant, a
+    smooth one less and less as the degree rises; the smallest over degrees 5, 7 and 9 the
+    grid allows is taken), and the smaller of the two is used.  When the noise check flags
+    noisy points (DFT grid noise, another SCF solution), their largest residual is used
+    instead, whatever the tolerance.
+    """
+    noise = float(tolerance_hartree)
+    if any(getattr(f, "code", None) == "noisy-points" for f in flags):
+        bad, res = noisy_points(curve)
+        if bad:
+            return max(noise, float(np.nanmax(np.abs(res[bad]))))
+    if noise > 0:
+        for degree in (5, 7, 9):
+            res = leave_one_out_residuals(curve, degree)
+            if not np.all(np.isnan(res)):
+                noise = min(noise, float(np.nanmax(np.abs(res))))
+    return noise
 
 
 def _level_wall_errors(row, stretch):

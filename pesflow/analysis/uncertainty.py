@@ -29,9 +29,11 @@ quadrature:
 * ``u_energy`` (SCF convergence, DFT grid noise): the energies are perturbed by
   ``+eps, -eps, +eps, ...`` point by point, the pattern that moves curvatures and positions
   most, and the change is taken as it is.  ``eps`` is the level's SCF energy tolerance
-  (``engine.scf_energy_tolerance_hartree``); when the noise check flags noisy points (DFT
-  integration-grid noise, or another SCF solution), ``eps`` is raised to the largest
-  leave-one-out residual of those points.  Analytic energies still get ``eps`` = a few
+  (``engine.scf_energy_tolerance_hartree``) or, when smaller, the largest leave-one-out
+  residual of the curve (a converged SCF is usually far better than its threshold, and the
+  data bound the noise: :func:`pesflow.analysis.derived.energy_noise`); when the noise check
+  flags noisy points (DFT integration-grid noise, or another SCF solution), ``eps`` is the
+  largest leave-one-out residual of those points.  Analytic energies still get ``eps`` = a few
   units in the last place of the energies (float64 rounding).
 * vibrational levels (ZPE, nu_01, D_0) add the DVR's own estimate of the shift the ends of
   the scan cause (``wall_error_cm1`` of :func:`pesflow.analysis.vibration.vibrational_levels`).
