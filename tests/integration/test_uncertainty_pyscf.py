@@ -55,7 +55,12 @@ def _references(a, b, basis, r_guess):
 
 @pytest.mark.parametrize(
     ("a", "b", "basis", "r_guess"),
-    [("H", "H", "6-31g", 0.73), ("H", "F", "sto-3g", 0.95), ("Li", "H", "sto-3g", 1.51)],
+    [
+        ("H", "F", "sto-3g", 0.95),
+        # ~15 s each on a shared machine: the slow call only.
+        pytest.param("H", "H", "6-31g", 0.73, marks=pytest.mark.slow),
+        pytest.param("Li", "H", "sto-3g", 1.51, marks=pytest.mark.slow),
+    ],
 )
 def test_pyscf_diatomic_errors_lie_within_the_stated_uncertainty(a, b, basis, r_guess):
     r_e, omega, mu = _references(a, b, basis, r_guess)
