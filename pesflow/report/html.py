@@ -33,6 +33,7 @@ from pesflow.report.tables import (
     fmt_ratio,
     fmt_seconds,
     fmt_value,
+    fmt_value_u,
     scan_label,
 )
 
@@ -80,7 +81,7 @@ def note_marks(d: ReportData, flags) -> Markup:
 def _cell_text(row, q) -> Markup:
     state = row["state"]
     if state == "value":
-        return esc(fmt_value(row["value"], q.decimals))
+        return esc(fmt_value_u(row["value"], row.get("uncertainty"), q.decimals))
     if state == "not determined" and row["n_pending"]:
         return tag("span", f"not determined ({row['n_pending']} pending)", class_="missing")
     return tag("span", state, class_="missing")

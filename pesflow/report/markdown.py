@@ -21,6 +21,7 @@ from pesflow.report.tables import (
     fmt_dev,
     fmt_seconds,
     fmt_value,
+    fmt_value_u,
     scan_label,
 )
 
@@ -49,7 +50,7 @@ def _table(head, rows) -> list[str]:
 
 def _cell(row, q) -> str:
     if row["state"] == "value":
-        text = fmt_value(row["value"], q.decimals)
+        text = fmt_value_u(row["value"], row.get("uncertainty"), q.decimals)
     elif row["state"] == "not determined" and row["n_pending"]:
         text = f"*not determined ({row['n_pending']} pending)*"
     else:

@@ -20,7 +20,7 @@ import pandas as pd
 
 from pesflow.analysis.flags import FLAG_KINDS, Flag, flags_from_records
 from pesflow.analysis.quantities import QUANTITIES as ALL_QUANTITIES
-from pesflow.analysis.quantities import Quantity
+from pesflow.analysis.quantities import Quantity, uncertainty_column
 from pesflow.coordinates.kinds import KINDS, UNIT_TEXT, column_names
 from pesflow.report.stats import common_curve_statistics, level_statistics
 from pesflow.tables.points import status_counts
@@ -68,10 +68,11 @@ class ReportData:
         level_method, level_basis: method and basis of each level.
         quantities: the quantities shown, in order.
         values: one row per curve x level x quantity: ``molecule, scan, kind, level, method,
-            basis, quantity, value, dev_reference_level, state, n_done, n_failed,
-            n_pending, flags`` (``state``: ``value`` / ``pending`` / ``failed`` /
-            ``not determined``; ``flags``: the warnings that concern this number, joined by
-            ``" | "``).
+            basis, quantity, value, uncertainty, dev_reference_level, state, n_done,
+            n_failed, n_pending, flags`` (``uncertainty``: the summary's standard
+            uncertainty ``u_<column>``, NaN when not known; ``state``: ``value`` /
+            ``pending`` / ``failed`` / ``not determined``; ``flags``: the warnings that
+            concern this number, joined by ``" | "``).
         reference_values: one row per user reference value x level: ``molecule, scan,
             quantity, source, reference_value, level, value, deviation``.
         statistics: :func:`~pesflow.report.stats.level_statistics` rows against the
@@ -234,6 +235,7 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
                     "basis": row["basis"],
                     "quantity": q.column,
                     "value": value,
+                    "uncertainty": _num(row, uncertainty_column(q.column)),
                     "dev_reference_level": dev,
                     "reference_level": reference_level or "",
                     "state": _state(value, row),
@@ -252,6 +254,7 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
         "basis",
         "quantity",
         "value",
+        "uncertainty",
         "dev_reference_level",
         "reference_level",
         "state",
@@ -702,6 +705,33 @@ def fmt_value(value, decimals: int) -> str:
     except (TypeError, ValueError):
         return ""
     return f"{v:.{decimals}f}" if np.isfinite(v) else ""
+
+
+def fmt_value_u(value, uncertainty, decimals: int) -> str:
+    """A value with its standard uncertainty, compact: ``"4138.3 ± 0.4"``.
+
+    The uncertainty gets one significant figure (two when it starts with 1 or 2) and the
+    value as many decimals, at most ``decimals``; an uncertainty below the last shown decimal
+    is written with one significant figure.  Without a (finite) uncertainty: the value alone.
+
+    >>> fmt_value_u(4138.3421, 0.43, 1), fmt_value_u(4138.3421, 12.4, 1)
+    ('4138.3 ± 0.4', '4138 ± 12')
+    >>> fmt_value_u(0.916812, 3e-9, 4), fmt_value_u(1.5, float("nan"), 2)
+    ('0.9168 ± 3e-09', '1.50')
+    """
+    text = fmt_value(value, decimals)
+    try:
+        u = float(uncertainty)
+    except (TypeError, ValueError):
+        return text
+    if not text or not np.isfinite(u) or u < 0:
+        return text
+    if u < 0.5 * 10.0 ** (-decimals):
+        return f"{text} ± {u:.1g}"
+    exponent = int(np.floor(np.log10(u)))
+    digits = 2 if f"{u:.1e}"[0] in "12" else 1
+    places = min(decimals, max(0, digits - 1 - exponent))
+    return f"{float(value):.{places}f} ± {u:.{places}f}"
 
 
 def fmt_dev(value, decimals: int) -> str:

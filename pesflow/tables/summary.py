@@ -16,7 +16,8 @@ import numpy as np
 import pandas as pd
 
 from pesflow.analysis.derived import summarize_curve, summarize_surface
-from pesflow.analysis.quantities import COMPARED
+from pesflow.analysis.flags import Flag, flag_records, flag_text, flags_from_records
+from pesflow.analysis.quantities import COMPARED, QUANTITY, uncertainty_column
 from pesflow.coordinates.kinds import KINDS, column_names
 
 _RESTRICTED = {"RHF", "RKS"}
@@ -64,7 +65,10 @@ def _curve_row(campaign, gs, sub, table):
             ),
             restricted_closed_shell_reference=bool(refs) and refs <= _RESTRICTED,
         )
-    return summarize_curve(kind, sub[column].to_numpy(float), energies, **options)
+    noise = campaign.engine_settings(gs.scan).scf_energy_tolerance_hartree
+    return summarize_curve(
+        kind, sub[column].to_numpy(float), energies, energy_noise_hartree=noise, **options
+    )
 
 
 def _surface_row(campaign, gs, sub):
@@ -74,7 +78,8 @@ def _surface_row(campaign, gs, sub):
     idx = gs.grid_indices[sub["walk"].to_numpy(int)]
     done = (sub["status"] == "done").to_numpy()
     grid[idx[done, 0], idx[done, 1]] = sub["energy_hartree"].to_numpy(float)[done]
-    return summarize_surface(q1, q2, grid, kinds=gs.coordinate_kinds)
+    noise = campaign.engine_settings(gs.scan).scf_energy_tolerance_hartree
+    return summarize_surface(q1, q2, grid, kinds=gs.coordinate_kinds, energy_noise_hartree=noise)
 
 
 def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
@@ -180,17 +185,52 @@ def _set_ids(plan, frame):
 
 
 def add_deviations(summary: pd.DataFrame, reference_level: str | None) -> pd.DataFrame:
-    """Add ``dev_<column>`` = value - value at ``reference_level`` (same molecule and scan)."""
+    """Add ``dev_<column>`` = value - value at ``reference_level`` (same molecule and scan),
+    ``u_dev_<column>`` (both uncertainties in quadrature) and, where a headline deviation is
+    smaller than its uncertainty, a ``deviation-within-uncertainty`` note."""
     if not reference_level:
         return summary
     reference_level = reference_level.strip().lower()
     cols = [c for c in COMPARED if c in summary.columns]
-    ref = summary.loc[summary["level"] == reference_level, ["molecule", "scan", *cols]]
+    ucols = [uncertainty_column(c) for c in cols if uncertainty_column(c) in summary.columns]
+    ref = summary.loc[summary["level"] == reference_level, ["molecule", "scan", *cols, *ucols]]
     joined = summary[["molecule", "scan"]].merge(
-        ref.rename(columns={c: f"{c}__ref" for c in cols}), on=["molecule", "scan"], how="left"
+        ref.rename(columns={c: f"{c}__ref" for c in (*cols, *ucols)}),
+        on=["molecule", "scan"],
+        how="left",
     )
     out = summary.copy()
+    within = [[] for _ in range(len(out))]
     for c in cols:
-        out[f"dev_{c}"] = summary[c].to_numpy(float) - joined[f"{c}__ref"].to_numpy(float)
+        dev = summary[c].to_numpy(float) - joined[f"{c}__ref"].to_numpy(float)
+        out[f"dev_{c}"] = dev
+        u = uncertainty_column(c)
+        if u not in ucols:
+            continue
+        u_dev = np.hypot(summary[u].to_numpy(float), joined[f"{u}__ref"].to_numpy(float))
+        out[f"u_dev_{c}"] = u_dev
+        if not QUANTITY[c].headline:
+            continue
+        is_ref = (summary["level"] == reference_level).to_numpy()
+        with np.errstate(invalid="ignore"):
+            small = (np.abs(dev) < u_dev) & ~is_ref
+        for i in np.flatnonzero(small):
+            q = QUANTITY[c]
+            within[i].append(f"{q.name} {dev[i]:+.{q.decimals + 1}g} ± {u_dev[i]:.2g} {q.unit}")
+    if "flag_records" in out.columns and any(within):
+        texts, records = list(out["flags"]), list(out["flag_records"])
+        for i, items in enumerate(within):
+            if not items:
+                continue
+            flags = flags_from_records(records[i])
+            flags.append(
+                Flag(
+                    "deviation-within-uncertainty",
+                    f"deviation from {reference_level} smaller than the combined uncertainty "
+                    f"(not significant): {', '.join(items)}",
+                )
+            )
+            texts[i], records[i] = flag_text(flags), flag_records(flags)
+        out["flags"], out["flag_records"] = texts, records
     out["reference_level"] = reference_level
     return out
