@@ -229,6 +229,9 @@ class LevelSpec(_Strict):
 
     method: str | list[str]
     basis: str | list[str] | None = None
+    #: ``cbs``: one derived level per method, extrapolated to the complete basis set from
+    #: the two or three correlation-consistent basis sets listed (README "CBS levels")
+    extrapolate: Literal["cbs"] | None = None
 
     def pairs(self) -> list[tuple[str, str | None]]:
         methods = [self.method] if isinstance(self.method, str) else list(self.method)

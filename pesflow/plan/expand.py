@@ -230,6 +230,8 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
         gs.digests = keys.geometry_digests(gs.symbols, gs.positions)
         walks = np.arange(len(gs.digests))
         levels = {(level.method, level.basis) for level in gs.levels}
+        # A derived (CBS) level has no points of its own: its members are levels too, and
+        # the points table makes its rows from theirs (pesflow.tables.derived).
 
         def point_keys(method, basis, gs=gs, settings=settings):
             info = method_info(method)
@@ -247,7 +249,7 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
             )
             return [keys.combine(prefix, d) for d in gs.digests]
 
-        for level in gs.levels:
+        for level in (lvl for lvl in gs.levels if not lvl.members):
             columns["key"].extend(point_keys(level.method, level.basis))
             columns["set_id"].append(np.full(len(walks), gs.set_id))
             columns["walk"].append(walks)
