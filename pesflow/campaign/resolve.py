@@ -231,13 +231,39 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
         except ValueError as exc:
             raise err(loc + ("coordinates",), f"molecule '{mname}': {exc}") from None
         moving[mname] = per
+        if spec.counterpoise:
+            _check_counterpoise(spec, molecules[mname], per, loc, err)
     return Scan(
         name=name,
         molecules=list(spec.molecules),
         coordinates=resolved,
         moving=moving,
         relax=spec.relax,
+        counterpoise=spec.counterpoise,
     )
+
+
+def _check_counterpoise(spec: ScanSpec, molecule, moving, loc, err) -> None:
+    """A counterpoise scan: one distance moving one whole fragment of a two-fragment molecule."""
+    where = loc + ("counterpoise",)
+    if spec.relax:
+        raise err(where, "counterpoise needs a rigid scan (relax: false)")
+    if len(spec.coordinates) != 1 or spec.coordinates[0].type != "distance":
+        raise err(where, "counterpoise needs one distance coordinate (the fragments' separation)")
+    frags = molecule.fragments
+    if len(frags) != 2:
+        raise err(
+            where,
+            f"counterpoise needs molecule '{molecule.name}' to list 2 fragments under "
+            f"molecules.{molecule.name}.fragments (it lists {len(frags)})",
+        )
+    moved = {int(a) for a in moving[0]}
+    if moved not in ({int(a) for a in f["atoms"]} for f in frags):
+        raise err(
+            where,
+            f"counterpoise needs the scan to move one whole fragment of '{molecule.name}'; it "
+            f"moves atoms {sorted(a + 1 for a in moved)} (give move: with one fragment's atoms)",
+        )
 
 
 def _resolve_level_list(lspecs, loc, elements, err, checked) -> list[Level]:
@@ -459,6 +485,17 @@ def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
             scan.levels = _resolve_level_list(
                 own, ("scans", name, "levels"), elements_of(scan.molecules), err, checked_basis
             )
+        if scan.counterpoise:
+            from pesflow.engine import method_info
+
+            for lvl in scan.levels:
+                if not lvl.members and not method_info(lvl.method).needs_basis:
+                    where = ("scans", name, "levels") if own is not None else ("levels",)
+                    raise err(
+                        where,
+                        f"counterpoise needs levels with basis sets; {lvl.method} has a "
+                        "built-in basis (no ghost atoms)",
+                    )
         if scan.relax:
             from pesflow.engine import method_info
 

@@ -78,6 +78,8 @@ class Scan:
     levels: list[Level] = field(default_factory=list)
     #: optimise every other degree of freedom at each scan value
     relax: bool = False
+    #: each fragment also computed in the complex's full basis (ghost atoms) at each point
+    counterpoise: bool = False
 
     def grid(self) -> np.ndarray:
         """All scan points in walk order, shape (m, k): a serpentine walk for grids,

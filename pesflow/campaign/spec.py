@@ -221,6 +221,9 @@ class ScanSpec(_Strict):
     relax: bool = False
     #: engine settings of this scan only (over the campaign's), e.g. broken_symmetry
     engine: EngineSpec | None = None
+    #: counterpoise-corrected interaction curve of a complex of two fragments (README
+    #: "Counterpoise"): each fragment is also computed in the complex's basis
+    counterpoise: bool = False
 
 
 class LevelSpec(_Strict):

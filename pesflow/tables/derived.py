@@ -141,3 +141,54 @@ def _is_missing(value) -> bool:
 
 def _is_false(value) -> bool:
     return not _is_missing(value) and not bool(value)
+
+
+#: Columns of the points table on a counterpoise scan's complex rows (hartree): the
+#: uncorrected and the counterpoise-corrected interaction energy, and the BSSE (corrected
+#: minus uncorrected, positive as a rule).
+INTERACTION_TABLE_COLUMNS = ("interaction_hartree", "interaction_cp_hartree", "bsse_hartree")
+
+
+def add_interaction_columns(plan, frame: pd.DataFrame) -> pd.DataFrame:
+    """Interaction energies on the complex rows of counterpoise scans (NaN elsewhere).
+
+    ``frame`` has ``status``.  Uncorrected: the complex minus the molecule's fragments
+    (role ``fragment``, own basis) at the same level; corrected: the complex minus each
+    fragment in the complex's basis at the same point (role ``counterpoise``).  NaN where
+    any of them is not done.  (See :mod:`pesflow.analysis.interaction`.)
+    """
+    cp_sets = [gs for gs in plan.geometry_sets if gs.role == "counterpoise"]
+    if not cp_sets:
+        return frame
+    frame = frame.copy()
+    for col in INTERACTION_TABLE_COLUMNS:
+        frame[col] = np.nan
+    energy = np.where(frame["status"] == "done", frame["energy_hartree"], np.nan).astype(float)
+    frame["_e"] = energy
+    for (molecule, scan), parts in _group_cp(cp_sets).items():
+        own = frame[(frame["role"] == "fragment") & (frame["molecule"] == molecule)]
+        for level in frame.loc[frame["scan"] == scan, "level"].unique():
+            mask = (frame["scan"] == scan) & (frame["molecule"] == molecule)
+            mask &= (frame["level"] == level) & (frame["role"] == "scan")
+            ab = frame.loc[mask].set_index("walk")["_e"]
+            cp = sum(
+                frame[(frame["scan"] == name) & (frame["molecule"] == molecule)
+                      & (frame["level"] == level)].set_index("walk")["_e"].reindex(ab.index)
+                for name in parts
+            )  # fmt: skip
+            frag = own[own["level"] == level]
+            e_own = frag.groupby("scan")["_e"].first()
+            monomers = float(e_own.to_numpy().sum()) if len(e_own) == 2 else np.nan
+            idx = frame.index[mask]
+            frame.loc[idx, "interaction_hartree"] = (ab - monomers).to_numpy()
+            frame.loc[idx, "interaction_cp_hartree"] = (ab - cp).to_numpy()
+            frame.loc[idx, "bsse_hartree"] = (monomers - cp).to_numpy()
+    return frame.drop(columns="_e")
+
+
+def _group_cp(cp_sets):
+    """{(molecule, scan): [names of its counterpoise sets]}."""
+    out = {}
+    for gs in cp_sets:
+        out.setdefault((gs.molecule, gs.of_scan), []).append(gs.scan)
+    return out

@@ -10,7 +10,12 @@ import numpy as np
 import pandas as pd
 
 from pesflow.plan.expand import Plan, points_frame
-from pesflow.tables.derived import NEEDED_COLUMNS, add_derived_rows, derived_levels
+from pesflow.tables.derived import (
+    NEEDED_COLUMNS,
+    add_derived_rows,
+    add_interaction_columns,
+    derived_levels,
+)
 
 #: Columns of the exported points table, in order (coordinate columns follow ``scan``).
 LEADING = ["campaign", "molecule", "scan", "role", "level", "method", "basis", "walk"]
@@ -71,6 +76,8 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
     if derived:  # CBS levels: rows made from their members' stored energies
         frame = add_derived_rows(plan, frame)
     frame["status"] = _status_of(frame["converged"])
+    if "energy_hartree" in frame.columns:  # counterpoise scans: interaction energies per point
+        frame = add_interaction_columns(plan, frame)
     frame.insert(0, "campaign", plan.campaign)
     coord = [
         c
