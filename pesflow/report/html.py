@@ -767,6 +767,12 @@ def _missing_points(d: ReportData, figures, files) -> Markup:
 
 #: The page's sections in order: (anchor, heading, contents-line text, builder).  A builder
 #: takes ``(data, figures, files)`` and returns the section's markup.
+def _counterpoise_section(d, figures, files):
+    from pesflow.report.interaction import counterpoise_section
+
+    return counterpoise_section(d, figures, files)
+
+
 SECTIONS = (
     (
         "overview",
@@ -786,6 +792,12 @@ SECTIONS = (
         "Curves and surfaces",
         "Curves and surfaces",
         lambda d, figures, files: _curve_sections(d, figures),
+    ),
+    (
+        "counterpoise",
+        "Counterpoise-corrected interaction curves",
+        "Interaction curves",
+        lambda d, figures, files: _counterpoise_section(d, figures, files),
     ),
     ("cost", "Compute cost per level", "Compute cost", lambda d, f, x: _cost_section(d)),
     ("missing", "Missing points", "Missing points", _missing_points),
