@@ -127,3 +127,33 @@ def test_cbs_rows_are_pending_before_any_member_is_computed(tmp_path):
     assert rows["key"].str.startswith("cbs-").all()
     counts = status_counts(table)
     assert list(counts["level"]) == ["hf/cc-pvdz", "hf/cc-pvtz", "hf/cbs(cc-pvdz,cc-pvtz)"]
+
+
+def test_a_failed_member_fails_the_cbs_point_and_a_done_point_uses_the_formula():
+    import numpy as np
+
+    from pesflow.plan.expand import expand, points_frame
+    from pesflow.tables.derived import add_derived_rows
+
+    campaign = load_campaign(_write("{method: hf, basis: [cc-pvdz, cc-pvtz], extrapolate: cbs}"))
+    plan = expand(campaign, version="test")
+    frame = points_frame(plan)
+    # made-up member energies (hartree); the walk-0 cc-pVTZ point failed
+    dz, tz = -1.1280, -1.1329
+    frame["energy_hartree"] = np.where(frame["basis"] == "cc-pvdz", dz, tz)
+    frame["converged"] = pd_object([True] * len(frame))
+    frame.loc[(frame["basis"] == "cc-pvtz") & (frame["walk"] == 0), "converged"] = False
+    frame["wall_s"] = 1.0
+    out = add_derived_rows(plan, frame)
+    cbs_rows = out[out["level"] == "hf/cbs(cc-pvdz,cc-pvtz)"].sort_values("walk")
+    assert cbs_rows["converged"].tolist() == [False, True, True, True, True]
+    assert "member hf/cc-pvtz failed" in cbs_rows["error"].iloc[0]
+    expected = cbs.hf_cbs_two_point([2, 3], [dz, tz])
+    np.testing.assert_allclose(cbs_rows["energy_hartree"].iloc[1:], expected, rtol=0, atol=1e-14)
+    assert (cbs_rows["wall_s"] == 2.0).all()
+
+
+def pd_object(values):
+    import pandas as pd
+
+    return pd.Series(values, dtype="object")
