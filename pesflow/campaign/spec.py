@@ -321,6 +321,9 @@ class ScanSpec(_Strict):
     relax: bool = False
     #: engine settings of this scan only (over the campaign's), e.g. broken_symmetry
     engine: EngineSpec | None = None
+    #: counterpoise-corrected interaction curve of a complex of two fragments (README
+    #: "Counterpoise"): each fragment is also computed in the complex's basis
+    counterpoise: bool = False
 
     @model_validator(mode="after")
     def _rule_alone(self):
@@ -340,6 +343,9 @@ class LevelSpec(_Strict):
 
     method: str | list[str]
     basis: str | list[str] | None = None
+    #: ``cbs``: one derived level per method, extrapolated to the complete basis set from
+    #: the two or three correlation-consistent basis sets listed (README "CBS levels")
+    extrapolate: Literal["cbs"] | None = None
 
     def pairs(self) -> list[tuple[str, str | None]]:
         methods = [self.method] if isinstance(self.method, str) else list(self.method)
