@@ -19,6 +19,14 @@ from pesflow.analysis.curves import analyze_curve, covers_full_circle
 from pesflow.analysis.flags import FLAG_SEPARATOR, Flag, flag_records, flag_text
 from pesflow.analysis.quantities import BARRIER_UNITS, CURVE_COLUMNS, position_column
 from pesflow.analysis.surface import connecting_barrier, find_minima, find_saddles, prepare_surface
+from pesflow.analysis.symmetry import (
+    NONE,
+    Symmetry,
+    canonical_pair,
+    canonical_position,
+    curve_symmetry,
+    surface_symmetry,
+)
 from pesflow.analysis.vibration import analyze_stretch, bend_force_constants
 from pesflow.coordinates.kinds import KINDS
 from pesflow.units import HARTREE_TO_CM1, HARTREE_TO_EV, convert_energy
@@ -32,6 +40,9 @@ SUMMARY_COLUMNS = (
     "n_failed",
     "minimum_bracketed",
     *CURVE_COLUMNS,
+    "symmetry_mirror",
+    "symmetry_fold",
+    "symmetry_swap",
     "flags",
     "flag_records",
 )
@@ -56,6 +67,7 @@ def _set_flags(row, flags):
 def _empty_row():
     row = {c: float("nan") for c in SUMMARY_COLUMNS}
     row.update(n_points=0, n_failed=0, minimum_bracketed=False, flags="", flag_records="[]")
+    row.update(NONE.columns())
     return row
 
 
@@ -113,9 +125,12 @@ def summarize_curve(
         return row
     flags.extend(analysis.flags)
     row["minimum_bracketed"] = bool(analysis.minimum_bracketed)
+    symmetry = curve_symmetry(analysis.curve, analysis.spline)
+    row.update(symmetry.columns())
     p = analysis.minimum
     if p is not None and analysis.minimum_bracketed:
-        row[position_column(kind)] = p.q
+        # Equivalent minima are one: the position in its canonical form (analysis.symmetry).
+        row[position_column(kind)] = canonical_position(kind, p.q, symmetry)
         row["e_min_hartree"] = p.energy_hartree
     if KINDS[kind].motion == "stretch":
         _stretch_columns(
@@ -206,7 +221,9 @@ def summarize_surface(
     Returns a dict: ``n_points``, ``n_failed``, ``minimum_bracketed``, ``n_minima``,
     ``n_saddles``, ``q1_e_<unit>``, ``q2_e_<unit>``, ``e_min_hartree``, ``barrier_kcal_mol``,
     ``barrier_kj_mol``, ``barrier_cm-1``, ``barrier_ev`` (the highest saddle on the lowest
-    minimum-energy paths connecting all minima, above the global minimum) and ``flags``.
+    minimum-energy paths connecting all minima, above the global minimum), the symmetry
+    columns (``symmetry_swap`` for a grid with E(q1, q2) = E(q2, q1); the minimum is then
+    given with q1 <= q2) and ``flags``.
     """
     units = tuple(KINDS[k].unit for k in kinds)
     per = tuple(
@@ -223,6 +240,7 @@ def summarize_surface(
         f"q2_e_{units[1]}": float("nan"),
         "e_min_hartree": float("nan"),
         **{c: float("nan") for c in BARRIER_UNITS},
+        **surface_symmetry(q1, q2, e, kinds).columns(),
         "flags": "",
         "flag_records": "[]",
     }
@@ -252,7 +270,9 @@ def summarize_surface(
         )
     if minima:
         row["minimum_bracketed"] = not on_edge
-        row[f"q1_e_{units[0]}"], row[f"q2_e_{units[1]}"] = minima[0].q
+        row[f"q1_e_{units[0]}"], row[f"q2_e_{units[1]}"] = canonical_pair(
+            minima[0].q, Symmetry.of_row(row)
+        )
         row["e_min_hartree"] = minima[0].energy_hartree
     else:
         flags.append(Flag("no-minimum", "no bracketed minimum on the surface"))

@@ -19,7 +19,8 @@ import pandas as pd
 
 from pesflow.analysis.flags import Flag, flags_from_records
 from pesflow.analysis.quantities import QUANTITIES as ALL_QUANTITIES
-from pesflow.analysis.quantities import Quantity
+from pesflow.analysis.quantities import Quantity, deviation
+from pesflow.analysis.symmetry import Symmetry
 from pesflow.coordinates.kinds import KINDS, UNIT_TEXT, column_names
 from pesflow.report.stats import level_statistics
 from pesflow.tables.points import status_counts
@@ -221,7 +222,11 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
     return pd.DataFrame(rows, columns=columns)
 
 
-def _reference_values_table(values, reference_specs, levels):
+def _reference_values_table(values, reference_specs, levels, summary):
+    # A position is compared through its nearest equivalent under the curve's own symmetry.
+    symmetry = {
+        (r["molecule"], r["scan"], r["level"]): Symmetry.of_row(r) for _, r in summary.iterrows()
+    }
     rows = []
     for ref in reference_specs:
         sub = values[
@@ -240,7 +245,12 @@ def _reference_values_table(values, reference_specs, levels):
                     "reference_value": float(ref.value),
                     "level": level,
                     "value": v,
-                    "deviation": v - float(ref.value),
+                    "deviation": deviation(
+                        ref.quantity,
+                        v,
+                        float(ref.value),
+                        symmetry.get((ref.molecule, ref.scan, level)),
+                    ),
                 }
             )
     columns = [
@@ -457,7 +467,7 @@ def collect(
         )
     quantities, per_curve = _applicable(summary, kinds, refs)
     values = _values_table(summary, quantities, per_curve, kinds, reference_level)
-    reference_values = _reference_values_table(values, refs, levels)
+    reference_values = _reference_values_table(values, refs, levels, summary)
     statistics = _statistics(values, reference_values, levels, reference_level)
     failed, pending = _point_lists(points)
     flag_rows = [
