@@ -370,6 +370,7 @@ def _run_with_progress(runner, wd, config, options, lock, store, pending):
 def cmd_report(args) -> int:
     from pesflow.report import build_report, terminal_summary
     from pesflow.tables.points import points_table
+    from pesflow.tables.stationary import stationary_table
     from pesflow.tables.summary import summary_table
 
     campaign = _load(args.spec)
@@ -378,8 +379,9 @@ def cmd_report(args) -> int:
     points = points_table(plan, store)
     _report_quarantined(store)
     summary = summary_table(campaign, plan, points)
+    stationary = stationary_table(campaign, plan, points)
     out = Path(args.output) if args.output else campaign.results_path / "report"
-    paths = build_report(campaign, plan, points, summary, out)
+    paths = build_report(campaign, plan, points, summary, out, stationary=stationary)
     terminal_summary(campaign, summary, console, paths=paths)
     return EXIT_OK
 
@@ -407,6 +409,10 @@ def cmd_export(args) -> int:
         from pesflow.tables.summary import summary_table
 
         table = summary_table(campaign, plan, table)
+    elif args.what == "stationary":
+        from pesflow.tables.stationary import stationary_table
+
+        table = stationary_table(campaign, plan, table)
     out.parent.mkdir(parents=True, exist_ok=True)
     with atomic_path(out) as tmp:
         if fmt == "extxyz":
@@ -484,9 +490,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("-o", "--output", required=True, help="output file (.parquet or .csv)")
     p.add_argument(
         "--what",
-        choices=("points", "summary", "geometries"),
+        choices=("points", "summary", "stationary", "geometries"),
         default="points",
-        help="points table, per-curve summary, or every point's geometry",
+        help="points table, per-curve summary, every stationary point of every curve, or "
+        "every point's geometry",
     )
     p.add_argument(
         "--format",

@@ -28,11 +28,13 @@ from pesflow.report.markup import (
 from pesflow.report.stats import closest_levels
 from pesflow.report.tables import (
     QUANTITY,
+    STATIONARY_EXPLAIN,
     ReportData,
     fmt_dev,
     fmt_seconds,
     fmt_value,
     scan_label,
+    stationary_tables,
 )
 
 #: Longest lists of points written out in the page (the CSV files always list all of them).
@@ -761,6 +763,19 @@ def _files_section(d: ReportData, figures, files) -> Markup:
     )
 
 
+def _stationary_section(d: ReportData, figures, files) -> Markup:
+    tables = stationary_tables(d)
+    if not tables:
+        return tag("p", "No stationary points (no curve analysed yet).", class_="muted")
+    parts = [tag("p", STATIONARY_EXPLAIN, class_="explain")]
+    for molecule, scan, header, rows in tables:
+        parts.append(tag("h3", f"{molecule}: {scan}", id=_anchor("stationary", molecule, scan)))
+        head = [[th(h, cls=None if i < 2 else "num") for i, h in enumerate(header)]]
+        body = [[td(c, cls=None if i < 2 else "num") for i, c in enumerate(r)] for r in rows]
+        parts.append(table(head, body))
+    return join(parts)
+
+
 def _missing_points(d: ReportData, figures, files) -> Markup:
     return join([_banner(d), _missing_section(d)])
 
@@ -787,6 +802,7 @@ SECTIONS = (
         "Curves and surfaces",
         lambda d, figures, files: _curve_sections(d, figures),
     ),
+    ("stationary", "Every stationary point", "Stationary points", _stationary_section),
     ("cost", "Compute cost per level", "Compute cost", lambda d, f, x: _cost_section(d)),
     ("missing", "Missing points", "Missing points", _missing_points),
     ("files", "Files", "Files", _files_section),

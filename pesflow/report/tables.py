@@ -85,6 +85,8 @@ class ReportData:
         convergence: ``molecule, scan, quantity, method, basis, nbf, cardinal, value`` for
             every method computed with two or more basis sets.
         totals: ``done``, ``failed``, ``pending`` point counts.
+        stationary: the stationary-point table (:mod:`pesflow.tables.stationary`), one row
+            per minimum, maximum and saddle per curve and level; empty when not given.
     """
 
     campaign: str
@@ -105,6 +107,7 @@ class ReportData:
     curve_flags: pd.DataFrame
     convergence: pd.DataFrame
     totals: dict = field(default_factory=dict)
+    stationary: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @property
     def complete(self) -> bool:
@@ -428,7 +431,13 @@ def _convergence(values, campaign, basis_counts):
 
 
 def collect(
-    campaign, plan, points: pd.DataFrame, summary: pd.DataFrame, *, basis_counts=None
+    campaign,
+    plan,
+    points: pd.DataFrame,
+    summary: pd.DataFrame,
+    *,
+    basis_counts=None,
+    stationary: pd.DataFrame | None = None,
 ) -> ReportData:
     """Assemble :class:`ReportData` from the points table and the summary table.
 
@@ -440,6 +449,7 @@ def collect(
         basis_counts: optional ``{(molecule, basis): n_basis_functions}``; default: computed
             with :func:`pesflow.plan.cost.basis_function_counts`, and only when some method was
             run with two or more basis sets.
+        stationary: :func:`pesflow.tables.stationary.stationary_table` of the campaign.
 
     Nothing is computed except table arithmetic; every deviation from the reference level is
     the summary's own ``dev_<column>`` value.
@@ -506,7 +516,72 @@ def collect(
         ),
         convergence=_convergence(values, campaign, basis_counts),
         totals={s: int(counts.get(s, 0)) for s in ("done", "failed", "pending")},
+        stationary=stationary if stationary is not None else pd.DataFrame(),
     )
+
+
+#: What the stationary-point tables show, said once above them (HTML and Markdown).
+STATIONARY_EXPLAIN = (
+    "Every minimum and maximum of each curve (minima, saddles and maxima of a surface) at "
+    "each level, with its energy above the curve's global minimum. Positions are in the "
+    "canonical form of the curve's symmetry, found from the energies: a full-circle torsion "
+    "with E(φ) = E(360 − φ) is given in [0, 180] degree, an n-fold rotor in [0, 360/n) "
+    "([0, 180/n] with the mirror), a symmetric 2-D grid with q1 ≤ q2. Points equivalent by "
+    "that symmetry are one point (copies: how many the curve has). Δ: this level minus the "
+    "reference level's point of the same kind at the nearest equivalent position. "
+    "stationary.csv has every row, copies included."
+)
+#: Headers of the report's stationary-point tables (after level, kind and the position).
+STATIONARY_ENERGY_HEAD = ("E − E_min (kcal/mol)", "(kJ/mol)", "(cm⁻¹)", "(eV)")
+
+
+def stationary_tables(d: ReportData) -> list[tuple[str, str, list[str], list[list[str]]]]:
+    """The stationary points as the report shows them: per curve ``(molecule, scan, header,
+    rows)`` of text cells, one row per stationary point and level (equivalent copies folded
+    into their canonical point, counted under "copies")."""
+    st = d.stationary
+    if st is None or st.empty:
+        return []
+    out = []
+    units = ("kcal_mol", "kj_mol", "cm-1", "ev")
+    decimals = (2, 2, 1, 4)
+    for (molecule, scan), sub in st.groupby(["molecule", "scan"], sort=False):
+        position = [c for c in sub.columns if c.endswith(("_angstrom", "_degree"))]
+        position = [
+            c for c in position if not c.startswith(("found_", "dev_")) and sub[c].notna().any()
+        ]
+        header = ["level", "kind"] + [_position_head(c) for c in position]
+        header += list(STATIONARY_ENERGY_HEAD) + ["copies"]
+        ref = "reference_level" in sub and d.reference_level
+        if ref:
+            header += [f"Δ {_position_head(c)}" for c in position] + ["Δ E (kcal/mol)"]
+        rows = []
+        order = {lvl: i for i, lvl in enumerate(d.levels)}
+        sub = sub[~sub["equivalent_copy"].astype(bool)]
+        sub = sub.assign(_o=sub["level"].map(order)).sort_values(
+            ["_o", "kind", *position], kind="stable"
+        )
+        for _, r in sub.iterrows():
+            cells = [str(r["level"]), str(r["kind"])]
+            cells += [fmt_value(r[c], _decimals(c)) for c in position]
+            cells += [fmt_value(r[f"relative_{u}"], k) for u, k in zip(units, decimals)]
+            n = int(r.get("n_equivalent", 1))
+            cells.append(str(n) if n > 1 else "")
+            if ref:
+                cells += [fmt_dev(r.get(f"dev_{c}"), _decimals(c)) for c in position]
+                cells.append(fmt_dev(r.get("dev_relative_kcal_mol"), 2))
+            rows.append(cells)
+        out.append((molecule, scan, header, rows))
+    return out
+
+
+def _position_head(column: str) -> str:
+    name, unit = column.rsplit("_", 1)
+    return f"{name} ({UNIT_TEXT.get(unit, unit)})"
+
+
+def _decimals(column: str) -> int:
+    return max((k.decimals for k in KINDS.values() if column.endswith(k.unit)), default=4)
 
 
 def curve_arrays(campaign, points: pd.DataFrame, molecule: str, scan: str, level: str):

@@ -162,13 +162,19 @@ def _harmonise_level_advice(summary: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
-def _surface_row(campaign, gs, sub):
+def surface_energies(campaign, gs, sub):
+    """``(q1, q2, energies)`` of one 2-D scan at one level (NaN where not done)."""
     scan = campaign.scans[gs.scan]
     q1, q2 = (c.values for c in scan.coordinates)
     grid = np.full((len(q1), len(q2)), np.nan)
     idx = gs.grid_indices[sub["walk"].to_numpy(int)]
     done = (sub["status"] == "done").to_numpy()
     grid[idx[done, 0], idx[done, 1]] = sub["energy_hartree"].to_numpy(float)[done]
+    return q1, q2, grid
+
+
+def _surface_row(campaign, gs, sub):
+    q1, q2, grid = surface_energies(campaign, gs, sub)
     return summarize_surface(q1, q2, grid, kinds=gs.coordinate_kinds)
 
 
@@ -178,10 +184,7 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
     ``table`` is the campaign's points table (all columns).
     """
     rows = []
-    scans = table[table["role"] == "scan"]
-    scans = scans.assign(set_id=_set_ids(plan, scans))
-    for (set_id, level), sub in scans.groupby(["set_id", "level"], sort=False):
-        gs = plan.geometry_sets[int(set_id)]
+    for gs, level, sub in curve_groups(plan, table):
         if len(gs.coordinate_kinds) == 1:
             row = _curve_row(campaign, gs, sub, table)
         else:
@@ -206,6 +209,15 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
         return summary
     summary = _harmonise_level_advice(summary)
     return add_deviations(summary, campaign.spec.compare.reference_level)
+
+
+def curve_groups(plan, table: pd.DataFrame):
+    """``(geometry set, level, its scan points)`` for every curve or surface of the points
+    table, in the table's order."""
+    scans = table[table["role"] == "scan"]
+    scans = scans.assign(set_id=_set_ids(plan, scans))
+    for (set_id, level), sub in scans.groupby(["set_id", "level"], sort=False):
+        yield plan.geometry_sets[int(set_id)], level, sub
 
 
 def _set_ids(plan, frame):
