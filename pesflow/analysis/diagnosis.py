@@ -5,15 +5,17 @@ interpolant of their neighbours.  With what the points table knows beside the en
 reference's <S^2>, the SCF attempts of each point, whether the method integrates on a DFT
 grid) the cause can be told, in this order:
 
-1. ``spin-contamination-onset``: <S^2> changes by more than :data:`S2_ONSET_CHANGE` across
-   the flagged range.  The unrestricted solution starts to break the spin symmetry there
-   and the curvature changes quickly: physical, not numerical;
-2. ``scf-solution-change``: a point in the range was replaced by a lower SCF solution (the
-   stability analysis lowered it, or the walk went back and kept a lower one), the walk's
-   continuity test (:mod:`pesflow.analysis.continuity`) sees a jump there, or a point lies
-   :data:`SOLUTION_JUMP_HARTREE` or more off the interpolant of its neighbours;
-3. ``dft-grid-noise``: a DFT level with none of that evidence: the integration grid;
-4. ``noisy-points``: genuine numerical noise of the SCF.
+1. ``scf-solution-change``: a point in the range (or next to it) was replaced by a lower SCF
+   solution (the stability analysis lowered it, or the walk went back and kept a lower one),
+   or the walk's continuity test (:mod:`pesflow.analysis.continuity`) sees a jump of the
+   energy or of <S^2> between neighbours there;
+2. ``spin-contamination-onset``: else, <S^2> changes by more than :data:`S2_ONSET_CHANGE`
+   across the range.  The unrestricted solution starts to break the spin symmetry there and
+   the curvature changes quickly: physical, not numerical;
+3. ``scf-solution-change`` again: else, a point lies :data:`SOLUTION_JUMP_HARTREE` or more off
+   the interpolant of its neighbours;
+4. ``dft-grid-noise``: a DFT level with none of that evidence: the integration grid;
+5. ``noisy-points``: genuine numerical noise of the SCF.
 
 Pure functions of arrays.
 
@@ -96,15 +98,22 @@ def diagnose_noisy(
     lo, hi = min(flag.positions), max(flag.positions)
     where = f"{_fmt(lo)} {label}" if lo == hi else f"{_fmt(lo)}-{_fmt(hi)} {label}"
     idx = _range_indices(q, flag.positions)
-    if s2 is not None and idx.size:
-        s = np.asarray(s2, dtype=float)[idx]
-        ok = np.isfinite(s)
-        if ok.sum() >= 2 and np.ptp(s[ok]) > s2_change:
-            first, last = idx[ok][0], idx[ok][-1]
+    s = np.asarray(s2, dtype=float) if s2 is not None else None
+    evidence = []
+    if replaced is not None and idx.size and np.any(np.asarray(replaced, bool)[idx]):
+        evidence.append("a point there replaced another SCF solution")
+    if energies_hartree is not None and idx.size:
+        if set(suspect_points(energies_hartree, s)) & set(int(i) for i in idx):
+            evidence.append("the walk's continuity test sees a jump in the energy or <S^2>")
+    if not evidence and s is not None and idx.size:
+        ok = idx[np.isfinite(s[idx])]
+        if ok.size >= 2 and np.ptp(s[ok]) > s2_change:
+            first = ok[0]
+            far = ok[np.argmax(np.abs(s[ok] - s[first]))]
             return Flag(
                 "spin-contamination-onset",
-                f"spin-contamination onset at {where}: <S^2> goes from {s[ok][0]:.3f} at "
-                f"{_fmt(q[first])} {label} to {s[ok][-1]:.3f} at {_fmt(q[last])} {label} as "
+                f"spin-contamination onset at {where}: <S^2> goes from {s[first]:.3f} at "
+                f"{_fmt(q[first])} {label} to {s[far]:.3f} at {_fmt(q[far])} {label} as "
                 "the unrestricted solution starts to break the spin symmetry, so the curve "
                 "bends quickly there. The energies are right: this is physical, not numerical "
                 "(no SCF setting changes it). For this range consider a multireference method "
@@ -112,14 +121,7 @@ def diagnose_noisy(
                 "anharmonicity, levels, D_e) carry it",
                 flag.positions,
             )
-    evidence = []
-    if replaced is not None and idx.size and np.any(np.asarray(replaced, bool)[idx]):
-        evidence.append("a point there replaced another SCF solution")
-    if energies_hartree is not None and idx.size:
-        suspects = set(suspect_points(energies_hartree, s2))
-        if suspects & set(int(i) for i in idx):
-            evidence.append("the walk's continuity test sees a jump")
-    if residuals_hartree is not None and idx.size:
+    if not evidence and residuals_hartree is not None and idx.size:
         res = np.abs(np.asarray(residuals_hartree, dtype=float)[idx])
         if np.nanmax(res, initial=0.0) >= jump_hartree:
             evidence.append(f"a point lies {np.nanmax(res):.2g} hartree off its neighbours")

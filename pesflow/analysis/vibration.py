@@ -451,7 +451,8 @@ def range_for_levels(morse, reduced_mass_amu, *, n_levels=2, level_tol_cm1=DEFAU
 
     Estimated on the Morse fit ``morse`` (a :class:`MorseFit`): the range between its two
     turning points at the lowest energy (found by bisection, up to 0.95 D_e) at which
-    :func:`vibrational_levels` trusts ``n_levels`` levels.  None when even 0.95 D_e does not.
+    :func:`vibrational_levels` trusts ``n_levels`` levels, plus 5 % (at most 0.95 D_e).
+    None when even 0.95 D_e does not.
     """
     d, a, r_e = morse.d_e_hartree, morse.a_per_angstrom, morse.r_e_angstrom
 
@@ -480,7 +481,8 @@ def range_for_levels(morse, reduced_mass_amu, *, n_levels=2, level_tol_cm1=DEFAU
         low, high = (low, mid) if enough(mid) else (mid, high)
         if high / low < 1.02:
             break
-    lo, hi = ends(high)
+    # A margin of 5 % in energy: the fit is not the curve.
+    lo, hi = ends(min(1.05 * high, 0.95))
     return float(lo), float(hi)
 
 
