@@ -12,8 +12,9 @@ grid) the cause can be told, in this order:
 2. ``spin-contamination-onset``: else, <S^2> changes by more than :data:`S2_ONSET_CHANGE`
    across the range.  The unrestricted solution starts to break the spin symmetry there and
    the curvature changes quickly: physical, not numerical;
-3. ``scf-solution-change`` again: else, a point lies :data:`SOLUTION_JUMP_HARTREE` or more off
-   the interpolant of its neighbours;
+3. ``scf-solution-change`` again: else, a point lies :data:`SOLUTION_JUMP_HARTREE` or more
+   off the interpolant of its neighbours, and :data:`JUMP_OVER_MEDIAN` times the curve's
+   median residual;
 4. ``dft-grid-noise``: a DFT level with none of that evidence: the integration grid;
 5. ``noisy-points``: genuine numerical noise of the SCF.
 
@@ -44,6 +45,9 @@ S2_ONSET_CHANGE = 0.05
 #: A point this far (hartree) off the interpolant of its neighbours is a different SCF
 #: solution, not noise (SCF noise at conv_tol 1e-10 is far smaller; common practice).
 SOLUTION_JUMP_HARTREE = 1e-5
+#: ... and this many times the curve's median leave-one-out residual (random noise gives a
+#: largest residual a few times its median).
+JUMP_OVER_MEDIAN = 5.0
 
 _UNIT = {"angstrom": "A", "degree": "deg"}
 
@@ -122,9 +126,13 @@ def diagnose_noisy(
                 flag.positions,
             )
     if not evidence and residuals_hartree is not None and idx.size:
-        res = np.abs(np.asarray(residuals_hartree, dtype=float)[idx])
-        if np.nanmax(res, initial=0.0) >= jump_hartree:
-            evidence.append(f"a point lies {np.nanmax(res):.2g} hartree off its neighbours")
+        every = np.abs(np.asarray(residuals_hartree, dtype=float))
+        res = np.nan_to_num(every[idx])
+        typical = float(np.nanmedian(every)) if np.isfinite(every).any() else 0.0
+        # A jump stands out of the curve's own scatter; noise (amplified about tenfold by
+        # leave-one-out prediction) does not.
+        if res.max(initial=0.0) >= max(jump_hartree, JUMP_OVER_MEDIAN * typical):
+            evidence.append(f"a point lies {res.max():.2g} hartree off its neighbours")
     if evidence:
         return Flag(
             "scf-solution-change",
