@@ -46,7 +46,7 @@ S2_ONSET_CHANGE = 0.05
 #: solution, not noise (SCF noise at conv_tol 1e-10 is far smaller; common practice).
 SOLUTION_JUMP_HARTREE = 1e-5
 #: ... and this many times the curve's median leave-one-out residual (random noise gives a
-#: largest residual a few times its median).
+#: largest residual about three to four times its median; one point off its curve about eight).
 JUMP_OVER_MEDIAN = 5.0
 
 _UNIT = {"angstrom": "A", "degree": "deg"}
