@@ -178,3 +178,18 @@ def test_peroxide_mirror_minima_deviate_by_degrees_and_every_stationary_point_is
     page = (tmp_path / "report" / "report.html").read_text()
     assert 'id="stationary"' in page
     assert (tmp_path / "report" / "stationary.csv").exists()
+
+
+def test_report_shows_the_stationary_points(hydroxyl):
+    spec = hydroxyl / "campaign.yaml"
+    pesflow("report", str(spec), "-o", str(hydroxyl / "report"), check=0)
+    st = pd.read_csv(hydroxyl / "report" / "stationary.csv")
+    exported = pd.read_csv(hydroxyl / "stationary.csv")
+    pd.testing.assert_frame_equal(st, exported)
+    r_e = f"{exported.loc[exported['kind'] == 'minimum', 'r_angstrom'].iloc[0]:.4f}"
+    page = (hydroxyl / "report" / "report.html").read_text()
+    section = page[page.index('id="stationary"') :]
+    section = section[: section.index("</section>")]
+    assert r_e in section and "minimum" in section
+    markdown = (hydroxyl / "report" / "report.md").read_text()
+    assert "## Every stationary point" in markdown and r_e in markdown
