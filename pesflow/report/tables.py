@@ -442,7 +442,7 @@ def collect(
     """Assemble :class:`ReportData` from the points table and the summary table.
 
     Args:
-        campaign: the :class:`~pesflow.campaign.spec.Campaign`.
+        campaign: the :class:`~pesflow.campaign.resolved.Campaign`.
         plan: its :class:`~pesflow.plan.expand.Plan` (checked to be of the same campaign).
         points: :func:`pesflow.tables.points.points_table` of the campaign (all columns).
         summary: :func:`pesflow.tables.summary.summary_table` of the campaign.
