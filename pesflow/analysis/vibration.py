@@ -462,15 +462,18 @@ def range_for_levels(morse, reduced_mass_amu, *, n_levels=2, level_tol_cm1=DEFAU
 
     def enough(fraction):
         lo, hi = ends(fraction)
-        levels = vibrational_levels(
-            morse,
-            lo,
-            hi,
-            morse.e_min_hartree,
-            reduced_mass_amu,
-            level_tol_cm1=level_tol_cm1,
-            max_levels=n_levels + 2,
-        )
+        # A steep wall makes exp(2 kappa delta) overflow: its wall error is then zero.
+        with np.errstate(over="ignore"):
+            levels = vibrational_levels(
+                morse,
+                lo,
+                hi,
+                morse.e_min_hartree,
+                reduced_mass_amu,
+                level_tol_cm1=level_tol_cm1,
+                max_levels=n_levels + 2,
+                n_grid=256,  # enough for the few lowest levels of an estimate
+            )
         return levels.n_trusted >= n_levels
 
     low, high = 1e-4, 0.95
