@@ -558,9 +558,9 @@ def stationary_tables(d: ReportData) -> list[tuple[str, str, list[str], list[lis
         rows = []
         order = {lvl: i for i, lvl in enumerate(d.levels)}
         sub = sub[~sub["equivalent_copy"].astype(bool)]
-        sub = sub.assign(_o=sub["level"].map(order)).sort_values(
-            ["_o", "kind", *position], kind="stable"
-        )
+        kind_order = {k: i for i, k in enumerate(("minimum", "saddle", "maximum"))}
+        sub = sub.assign(_o=sub["level"].map(order), _k=sub["kind"].map(kind_order))
+        sub = sub.sort_values(["_o", "_k", *position], kind="stable")
         for _, r in sub.iterrows():
             cells = [str(r["level"]), str(r["kind"])]
             cells += [fmt_value(r[c], _decimals(c)) for c in position]
