@@ -356,7 +356,7 @@ def _cost_table(points, levels, reference_level):
             {
                 "level": level,
                 "method": sub["method"].iloc[0] if len(sub) else level.split("/")[0],
-                "basis": sub["basis"].iloc[0] if len(sub) else level.split("/", 1)[-1],
+                "basis": sub["basis"].iloc[0] if len(sub) else level.partition("/")[2],
                 "core_s": core_s,
                 "points_done": n["done"],
                 "points_failed": n["failed"],
