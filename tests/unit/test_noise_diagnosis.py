@@ -73,7 +73,7 @@ def test_a_replaced_point_is_a_change_of_scf_solution():
 def test_climbing_s2_is_spin_contamination_onset_not_noise():
     # A kink of the curvature where <S^2> starts to climb (as a UHF bond stretch does), and
     # <S^2> from 0.754 to 1.2 across it.
-    e = morse(R) - 0.03 * np.clip(R - 1.1, 0, None) ** 2
+    e = morse(R) - 0.1 * np.clip(R - 1.1, 0, None) ** 2
     s2 = 0.754 + np.clip(R - 1.1, 0, None) * 1.0
     flag, a = _noisy_flag(R, e)
     new = diagnose_noisy(flag, a.curve.q, energies_hartree=e, s2=s2, dft=False,

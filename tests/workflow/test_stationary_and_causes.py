@@ -1,8 +1,9 @@
 """Real runs: every stationary point, symmetry-aware comparisons, warnings that name their cause.
 
-* A UHF stretch of the hydroxyl radical (hf/sto-3g): where <S^2> starts to climb the curve
-  bends quickly; the analysis must call that the onset of spin contamination, not noise.
-  The stored <S^2> is checked against PySCF's own UHF at the same geometry.
+* A UMP2-on-UHF stretch of the hydroxyl radical (mp2/sto-3g): where the reference's <S^2>
+  starts to climb the curve bends quickly; the analysis must call that the onset of spin
+  contamination, not noise.  The stored energy and <S^2> are checked against PySCF's own
+  UHF and UMP2 at the same geometry.
 * A rigid H-O-O-H torsion of hydrogen peroxide at hf/6-31g* and hf/cc-pvdz (slow): the two
   levels put their lowest minimum on opposite mirror sides (about 124 and 234 degrees); the
   deviations must be a few degrees, the stationary-point table must hold the cis maximum and
@@ -29,7 +30,7 @@ scans:
     coordinates:
       - {type: distance, atoms: [1, 2], from: 0.80, to: 1.80, points: 21}
 levels:
-  - {method: hf, basis: sto-3g}
+  - {method: mp2, basis: sto-3g}
 store: store
 """
 
@@ -50,7 +51,7 @@ def hydroxyl(tmp_path_factory):
     return folder
 
 
-def test_uhf_hydroxyl_stretch_is_spin_contamination_onset_not_noise(hydroxyl):
+def test_unrestricted_hydroxyl_stretch_is_spin_contamination_onset_not_noise(hydroxyl):
     summary = pd.read_csv(hydroxyl / "summary.csv")
     flags = flags_from_records(summary["flag_records"].iloc[0])
     codes = [f.code for f in flags]
@@ -67,7 +68,7 @@ def test_uhf_hydroxyl_stretch_is_spin_contamination_onset_not_noise(hydroxyl):
 
 
 def test_stored_s2_is_pyscf_uhf_spin_square(hydroxyl):
-    from pyscf import gto, scf
+    from pyscf import gto, mp, scf
 
     points = pd.read_parquet(hydroxyl / "points.parquet")
     row = points[np.isclose(points["r_angstrom"], 1.0)].iloc[0]
@@ -75,9 +76,9 @@ def test_stored_s2_is_pyscf_uhf_spin_square(hydroxyl):
     mf = scf.UHF(mol)
     mf.conv_tol = 1e-11
     mf.kernel()
-    # Reference library: PySCF's UHF energy and spin_square at the same geometry (short of
-    # the onset there is one UHF solution).
-    assert row["energy_hartree"] == pytest.approx(mf.e_tot, abs=1e-7)
+    # Reference library: PySCF's UHF spin_square and UMP2 energy (all electrons correlated,
+    # pesflow's default) at the same geometry (short of the onset there is one UHF solution).
+    assert row["energy_hartree"] == pytest.approx(mp.UMP2(mf).run().e_tot, abs=1e-7)
     assert row["s2"] == pytest.approx(mf.spin_square()[0], abs=1e-5)
 
 
