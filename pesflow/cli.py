@@ -476,6 +476,7 @@ def _stall_grace_s() -> float:
 def cmd_report(args) -> int:
     from pesflow.report import build_report, terminal_summary
     from pesflow.tables.points import points_table
+    from pesflow.tables.stationary import stationary_table
     from pesflow.tables.summary import summary_table
 
     campaign = _load(args.spec)
@@ -484,8 +485,9 @@ def cmd_report(args) -> int:
     points = points_table(plan, store)
     _report_quarantined(store)
     summary = summary_table(campaign, plan, points)
+    stationary = stationary_table(campaign, plan, points)
     out = Path(args.output) if args.output else campaign.results_path / "report"
-    paths = build_report(campaign, plan, points, summary, out)
+    paths = build_report(campaign, plan, points, summary, out, stationary=stationary)
     terminal_summary(campaign, summary, console, paths=paths, points=points)
     return EXIT_OK
 
@@ -513,6 +515,10 @@ def cmd_export(args) -> int:
         from pesflow.tables.summary import summary_table
 
         table = summary_table(campaign, plan, table)
+    elif args.what == "stationary":
+        from pesflow.tables.stationary import stationary_table
+
+        table = stationary_table(campaign, plan, table)
     out.parent.mkdir(parents=True, exist_ok=True)
     with atomic_path(out) as tmp:
         if fmt == "extxyz":
@@ -590,9 +596,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("-o", "--output", required=True, help="output file (.parquet or .csv)")
     p.add_argument(
         "--what",
-        choices=("points", "summary", "geometries"),
+        choices=("points", "summary", "stationary", "geometries"),
         default="points",
-        help="points table, per-curve summary, or every point's geometry",
+        help="points table, per-curve summary, every stationary point of every curve, or "
+        "every point's geometry",
     )
     p.add_argument(
         "--format",

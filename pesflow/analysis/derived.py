@@ -30,6 +30,14 @@ from pesflow.analysis.quantities import (
     uncertainty_column,
 )
 from pesflow.analysis.surface import connecting_barrier, find_minima, find_saddles, prepare_surface
+from pesflow.analysis.symmetry import (
+    NONE,
+    Symmetry,
+    canonical_pair,
+    canonical_position,
+    curve_symmetry,
+    surface_symmetry,
+)
 from pesflow.analysis.uncertainty import curve_uncertainties, surface_uncertainties
 from pesflow.analysis.vibration import analyze_stretch, bend_force_constants
 from pesflow.coordinates.kinds import KINDS
@@ -46,6 +54,9 @@ SUMMARY_COLUMNS = (
     "minimum_bracketed",
     *CURVE_COLUMNS,
     *(uncertainty_column(c) for c in CURVE_COLUMNS if c in UNCERTAIN),
+    "symmetry_mirror",
+    "symmetry_fold",
+    "symmetry_swap",
     "flags",
     "flag_records",
 )
@@ -70,6 +81,7 @@ def _set_flags(row, flags):
 def _empty_row():
     row = {c: float("nan") for c in SUMMARY_COLUMNS}
     row.update(n_points=0, n_failed=0, minimum_bracketed=False, flags="", flag_records="[]")
+    row.update(NONE.columns())
     return row
 
 
@@ -143,9 +155,12 @@ def summarize_curve(
     if minima_out is not None:
         minima_out.extend(m.q for m in analysis.minima)
     row["minimum_bracketed"] = bool(analysis.minimum_bracketed)
+    symmetry = curve_symmetry(analysis.curve, analysis.spline)
+    row.update(symmetry.columns())
     p = analysis.minimum
     if p is not None and analysis.minimum_bracketed:
-        row[position_column(kind)] = p.q
+        # Equivalent minima are one: the position in its canonical form (analysis.symmetry).
+        row[position_column(kind)] = canonical_position(kind, p.q, symmetry)
         row["e_min_hartree"] = p.energy_hartree
     stretch = None
     if KINDS[kind].motion == "stretch":
@@ -311,7 +326,9 @@ def summarize_surface(
     ``n_saddles``, ``q1_e_<unit>``, ``q2_e_<unit>``, ``e_min_hartree``, ``barrier_kcal_mol``,
     ``barrier_kj_mol``, ``barrier_cm-1``, ``barrier_ev`` (the highest saddle on the lowest
     minimum-energy paths connecting all minima, above the global minimum), the standard
-    uncertainties ``u_<column>`` of the positions, E_min and barriers, and ``flags``.
+    uncertainties ``u_<column>`` of the positions, E_min and barriers, the symmetry
+    columns (``symmetry_swap`` for a grid with E(q1, q2) = E(q2, q1); the minimum is then
+    given with q1 <= q2) and ``flags``.
     """
     units = tuple(KINDS[k].unit for k in kinds)
     per = tuple(
@@ -328,6 +345,7 @@ def summarize_surface(
         f"q2_e_{units[1]}": float("nan"),
         "e_min_hartree": float("nan"),
         **{c: float("nan") for c in BARRIER_UNITS},
+        **surface_symmetry(q1, q2, e, kinds).columns(),
         "flags": "",
         "flag_records": "[]",
     }
@@ -359,7 +377,9 @@ def summarize_surface(
         )
     if minima:
         row["minimum_bracketed"] = not on_edge
-        row[f"q1_e_{units[0]}"], row[f"q2_e_{units[1]}"] = minima[0].q
+        row[f"q1_e_{units[0]}"], row[f"q2_e_{units[1]}"] = canonical_pair(
+            minima[0].q, Symmetry.of_row(row)
+        )
         row["e_min_hartree"] = minima[0].energy_hartree
     else:
         flags.append(Flag("no-minimum", "no bracketed minimum on the surface"))

@@ -182,6 +182,25 @@ BARRIER_UNITS: dict[str, str] = {
 }
 
 
+def deviation(column: str, value: float, reference: float, symmetry=None) -> float:
+    """``value - reference`` of a quantity; a position of a periodic coordinate kind is
+    compared with the equivalent of ``reference`` nearest to it under ``symmetry`` (a
+    :class:`pesflow.analysis.symmetry.Symmetry` both curves have; None: only the period).
+
+    >>> from pesflow.analysis.symmetry import Symmetry
+    >>> round(deviation("dihedral_e_degree", 123.9, 240.2, Symmetry(mirror=True)), 6)
+    4.1
+    >>> deviation("r_e_angstrom", 1.5, 1.0)
+    0.5
+    """
+    from pesflow.analysis.symmetry import NONE, position_deviation
+
+    q = QUANTITY.get(column)
+    if q is None or q.position_of is None:
+        return float(value) - float(reference)
+    return position_deviation(q.position_of, float(value), float(reference), symmetry or NONE)
+
+
 def position_column(kind: str) -> str:
     """Summary column of the minimum's position of a curve of that coordinate kind."""
     return KINDS[kind].minimum_column

@@ -28,6 +28,7 @@ from pesflow.report.markup import (
 from pesflow.report.stats import closest_levels
 from pesflow.report.tables import (
     QUANTITY,
+    STATIONARY_EXPLAIN,
     ReportData,
     fmt_dev,
     fmt_ratio,
@@ -35,6 +36,7 @@ from pesflow.report.tables import (
     fmt_value,
     fmt_value_u,
     scan_label,
+    stationary_tables,
 )
 
 #: Longest lists of points written out in the page (the CSV files always list all of them).
@@ -826,6 +828,19 @@ def _files_section(d: ReportData, figures, files) -> Markup:
     )
 
 
+def _stationary_section(d: ReportData, figures, files) -> Markup:
+    tables = stationary_tables(d)
+    if not tables:
+        return tag("p", "No stationary points (no curve analysed yet).", class_="muted")
+    parts = [tag("p", STATIONARY_EXPLAIN, class_="explain")]
+    for molecule, scan, header, rows in tables:
+        parts.append(tag("h3", f"{molecule}: {scan}", id=_anchor("stationary", molecule, scan)))
+        head = [[th(h, cls=None if i < 2 else "num") for i, h in enumerate(header)]]
+        body = [[td(c, cls=None if i < 2 else "num") for i, c in enumerate(r)] for r in rows]
+        parts.append(table(head, body))
+    return join(parts)
+
+
 def _missing_points(d: ReportData, figures, files) -> Markup:
     return join([_banner(d), _missing_section(d)])
 
@@ -913,6 +928,7 @@ SECTIONS = (
         "Interaction curves",
         lambda d, figures, files: _counterpoise_section(d, figures, files),
     ),
+    ("stationary", "Every stationary point", "Stationary points", _stationary_section),
     ("notes", "Notes: warnings of the analysis", "Notes", _notes_section),
     ("cost", "Compute cost per level", "Compute cost", lambda d, f, x: _cost_section(d)),
     ("missing", "Missing points", "Missing points", _missing_points),

@@ -17,12 +17,14 @@ import numpy as np
 from pesflow.report.stats import closest_levels
 from pesflow.report.tables import (
     QUANTITY,
+    STATIONARY_EXPLAIN,
     ReportData,
     fmt_dev,
     fmt_seconds,
     fmt_value,
     fmt_value_u,
     scan_label,
+    stationary_tables,
 )
 
 #: Characters Markdown would read as markup in user text: a backslash before ASCII punctuation,
@@ -126,6 +128,18 @@ def _quantity(d: ReportData, q) -> list[str]:
     return lines
 
 
+def _stationary(d: ReportData) -> list[str]:
+    lines = ["## Every stationary point", ""]
+    tables = stationary_tables(d)
+    if not tables:
+        return lines + ["*No stationary points (no curve analysed yet).*", ""]
+    lines += [STATIONARY_EXPLAIN, ""]
+    for molecule, scan, header, rows in tables:
+        lines += [f"### {md(molecule)}: {md(scan)}", ""]
+        lines += _table([md(h) for h in header], [[md(c) for c in r] for r in rows])
+    return lines
+
+
 def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -> str:
     """The Markdown summary.  ``figure_files``: ``{figure key: relative PNG path}``."""
     t = d.totals
@@ -218,6 +232,7 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
             lines.append(f"- [{note['n']}] {md(note['title'])}: {md(', '.join(lvls))}")
         if len(flags):
             lines.append("")
+    lines += _stationary(d)
     if d.notes:
         lines += [
             "## Notes",

@@ -20,7 +20,8 @@ import pandas as pd
 
 from pesflow.analysis.flags import FLAG_KINDS, Flag, flags_from_records
 from pesflow.analysis.quantities import QUANTITIES as ALL_QUANTITIES
-from pesflow.analysis.quantities import Quantity, uncertainty_column
+from pesflow.analysis.quantities import Quantity, deviation, uncertainty_column
+from pesflow.analysis.symmetry import Symmetry
 from pesflow.coordinates.kinds import KINDS, UNIT_TEXT, column_names
 from pesflow.report.stats import common_curve_statistics, level_statistics
 from pesflow.tables.points import status_counts
@@ -90,6 +91,8 @@ class ReportData:
         ranking: :func:`~pesflow.report.stats.common_curve_statistics` rows (against the
             reference level and the reference values): the statistics the "closest level"
             verdict ranks on, over the curves every compared level has.
+        stationary: the stationary-point table (:mod:`pesflow.tables.stationary`), one row
+            per minimum, maximum and saddle per curve and level; empty when not given.
     """
 
     campaign: str
@@ -116,6 +119,7 @@ class ReportData:
     sets: pd.DataFrame = field(default_factory=pd.DataFrame)
     #: the set members' summary rows behind :attr:`sets` (per-molecule detail)
     set_members: pd.DataFrame = field(default_factory=pd.DataFrame)
+    stationary: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @property
     def complete(self) -> bool:
@@ -266,7 +270,11 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
     return pd.DataFrame(rows, columns=columns)
 
 
-def _reference_values_table(values, reference_specs, levels):
+def _reference_values_table(values, reference_specs, levels, summary):
+    # A position is compared through its nearest equivalent under the curve's own symmetry.
+    symmetry = {
+        (r["molecule"], r["scan"], r["level"]): Symmetry.of_row(r) for _, r in summary.iterrows()
+    }
     rows = []
     for ref in reference_specs:
         sub = values[
@@ -285,7 +293,12 @@ def _reference_values_table(values, reference_specs, levels):
                     "reference_value": float(ref.value),
                     "level": level,
                     "value": v,
-                    "deviation": v - float(ref.value),
+                    "deviation": deviation(
+                        ref.quantity,
+                        v,
+                        float(ref.value),
+                        symmetry.get((ref.molecule, ref.scan, level)),
+                    ),
                 }
             )
     columns = [
@@ -490,7 +503,13 @@ def _convergence(values, campaign, basis_counts):
 
 
 def collect(
-    campaign, plan, points: pd.DataFrame, summary: pd.DataFrame, *, basis_counts=None
+    campaign,
+    plan,
+    points: pd.DataFrame,
+    summary: pd.DataFrame,
+    *,
+    basis_counts=None,
+    stationary: pd.DataFrame | None = None,
 ) -> ReportData:
     """Assemble :class:`ReportData` from the points table and the summary table.
 
@@ -502,6 +521,7 @@ def collect(
         basis_counts: optional ``{(molecule, basis): n_basis_functions}``; default: computed
             with :func:`pesflow.plan.cost.basis_function_counts`, and only when some method was
             run with two or more basis sets.
+        stationary: :func:`pesflow.tables.stationary.stationary_table` of the campaign.
 
     Nothing is computed except table arithmetic; every deviation from the reference level is
     the summary's own ``dev_<column>`` value.
@@ -532,7 +552,7 @@ def collect(
         summary = summary[summary["conformer"] != ENVELOPE].reset_index(drop=True)
     quantities, per_curve = _applicable(summary, kinds, refs)
     values = _values_table(summary, quantities, per_curve, kinds, reference_level)
-    reference_values = _reference_values_table(values, refs, levels)
+    reference_values = _reference_values_table(values, refs, levels, summary)
     statistics = _statistics(values, reference_values, levels, reference_level)
     failed, pending = _point_lists(points)
     flag_rows = [
@@ -574,6 +594,7 @@ def collect(
         ranking=_ranking(values, reference_values, levels, reference_level),
         sets=sets,
         set_members=set_members,
+        stationary=stationary if stationary is not None else pd.DataFrame(),
     )
 
 
@@ -642,6 +663,70 @@ def set_statistics(summary: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
             )  # fmt: skip
     members = rows.sort_values(["set", "rule", "molecule", "scan"], kind="stable")
     return pd.DataFrame(out, columns=list(SET_COLUMNS)), members.reset_index(drop=True)
+
+
+#: What the stationary-point tables show, said once above them (HTML and Markdown).
+STATIONARY_EXPLAIN = (
+    "Every minimum and maximum of each curve (minima, saddles and maxima of a surface) at "
+    "each level, with its energy above the curve's global minimum. Positions are in the "
+    "canonical form of the curve's symmetry, found from the energies: a full-circle torsion "
+    "with E(φ) = E(360 − φ) is given in [0, 180] degree, an n-fold rotor in [0, 360/n) "
+    "([0, 180/n] with the mirror), a symmetric 2-D grid with q1 ≤ q2. Points equivalent by "
+    "that symmetry are one point (copies: how many the curve has). Δ: this level minus the "
+    "reference level's point of the same kind at the nearest equivalent position. "
+    "stationary.csv has every row, copies included."
+)
+#: Headers of the report's stationary-point tables (after level, kind and the position).
+STATIONARY_ENERGY_HEAD = ("E − E_min (kcal/mol)", "(kJ/mol)", "(cm⁻¹)", "(eV)")
+
+
+def stationary_tables(d: ReportData) -> list[tuple[str, str, list[str], list[list[str]]]]:
+    """The stationary points as the report shows them: per curve ``(molecule, scan, header,
+    rows)`` of text cells, one row per stationary point and level (equivalent copies folded
+    into their canonical point, counted under "copies")."""
+    st = d.stationary
+    if st is None or st.empty:
+        return []
+    out = []
+    units = ("kcal_mol", "kj_mol", "cm-1", "ev")
+    decimals = (2, 2, 1, 4)
+    for (molecule, scan), sub in st.groupby(["molecule", "scan"], sort=False):
+        position = [c for c in sub.columns if c.endswith(("_angstrom", "_degree"))]
+        position = [
+            c for c in position if not c.startswith(("found_", "dev_")) and sub[c].notna().any()
+        ]
+        header = ["level", "kind"] + [_position_head(c) for c in position]
+        header += list(STATIONARY_ENERGY_HEAD) + ["copies"]
+        ref = "reference_level" in sub and d.reference_level
+        if ref:
+            header += [f"Δ {_position_head(c)}" for c in position] + ["Δ E (kcal/mol)"]
+        rows = []
+        order = {lvl: i for i, lvl in enumerate(d.levels)}
+        sub = sub[~sub["equivalent_copy"].astype(bool)]
+        kind_order = {k: i for i, k in enumerate(("minimum", "saddle", "maximum"))}
+        sub = sub.assign(_o=sub["level"].map(order), _k=sub["kind"].map(kind_order))
+        sub = sub.sort_values(["_o", "_k", *position], kind="stable")
+        for _, r in sub.iterrows():
+            cells = [str(r["level"]), str(r["kind"])]
+            cells += [fmt_value(r[c], _decimals(c)) for c in position]
+            cells += [fmt_value(r[f"relative_{u}"], k) for u, k in zip(units, decimals)]
+            n = int(r.get("n_equivalent", 1))
+            cells.append(str(n) if n > 1 else "")
+            if ref:
+                cells += [fmt_dev(r.get(f"dev_{c}"), _decimals(c)) for c in position]
+                cells.append(fmt_dev(r.get("dev_relative_kcal_mol"), 2))
+            rows.append(cells)
+        out.append((molecule, scan, header, rows))
+    return out
+
+
+def _position_head(column: str) -> str:
+    name, unit = column.rsplit("_", 1)
+    return f"{name} ({UNIT_TEXT.get(unit, unit)})"
+
+
+def _decimals(column: str) -> int:
+    return max((k.decimals for k in KINDS.values() if column.endswith(k.unit)), default=4)
 
 
 def curve_arrays(campaign, points: pd.DataFrame, molecule: str, scan: str, level: str):

@@ -12,13 +12,20 @@ the reference level, same molecule and scan).
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 
+from pesflow.analysis.curves import covers_full_circle, leave_one_out_residuals, prepare_curve
 from pesflow.analysis.derived import summarize_curve, summarize_surface
+from pesflow.analysis.diagnosis import SOLUTION_JUMP_HARTREE, diagnose_noisy
 from pesflow.analysis.flags import Flag, flag_records, flag_text, flags_from_records
-from pesflow.analysis.quantities import COMPARED, QUANTITY, uncertainty_column
+from pesflow.analysis.quantities import COMPARED, QUANTITY, deviation, uncertainty_column
+from pesflow.analysis.symmetry import Symmetry, pair_deviation
+from pesflow.analysis.vibration import few_levels_flag
 from pesflow.coordinates.kinds import KINDS, column_names
+from pesflow.engine import method_info
 
 _RESTRICTED = {"RHF", "RKS"}
 
@@ -66,9 +73,96 @@ def _curve_row(campaign, gs, sub, table):
             restricted_closed_shell_reference=bool(refs) and refs <= _RESTRICTED,
         )
     noise = campaign.engine_settings(gs.scan).scf_energy_tolerance_hartree
-    return summarize_curve(
+    row = summarize_curve(
         kind, sub[column].to_numpy(float), energies, energy_noise_hartree=noise, **options
     )
+    _diagnose(row, sub, column, kind)
+    return row
+
+
+def _replaced(attempts_json) -> bool:
+    """Whether a point's stored solution replaced another one (by 1e-5 hartree or more)."""
+    if not isinstance(attempts_json, str) or not attempts_json:
+        return False
+    for a in json.loads(attempts_json):
+        lowered = a.get("energy_lowered_hartree") or 0.0
+        if a.get("rung") == "backward-walk":
+            lowered = a.get("replaced_energy_hartree", np.nan) - a.get("energy_hartree", np.nan)
+        if np.isfinite(lowered) and lowered >= SOLUTION_JUMP_HARTREE:
+            return True
+    return False
+
+
+def _diagnose(row, sub, column, kind):
+    """Name the cause of a ``noisy-points`` flag from what the points know beside the energy
+    (<S^2>, SCF attempts, DFT grid): :func:`pesflow.analysis.diagnosis.diagnose_noisy`."""
+    flags = flags_from_records(row["flag_records"])
+    if not any(f.code == "noisy-points" for f in flags):
+        return
+    done = sub[sub["status"] == "done"]
+    values = done[column].to_numpy(float)
+    periodic = KINDS[kind].period is not None and covers_full_circle(values)
+    curve = prepare_curve(
+        values, done["energy_hartree"].to_numpy(float), periodic=periodic, unit=KINDS[kind].unit
+    )
+    q = KINDS[kind].fold if curve.periodic else (lambda x: x)
+    order = np.argsort([q(float(x)) for x in done[column]], kind="stable")
+    done = done.iloc[order]
+    s2 = pd.to_numeric(done["s2"], errors="coerce").to_numpy(float) if "s2" in done else None
+    replaced = (
+        done["attempts_json"].map(_replaced).to_numpy(bool) if "attempts_json" in done else None
+    )
+    info = method_info(str(done["method"].iloc[0])) if len(done) else None
+    dft = info is not None and "grid_level" in info.settings
+    residuals = leave_one_out_residuals(curve)
+    same = len(residuals) == len(done)
+    new = [
+        diagnose_noisy(
+            f,
+            curve.q,
+            energies_hartree=curve.energy_hartree if same else None,
+            s2=s2 if same else None,
+            replaced=replaced if same else None,
+            residuals_hartree=residuals,
+            dft=dft,
+            unit=KINDS[kind].unit,
+        )
+        for f in flags
+    ]
+    row["flags"], row["flag_records"] = flag_text(new), flag_records(new)
+
+
+def _harmonise_level_advice(summary: pd.DataFrame) -> pd.DataFrame:
+    """One range advice per curve: a scan too short for two vibrational levels gets, at
+    every level it concerns, the same advice (the widest range any level needs), so that the
+    direction never changes between levels."""
+    if "flag_records" not in summary:
+        return summary
+    out = summary.copy()
+    for _, sub in out.groupby(["molecule", "scan"], sort=False):
+        needed = [
+            f.positions
+            for text in sub["flag_records"]
+            for f in flags_from_records(text)
+            if f.code == "few-vibrational-levels" and len(f.positions) == 4
+        ]
+        if len(needed) < 2:
+            continue
+        lo, hi = min(p[0] for p in needed), max(p[1] for p in needed)
+        for i in sub.index:
+            flags = flags_from_records(out.at[i, "flag_records"])
+            if not any(f.code == "few-vibrational-levels" for f in flags):
+                continue
+            trusted = out.at[i, "n_levels_trusted"]
+            trusted = int(trusted) if np.isfinite(trusted) else 0
+            new = [
+                few_levels_flag(trusted, f.positions[2], f.positions[3], lo, hi)
+                if f.code == "few-vibrational-levels" and len(f.positions) == 4
+                else f
+                for f in flags
+            ]
+            out.at[i, "flags"], out.at[i, "flag_records"] = flag_text(new), flag_records(new)
+    return out
 
 
 def _interaction_row(gs, sub):
@@ -84,13 +178,19 @@ def _interaction_row(gs, sub):
     )
 
 
-def _surface_row(campaign, gs, sub):
+def surface_energies(campaign, gs, sub):
+    """``(q1, q2, energies)`` of one 2-D scan at one level (NaN where not done)."""
     scan = campaign.scans[gs.scan]
     q1, q2 = (c.values for c in scan.coordinates)
     grid = np.full((len(q1), len(q2)), np.nan)
     idx = gs.grid_indices[sub["walk"].to_numpy(int)]
     done = (sub["status"] == "done").to_numpy()
     grid[idx[done, 0], idx[done, 1]] = sub["energy_hartree"].to_numpy(float)[done]
+    return q1, q2, grid
+
+
+def _surface_row(campaign, gs, sub):
+    q1, q2, grid = surface_energies(campaign, gs, sub)
     noise = campaign.engine_settings(gs.scan).scf_energy_tolerance_hartree
     return summarize_surface(q1, q2, grid, kinds=gs.coordinate_kinds, energy_noise_hartree=noise)
 
@@ -134,6 +234,7 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
     summary = pd.DataFrame(rows)
     if summary.empty:
         return summary
+    summary = _harmonise_level_advice(summary)
     return add_deviations(summary, campaign.spec.compare.reference_level)
 
 
@@ -194,6 +295,15 @@ def _envelope_rows(campaign, plan, scans, table) -> list[dict]:
     return rows
 
 
+def curve_groups(plan, table: pd.DataFrame):
+    """``(geometry set, level, its scan points)`` for every curve or surface of the points
+    table, in the table's order."""
+    scans = table[table["role"] == "scan"]
+    scans = scans.assign(set_id=_set_ids(plan, scans))
+    for (set_id, level), sub in scans.groupby(["set_id", "level"], sort=False):
+        yield plan.geometry_sets[int(set_id)], level, sub
+
+
 def _set_ids(plan, frame):
     lookup = {(gs.molecule, gs.scan): gs.set_id for gs in plan.geometry_sets}
     return [lookup[(m, s)] for m, s in zip(frame["molecule"], frame["scan"])]
@@ -202,31 +312,53 @@ def _set_ids(plan, frame):
 def add_deviations(summary: pd.DataFrame, reference_level: str | None) -> pd.DataFrame:
     """Add ``dev_<column>`` = value - value at ``reference_level`` (same molecule and scan),
     ``u_dev_<column>`` (both uncertainties in quadrature) and, where a headline deviation is
-    smaller than its uncertainty, a ``deviation-within-uncertainty`` note."""
+    smaller than its uncertainty, a ``deviation-within-uncertainty`` note.
+
+    Positions are compared through their nearest equivalent under the symmetry both curves
+    have (:func:`pesflow.analysis.quantities.deviation`; the two mirror-image minima of a
+    torsion are one minimum), and a 2-D minimum through the q1 <-> q2 swap when both grids
+    have it (:func:`pesflow.analysis.symmetry.pair_deviation`).
+    """
     if not reference_level:
         return summary
     reference_level = reference_level.strip().lower()
     cols = [c for c in COMPARED if c in summary.columns]
     ucols = [uncertainty_column(c) for c in cols if uncertainty_column(c) in summary.columns]
-    ref = summary.loc[summary["level"] == reference_level, ["molecule", "scan", *cols, *ucols]]
-    joined = summary[["molecule", "scan"]].merge(
-        ref.rename(columns={c: f"{c}__ref" for c in (*cols, *ucols)}),
-        on=["molecule", "scan"],
-        how="left",
-    )
+    refs = {
+        (r["molecule"], r["scan"]): r
+        for _, r in summary[summary["level"] == reference_level].iterrows()
+    }
+    devs = {c: np.full(len(summary), np.nan) for c in cols}
+    u_refs = {u: np.full(len(summary), np.nan) for u in ucols}
+    for i, (_, row) in enumerate(summary.iterrows()):
+        ref = refs.get((row["molecule"], row["scan"]))
+        if ref is None:
+            continue
+        symmetry = Symmetry.of_row(row).common(Symmetry.of_row(ref))
+        for c in cols:
+            devs[c][i] = deviation(c, _float(row.get(c)), _float(ref.get(c)), symmetry)
+        for u in ucols:
+            u_refs[u][i] = _float(ref.get(u))
+        for unit in dict.fromkeys(k.unit for k in KINDS.values()):
+            pair = (f"q1_e_{unit}", f"q2_e_{unit}")
+            if symmetry.swap and all(p in devs for p in pair):
+                d1, d2 = pair_deviation(
+                    [_float(row.get(p)) for p in pair], [_float(ref.get(p)) for p in pair], symmetry
+                )
+                devs[pair[0]][i], devs[pair[1]][i] = d1, d2
     out = summary.copy()
     within = [[] for _ in range(len(out))]
+    is_ref = (summary["level"] == reference_level).to_numpy()
     for c in cols:
-        dev = summary[c].to_numpy(float) - joined[f"{c}__ref"].to_numpy(float)
+        dev = devs[c]
         out[f"dev_{c}"] = dev
         u = uncertainty_column(c)
         if u not in ucols:
             continue
-        u_dev = np.hypot(summary[u].to_numpy(float), joined[f"{u}__ref"].to_numpy(float))
+        u_dev = np.hypot(summary[u].to_numpy(float), u_refs[u])
         out[f"u_dev_{c}"] = u_dev
         if not QUANTITY[c].headline:
             continue
-        is_ref = (summary["level"] == reference_level).to_numpy()
         with np.errstate(invalid="ignore"):
             small = (np.abs(dev) < u_dev) & ~is_ref
         for i in np.flatnonzero(small):
@@ -249,3 +381,10 @@ def add_deviations(summary: pd.DataFrame, reference_level: str | None) -> pd.Dat
         out["flags"], out["flag_records"] = texts, records
     out["reference_level"] = reference_level
     return out
+
+
+def _float(value) -> float:
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return float("nan")
