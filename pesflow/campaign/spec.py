@@ -221,12 +221,38 @@ class ScanSpec(_Strict):
     engine: EngineSpec | None = None
 
 
+class ActiveLabelsSpec(_Strict):
+    """An active space chosen by PySCF's AVAS from atomic-orbital labels."""
+
+    ao_labels: list[str] = Field(min_length=1)
+
+
 class LevelSpec(_Strict):
     """Levels of theory: every method with every basis set listed.  A tight-binding
-    level (``gfn2-xtb``, ``gfn1-xtb``) has its own basis and is given without one."""
+    level (``gfn2-xtb``, ``gfn1-xtb``) has its own basis and is given without one.
+
+    Level options (:data:`pesflow.engine.LEVEL_OPTIONS`) apply to every method listed
+    that takes them and become part of its name (``casscf(6,6)``); a method that takes
+    none refuses them."""
 
     method: str | list[str]
     basis: str | list[str] | None = None
+    #: active space of casscf/nevpt2: [electrons, orbitals] or {ao_labels: [...]}
+    active: list[int] | ActiveLabelsSpec | None = None
+    #: casscf/nevpt2: roots averaged in the CASSCF (state averaging)
+    states: int | None = Field(default=None, ge=1)
+    #: casscf/nevpt2: weights of the averaged roots (default equal)
+    weights: list[FiniteFloat] | None = None
+
+    def options(self) -> dict:
+        """The level options given, by name (as :func:`pesflow.engine.level_method` takes
+        them)."""
+        out = {}
+        for name in ("active", "states", "weights"):
+            value = getattr(self, name)
+            if value is not None:
+                out[name] = value.model_dump() if isinstance(value, BaseModel) else value
+        return out
 
     def pairs(self) -> list[tuple[str, str | None]]:
         methods = [self.method] if isinstance(self.method, str) else list(self.method)
@@ -860,12 +886,21 @@ def _resolve_level_list(lspecs, loc, elements, err, checked) -> list[Level]:
 
     levels = []
     for i, lspec in enumerate(lspecs):
+        options = lspec.options()
         for method, basis in lspec.pairs():
             try:
                 info = engine.method_info(method)
             except EngineSetupError as exc:
                 hint = did_you_mean(str(method).strip().lower(), _method_names())
                 raise err(loc + (i, "method"), _with_hint(str(exc), hint)) from None
+            if options or info.options:
+                try:
+                    info = engine.method_info(engine.level_method(info.name, options))
+                except EngineSetupError as exc:
+                    given = [k for k in options if k not in info.options]
+                    named = [k for k in options if k in str(exc)]
+                    where = (given or named or [*options, "method"])[0]
+                    raise err(loc + (i, where), str(exc)) from None
             where = loc + (i, "basis") if basis is not None else loc + (i,)
             basis_c = ""
             for element in elements:
@@ -904,9 +939,14 @@ def _method_names() -> tuple[str, ...]:
     """Method names to suggest from: the wavefunction methods and libxc's functionals."""
     from pyscf.dft import libxc
 
-    from pesflow.engine import TIGHT_BINDING_METHODS, WAVEFUNCTION_METHODS
+    from pesflow.engine import (
+        MULTIREFERENCE_METHODS,
+        TIGHT_BINDING_METHODS,
+        WAVEFUNCTION_METHODS,
+    )
 
-    names = {*WAVEFUNCTION_METHODS, *TIGHT_BINDING_METHODS, *(k.lower() for k in libxc.XC_ALIAS)}
+    names = {*WAVEFUNCTION_METHODS, *TIGHT_BINDING_METHODS, *MULTIREFERENCE_METHODS}
+    names |= {k.lower() for k in libxc.XC_ALIAS}
     names |= {k.lower() for k in libxc.XC_CODES}
     return tuple(sorted(names))
 

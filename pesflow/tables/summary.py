@@ -12,12 +12,17 @@ the reference level, same molecule and scan).
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 
+from pesflow.analysis.continuity import MAX_OCCUPATION_STEP, occupation_jumps
 from pesflow.analysis.derived import summarize_curve, summarize_surface
+from pesflow.analysis.flags import Flag, flag_records, flag_text, flags_from_records
 from pesflow.analysis.quantities import COMPARED
 from pesflow.coordinates.kinds import KINDS, column_names
+from pesflow.engine import method_info
 
 _RESTRICTED = {"RHF", "RKS"}
 
@@ -64,7 +69,63 @@ def _curve_row(campaign, gs, sub, table):
             ),
             restricted_closed_shell_reference=bool(refs) and refs <= _RESTRICTED,
         )
-    return summarize_curve(kind, sub[column].to_numpy(float), energies, **options)
+    row = summarize_curve(kind, sub[column].to_numpy(float), energies, **options)
+    more = _active_space_flags(sub, column)
+    info = method_info(sub["method"].iloc[0])
+    if info.options and np.isfinite(row.get("d_e_ev", np.nan)):
+        more.append(_dissociation_note(info, options.get("fragment_energies_hartree")))
+    if more:
+        flags = flags_from_records(row["flag_records"]) + more
+        row["flags"], row["flag_records"] = flag_text(flags), flag_records(flags)
+    return row
+
+
+def _active_space_flags(sub, column) -> list:
+    """A warning where the active space changed character between neighbours and the
+    walk back did not remove it: the engine's own verdict stored on a point
+    (``character_change``), or a jump of the stored natural occupations."""
+    if "extra_json" not in sub.columns:
+        return []
+    done = sub[sub["status"] == "done"]
+    extras = [json.loads(t) if isinstance(t, str) else {} for t in done["extra_json"]]
+    if not any("active_space" in e for e in extras):
+        return []
+    q = done[column].to_numpy(float)
+    occupations = [e.get("active_space", {}).get("natural_occupations") for e in extras]
+    at = set(occupation_jumps(occupations, MAX_OCCUPATION_STEP))
+    at |= {i for i, e in enumerate(extras) if i > 0 and e.get("character_change")}
+    if not at:
+        return []
+    positions = sorted(float(q[i]) for i in at)
+    where = ", ".join(f"{p:.4g}" for p in positions)
+    return [
+        Flag(
+            "active-space-change",
+            f"the active space changes character between neighbours at {where} (an orbital "
+            "rotates into or out of it, or the natural occupations jump) and walking back "
+            "did not remove it: check the active space there (a larger or differently "
+            "chosen one, or state averaging)",
+            positions,
+        )
+    ]
+
+
+def _dissociation_note(info, fragment_energies):
+    if fragment_energies is not None:
+        text = (
+            f"D_e against the fragments computed at the same level ({info.name}: the active "
+            "space from the same AO labels on each fragment)"
+        )
+    elif info.fragments == "asymptote":
+        text = (
+            f"D_e from the curve's last point: an active space given by counts ({info.name}) "
+            "has no consistent counterpart on the fragments, so none are computed; the "
+            "curve must reach its asymptote (give the active space by AO labels to have "
+            "fragments)"
+        )
+    else:
+        text = "D_e from the curve's last point (no fragment energies at this level)"
+    return Flag("dissociation-reference", text)
 
 
 def _surface_row(campaign, gs, sub):
