@@ -26,9 +26,10 @@ JUMP_FACTOR = 20.0
 #: A change of <S^2> between neighbours larger than this is a change of solution.
 MAX_S2_STEP = 0.25
 #: A natural occupation of an active orbital that changes by more than this between
-#: neighbours is a jump.  Measured with PySCF 2.14 (N2 CAS(6,6)/6-31G, 0.1 A steps):
-#: at most 0.12 where the bonds break, a smooth change.
-MAX_OCCUPATION_STEP = 0.3
+#: neighbours is a jump.  Measured with PySCF 2.14 (N2 CAS(6,6)/6-31G and cc-pVDZ) where
+#: the bonds break: at most 0.12 per 0.1 A step and 0.3 per 0.3 A step, a smooth
+#: change; an orbital swapped into the space changes an occupation by about 1 or more.
+MAX_OCCUPATION_STEP = 0.5
 
 # Lagrange weights predicting f(0) from f(-2), f(-1), f(1), f(2) with a cubic.
 _WEIGHTS = np.array([-1.0, 4.0, 4.0, -1.0]) / 6.0

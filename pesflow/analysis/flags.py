@@ -62,6 +62,8 @@ FLAG_KINDS: dict[str, FlagKind] = {
         FlagKind("scf-solution-change", "warning", "change of SCF solution"),
         FlagKind("active-space-change", "warning", "change of active space"),
         FlagKind("dissociation-reference", "note", "what D_e is measured against", _D),
+        FlagKind("inconsistent-active-space", "warning", "fragments' active spaces differ",
+                 _D),
         FlagKind("dft-grid-noise", "warning", "DFT integration-grid noise"),
         FlagKind("morse-fit-failed", "note", "Morse fit did not converge",
                  ("omega_e_x_e_cm-1", "morse_d_e_ev")),

@@ -73,7 +73,10 @@ def _curve_row(campaign, gs, sub, table):
     more = _active_space_flags(sub, column)
     info = method_info(sub["method"].iloc[0])
     if info.options and np.isfinite(row.get("d_e_ev", np.nan)):
-        more.append(_dissociation_note(info, options.get("fragment_energies_hartree")))
+        fragment_energies = options.get("fragment_energies_hartree")
+        more.append(_dissociation_note(info, fragment_energies))
+        if fragment_energies is not None:
+            more += _fragment_active_space_flags(table, sub)
     if more:
         flags = flags_from_records(row["flag_records"]) + more
         row["flags"], row["flag_records"] = flag_text(flags), flag_records(flags)
@@ -106,6 +109,44 @@ def _active_space_flags(sub, column) -> list:
             "did not remove it: check the active space there (a larger or differently "
             "chosen one, or state averaging)",
             positions,
+        )
+    ]
+
+
+def _active_size(extra_json):
+    if not isinstance(extra_json, str):
+        return None
+    active = json.loads(extra_json).get("active_space")
+    return None if active is None else (active["n_electrons"], active["n_orbitals"])
+
+
+def _fragment_active_space_flags(table, sub) -> list:
+    """A warning when the fragments' active spaces do not add up to the molecule's at
+    the end of its curve (AVAS chose more or fewer orbitals there than on the atoms):
+    D_e then compares unlike wavefunctions."""
+    done = sub[sub["status"] == "done"].sort_values("walk")
+    fragments = table[
+        (table["role"] == "fragment")
+        & (table["molecule"] == sub["molecule"].iloc[0])
+        & (table["level"] == sub["level"].iloc[0])
+    ]
+    if done.empty or "extra_json" not in table.columns:
+        return []
+    molecule = _active_size(done["extra_json"].iloc[-1])
+    parts = [_active_size(t) for t in fragments["extra_json"]]
+    if molecule is None or None in parts:
+        return []
+    summed = (sum(p[0] for p in parts), sum(p[1] for p in parts))
+    if summed == molecule:
+        return []
+    listed = " + ".join(f"({e},{o})" for e, o in parts)
+    return [
+        Flag(
+            "inconsistent-active-space",
+            f"the fragments' active spaces {listed} do not add up to the molecule's "
+            f"({molecule[0]},{molecule[1]}) at the end of the curve: D_e compares unlike "
+            "wavefunctions; choose AO labels that give matching spaces (e.g. all valence "
+            "shells of the atoms that separate)",
         )
     ]
 

@@ -437,23 +437,28 @@ class MultireferenceWalk(EngineWalk):
 
     def _casscf_point(self, mf, previous, level, settings):
         from pyscf import mcscf
+        from pyscf.fci import spin_op
 
         mol = mf.mol
-        if previous is None:
-            ncas, nelecas, mo = _choose_active(mf, level)
-        else:
-            ncas, nelecas = previous.n_orbitals, previous.n_electrons
-            mo = None
+        # The active space's size is chosen at every point (AVAS for AO labels), so a
+        # point's number does not depend on where its walk started; the neighbour's
+        # orbitals are the start whenever the size agrees with the neighbour's.
+        ncas, nelecas, mo = _choose_active(mf, level)
         mc = _casscf(mf, ncas, nelecas, level, settings)
-        if previous is not None:
+        if previous is not None and (previous.n_orbitals, previous.n_electrons) == (
+            ncas,
+            nelecas,
+        ):
             mo = mcscf.project_init_guess(mc, previous.mo_coeff, previous.mol)
         mc.kernel(mo)
         occupations = natural_occupations(mc)
         ci = mc.ci if level.states == 1 else mc.ci[0]
-        s2 = float(mc.fcisolver.spin_square(ci, ncas, mc.nelecas)[0])
+        s2 = float(spin_op.spin_square0(ci, ncas, mc.nelecas)[0])
         overlap = None
         if previous is not None:
-            overlap = active_space_overlap(previous, mol, mc.mo_coeff, mc.ncore, ncas)
+            overlap = 0.0  # another size: another active space
+            if previous.n_electrons == nelecas:
+                overlap = active_space_overlap(previous, mol, mc.mo_coeff, mc.ncore, ncas)
         step = None
         if previous is not None and len(previous.occupations) == len(occupations):
             step = float(np.max(np.abs(occupations - previous.occupations)))
