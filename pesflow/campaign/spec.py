@@ -244,6 +244,20 @@ class LevelSpec(_Strict):
     #: casscf/nevpt2: weights of the averaged roots (default equal)
     weights: list[FiniteFloat] | None = None
 
+    @field_validator("active", mode="before")
+    @classmethod
+    def _active_labels(cls, value):
+        # A mapping is the AO-label form: name its unknown keys (not "not a list").
+        if isinstance(value, dict):
+            for key in value:
+                if key != "ao_labels":
+                    raise PydanticCustomError(
+                        "unknown_key",
+                        "unknown key '{key}'{hint}; allowed: ao_labels",
+                        {"key": str(key), "hint": did_you_mean(key, ["ao_labels"])},
+                    )
+        return value
+
     def options(self) -> dict:
         """The level options given, by name (as :func:`pesflow.engine.level_method` takes
         them)."""
