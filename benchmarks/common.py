@@ -156,7 +156,7 @@ def synthetic_records(plan, pts, seed: int = 0):
 
 
 def plan_of(spec_path: Path):
-    from pesflow.campaign.spec import load_campaign
+    from pesflow.campaign import load_campaign
     from pesflow.plan.expand import expand
 
     campaign = load_campaign(spec_path)

@@ -29,7 +29,7 @@ err_console = Console(stderr=True, highlight=False)
 
 
 def _load(spec):
-    from pesflow.campaign.spec import load_campaign
+    from pesflow.campaign import load_campaign
 
     return load_campaign(spec)
 

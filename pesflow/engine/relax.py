@@ -30,6 +30,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from pesflow.coordinates.kinds import KINDS
 from pesflow.errors import EngineSetupError
 from pesflow.units import BOHR_ANGSTROM
 
@@ -38,8 +39,10 @@ RELAX_MAX_STEPS = 100
 #: geomeTRIC's ``enforce`` threshold: once every constraint is within it (bohr or
 #: radian), the constraints are met exactly on every further step.
 RELAX_ENFORCE = 0.1
-#: Constraint kinds of a relaxed point and the number of atoms each takes.
-CONSTRAINT_ATOMS = {"distance": 2, "angle": 3, "dihedral": 4}
+#: Constraint kinds of a relaxed point (geomeTRIC's names, from the coordinate-kind
+#: registry) and the number of atoms each takes.
+CONSTRAINT_ATOMS = {kind.constraint: kind.n_atoms for kind in KINDS.values()}
+_KIND_OF_CONSTRAINT = {kind.constraint: kind for kind in KINDS.values()}
 
 
 def check_constraints(constraints, n_atoms: int) -> list[tuple[str, tuple[int, ...], float]]:
@@ -79,11 +82,18 @@ def check_constraints(constraints, n_atoms: int) -> list[tuple[str, tuple[int, .
             )
         if not math.isfinite(value):
             raise EngineSetupError(f"{where}: value must be finite, got {value}")
-        if kind == "distance" and value <= 0:
-            raise EngineSetupError(f"{where}: distance must be positive, got {value} angstrom")
-        if kind == "angle" and not 0 < value < 180:
-            raise EngineSetupError(f"{where}: angle must lie in (0, 180) degrees, got {value}")
-        if kind == "dihedral":
+        registered = _KIND_OF_CONSTRAINT[kind]
+        problem = registered.range_problem([value])
+        if problem:
+            raise EngineSetupError(f"{where}: {problem}")
+        if registered.motion == "bend" and value == registered.upper:
+            # Not a range rule but a limit of the optimiser: geomeTRIC's angle coordinate is
+            # singular at a linear arrangement, so a linear angle cannot be held there.
+            raise EngineSetupError(
+                f"{where}: a relaxed scan's angle must lie in (0, 180) degrees, got {value:g}: "
+                "the optimiser's angle coordinate is undefined at a linear arrangement"
+            )
+        if registered.period is not None:
             value = _wrap_degree(value)
         checked.append((kind, atoms, value))
     return checked
@@ -170,10 +180,9 @@ def constraint_report(constraints, positions_bohr) -> list[dict]:
     report = []
     for kind, atoms, target in constraints:
         value = _primitive(kind, atoms).value(positions_bohr)
-        if kind == "distance":
-            unit, reached = "angstrom", float(value * BOHR_ANGSTROM)
-        else:
-            unit, reached = "degree", math.degrees(float(value))
+        unit = _KIND_OF_CONSTRAINT[kind].unit
+        # geomeTRIC's primitives are in bohr and radian.
+        reached = float(value * BOHR_ANGSTROM) if unit == "angstrom" else math.degrees(float(value))
         report.append({"kind": kind, "atoms": [i + 1 for i in atoms], "unit": unit,
                        "target": target, "final": reached})  # fmt: skip
     return report

@@ -60,7 +60,8 @@ class TBLiteEngine(Engine):
     """The tblite backend (see the module docstring).
 
     >>> engine = TBLiteEngine()
-    >>> walk = engine.start_walk(None, "", ["gfn2-xtb"])
+    >>> from pesflow.engine import EngineSettings
+    >>> walk = engine.start_walk(EngineSettings(), "", ["gfn2-xtb"])
     >>> water = Geometry(("O", "H", "H"), [[0, 0, 0], [0, -0.757, 0.587], [0, 0.757, 0.587]])
     >>> round(walk.compute(water)["gfn2-xtb"].energy_hartree, 4)
     -5.0704
@@ -110,8 +111,6 @@ class TBLiteWalk(EngineWalk):
         from pesflow.engine import EngineSettings, method_info
 
         super().__init__()
-        if settings is None:
-            settings = EngineSettings()
         if not isinstance(settings, EngineSettings):
             raise EngineSetupError("settings must be an EngineSettings")
         if isinstance(methods, str) or not methods:

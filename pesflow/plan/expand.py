@@ -213,7 +213,7 @@ def point_settings_key(settings, method, gs) -> dict:
 
 
 def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
-    """Expand a validated :class:`~pesflow.campaign.spec.Campaign` into every point.
+    """Expand a validated :class:`~pesflow.campaign.resolved.Campaign` into every point.
 
     Each level is computed by the engine its method belongs to
     (:attr:`~pesflow.engine.MethodInfo.engine`); ``version`` overrides the version of

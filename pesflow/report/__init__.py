@@ -99,7 +99,7 @@ def build_report(
     """Write the comparison report of ``campaign`` into ``out_dir`` (created if needed).
 
     Args:
-        campaign: the loaded :class:`~pesflow.campaign.spec.Campaign`.
+        campaign: the loaded :class:`~pesflow.campaign.resolved.Campaign`.
         plan: its :class:`~pesflow.plan.expand.Plan` (:func:`pesflow.plan.expand.expand`).
         points: :func:`pesflow.tables.points.points_table` of the campaign, all columns.
         summary: :func:`pesflow.tables.summary.summary_table` of the same points.

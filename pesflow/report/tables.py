@@ -343,7 +343,7 @@ def _cost_table(points, levels, reference_level):
             {
                 "level": level,
                 "method": sub["method"].iloc[0] if len(sub) else level.split("/")[0],
-                "basis": sub["basis"].iloc[0] if len(sub) else level.split("/", 1)[-1],
+                "basis": sub["basis"].iloc[0] if len(sub) else level.partition("/")[2],
                 "core_s": core_s,
                 "points_done": n["done"],
                 "points_failed": n["failed"],
@@ -423,7 +423,7 @@ def collect(
     """Assemble :class:`ReportData` from the points table and the summary table.
 
     Args:
-        campaign: the :class:`~pesflow.campaign.spec.Campaign`.
+        campaign: the :class:`~pesflow.campaign.resolved.Campaign`.
         plan: its :class:`~pesflow.plan.expand.Plan` (checked to be of the same campaign).
         points: :func:`pesflow.tables.points.points_table` of the campaign (all columns).
         summary: :func:`pesflow.tables.summary.summary_table` of the campaign.

@@ -8,7 +8,7 @@ optimal makespan, max(total / jobs, largest piece)).
 
 from collections import Counter
 
-from pesflow.campaign.spec import load_campaign
+from pesflow.campaign import load_campaign
 from pesflow.plan.batches import jobs_count, pack_jobs, plan_jobs
 from pesflow.plan.expand import expand, make_batches
 

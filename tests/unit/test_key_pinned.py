@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from pesflow.campaign.spec import load_campaign
+from pesflow.campaign import load_campaign
 from pesflow.engine import EngineSettings
 from pesflow.plan import keys
 from pesflow.plan.expand import expand

@@ -8,7 +8,7 @@ import html
 import textwrap
 from pathlib import Path
 
-from pesflow.campaign.spec import load_campaign
+from pesflow.campaign import load_campaign
 from pesflow.cli import main
 from pesflow.plan.expand import expand
 from pesflow.report.markdown import md

@@ -5,7 +5,7 @@ from pathlib import Path
 
 import numpy as np
 
-from pesflow.campaign.spec import load_campaign
+from pesflow.campaign import load_campaign
 from pesflow.coordinates import geometry as coordinates
 from pesflow.plan import keys
 from pesflow.plan.expand import expand, make_batches, points_frame

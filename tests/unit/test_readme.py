@@ -21,7 +21,7 @@ def test_readme_has_two_setup_commands_and_ci_runs_the_test_one():
 
 
 def test_demo_campaign_named_in_readme_exists_and_is_valid():
-    from pesflow.campaign.spec import load_campaign
+    from pesflow.campaign import load_campaign
 
     demo = _commands()[0]
     spec = re.search(r"pesflow run (\S+)", demo).group(1)

@@ -11,7 +11,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from pesflow.campaign.spec import json_schema, load_campaign
+from pesflow.campaign import load_campaign
+from pesflow.campaign.spec import json_schema
 from pesflow.cli import main
 from pesflow.errors import SpecError
 

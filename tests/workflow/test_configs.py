@@ -5,7 +5,7 @@ from pathlib import Path
 
 import pytest
 
-from pesflow.campaign.spec import load_campaign
+from pesflow.campaign import load_campaign
 from pesflow.execution import driver as runner
 from pesflow.plan.expand import expand, make_batches
 

@@ -35,8 +35,10 @@ scans:
     levels: [{method: gfn2-xtb}]
     relax: true
 levels:
-  - {method: hf, basis: sto-3g}
+  - {method: hf, basis: [sto-3g, 6-31g]}
   - {method: gfn2-xtb}
+compare:
+  reference_level: hf/6-31g
 store: store
 """
 
@@ -50,12 +52,14 @@ def campaign(tmp_path_factory):
         ["run", str(spec), "--cores", "2"],
         ["export", str(spec), "--what", "summary", "-o", str(folder / "summary.parquet")],
         ["export", str(spec), "-o", str(folder / "points.parquet")],
+        ["report", str(spec), "-o", str(folder / "report")],
     )
     for args in runs:
         pesflow(*args, check=0, timeout=1200)
     return {
         "summary": pd.read_parquet(folder / "summary.parquet"),
         "points": pd.read_parquet(folder / "points.parquet"),
+        "report": folder / "report",
     }
 
 
@@ -80,7 +84,7 @@ def tblite_energy(row):
 def test_summary_has_both_levels(campaign):
     summary = campaign["summary"]
     stretch = summary[summary["scan"] == "stretch"]
-    assert set(stretch["level"]) == {"hf/sto-3g", "gfn2-xtb"}
+    assert set(stretch["level"]) == {"hf/sto-3g", "hf/6-31g", "gfn2-xtb"}
     assert (stretch["n_done"] == 9).all()
     assert set(summary[summary["scan"] == "torsion"]["level"]) == {"gfn2-xtb"}
 
@@ -104,3 +108,13 @@ def test_relaxed_torsion_keeps_its_dihedral(campaign):
     for target, (_, row) in zip((90.0, 120.0, 150.0), relaxed.iterrows()):
         atoms = Atoms(row["symbols"].split(), np.asarray(row["positions_angstrom"]).reshape(-1, 3))
         assert atoms.get_dihedral(2, 0, 1, 3) == pytest.approx(target, abs=1e-4)
+
+
+def test_report_shows_the_tight_binding_level_and_leaves_it_out_of_basis_convergence(campaign):
+    report = campaign["report"]
+    markdown = (report / "report.md").read_text()
+    assert "gfn2-xtb" in markdown and "gfn2-xtb/" not in markdown
+    convergence = pd.read_csv(report / "convergence.csv")
+    assert len(convergence) and set(convergence["method"]) == {"hf"}
+    cost = pd.read_csv(report / "cost.csv")
+    assert "gfn2-xtb" in set(cost["level"])

@@ -1,0 +1,145 @@
+"""The resolved campaign: what every later stage reads (molecules as :class:`ase.Atoms`,
+0-based atoms, moving atoms, scan grids, levels), made by
+:func:`pesflow.campaign.resolve.load_campaign`."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from pesflow.campaign.spec import CampaignSpec
+from pesflow.coordinates.kinds import KINDS
+
+
+@dataclass(frozen=True)
+class Level:
+    """A level of theory; ``basis`` is ``""`` for a level with a built-in basis."""
+
+    method: str
+    basis: str
+
+    @property
+    def label(self) -> str:
+        """``method/basis``, or the method alone for a level without basis set."""
+        return f"{self.method}/{self.basis}" if self.basis else self.method
+
+
+@dataclass
+class Molecule:
+    """A molecule resolved from the spec."""
+
+    name: str
+    atoms: Any  # ase.Atoms
+    charge: int
+    multiplicity: int
+    masses_amu: np.ndarray
+    fragments: list[dict] = field(default_factory=list)
+
+    @property
+    def symbols(self) -> tuple[str, ...]:
+        return tuple(self.atoms.get_chemical_symbols())
+
+
+@dataclass
+class Coordinate:
+    """One scan coordinate with 0-based atoms and the atoms that move."""
+
+    kind: str
+    atoms: tuple[int, ...]
+    values: np.ndarray
+
+    @property
+    def unit(self) -> str:
+        return KINDS[self.kind].unit
+
+    @property
+    def label(self) -> str:
+        return f"{KINDS[self.kind].stem}({'-'.join(str(i + 1) for i in self.atoms)})"
+
+
+@dataclass
+class Scan:
+    """A scan resolved for its molecules."""
+
+    name: str
+    molecules: list[str]
+    coordinates: list[Coordinate]
+    #: per molecule: list (one per coordinate) of 0-based moving atoms
+    moving: dict[str, list[np.ndarray]]
+    #: levels of theory of this scan
+    levels: list[Level] = field(default_factory=list)
+    #: optimise every other degree of freedom at each scan value
+    relax: bool = False
+
+    def grid(self) -> np.ndarray:
+        """All scan points in walk order, shape (m, k): a serpentine walk for grids,
+        so that consecutive points are neighbours and can share a starting guess."""
+        if len(self.coordinates) == 1:
+            return self.coordinates[0].values[:, None]
+        first, second = (c.values for c in self.coordinates)
+        rows = []
+        for i, a in enumerate(first):
+            inner = second if i % 2 == 0 else second[::-1]
+            rows.extend((a, b) for b in inner)
+        return np.asarray(rows, dtype=float)
+
+    def grid_indices(self) -> np.ndarray:
+        """Indices of each walk point into the coordinate value arrays, shape (m, k)."""
+        if len(self.coordinates) == 1:
+            return np.arange(len(self.coordinates[0].values))[:, None]
+        n1, n2 = (len(c.values) for c in self.coordinates)
+        rows = []
+        for i in range(n1):
+            inner = range(n2) if i % 2 == 0 else range(n2 - 1, -1, -1)
+            rows.extend((i, j) for j in inner)
+        return np.asarray(rows, dtype=int)
+
+
+@dataclass
+class Campaign:
+    """A validated campaign, ready for planning."""
+
+    spec: CampaignSpec
+    path: Path
+    molecules: dict[str, Molecule]
+    scans: dict[str, Scan]
+    levels: list[Level]
+
+    @property
+    def name(self) -> str:
+        return self.spec.campaign
+
+    @property
+    def store_path(self) -> Path:
+        return (self.path.parent / self.spec.store).resolve()
+
+    @property
+    def results_path(self) -> Path:
+        return (self.path.parent / self.spec.results / self.spec.campaign).resolve()
+
+    def engine_settings(self, scan: str | None = None):
+        """Engine settings of the campaign, with ``scan``'s own overrides applied."""
+        from pesflow.engine import EngineSettings
+
+        e = self.spec.engine
+        if scan is not None and self.spec.scans[scan].engine is not None:
+            own = self.spec.scans[scan].engine
+            e = e.model_copy(update={k: getattr(own, k) for k in own.model_fields_set})
+        return EngineSettings(
+            scf_energy_tolerance_hartree=e.scf_energy_tolerance_hartree,
+            scf_max_iterations=e.scf_max_iterations,
+            reference=e.reference,
+            frozen_core=e.frozen_core,
+            dft_grid_level=e.dft_grid_level,
+            scf_ladder=tuple(e.scf_ladder),
+            broken_symmetry=e.broken_symmetry,
+            stability=e.stability,
+        )
+
+
+# ---------------------------------------------------------------------------
+# YAML loading with line numbers
+# ---------------------------------------------------------------------------
