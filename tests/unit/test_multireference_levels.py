@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from pesflow.campaign.spec import load_campaign
+from pesflow.campaign import load_campaign
 from pesflow.engine import level_method, method_info
 from pesflow.engine.pyscf.multireference import parse
 from pesflow.errors import EngineSetupError, SpecError
