@@ -207,10 +207,8 @@ def parse(name: str) -> MultireferenceLevel | None:
             f"malformed multireference method {name!r}; e.g. casscf(6,6), "
             "nevpt2(avas:n 2p), casscf(2,2;sa3)"
         ) from None
-    canonical = level_name(method, options)
-    level = _from_options(method, options)
-    assert level.name == canonical
-    return level
+    level_name(method, options)  # checks every option (EngineSetupError)
+    return _from_options(method, options)
 
 
 def _from_options(method, options):
@@ -365,7 +363,7 @@ class MultireferenceWalk(EngineWalk):
         wanted = self.methods
         if methods is not None:
             wanted, level = _split(methods)
-            if level.casscf_name != self.level.casscf_name:
+            if level.casscf_name != self.level.casscf_name or level.name not in self.methods:
                 raise EngineSetupError(f"{methods} are not of this walk's {self.level.name}")
         _check_inputs(geometry, self.basis)
         level, settings = self.level, self.settings
