@@ -92,6 +92,7 @@ def cmd_check(args) -> int:
     for r in api.scans_table(campaign).itertuples(index=False):
         scans.add_row(r.scan, r.coordinates, str(r.points_per_molecule))
     console.print(scans)
+    _print_sets_and_rules(campaign)
     console.print(
         "levels: " + ", ".join(lvl.label for lvl in campaign.levels), markup=False, soft_wrap=True
     )
@@ -100,12 +101,90 @@ def cmd_check(args) -> int:
 
 
 #: Short words of the plan's ``from`` column for the sources of an estimate.
-_SOURCE_WORDS = {"stored timings": "stored", "scaling model": "model"}
+_SOURCE_WORDS = {
+    "stored timings": "stored",
+    "scaling model": "model",
+    "scaling model, calibrated": "model (calibrated)",
+}
+
+
+#: How ``pesflow check`` words each kind of note about sets and rules.
+_NOTE_WORDS = {
+    "member": "built",
+    "refused": "refused",
+    "rule": "",
+    "no-match": "",
+    "left-out": "left out",
+}
+
+
+def _print_sets_and_rules(campaign) -> None:
+    """What each set member was built from (or why it was refused), what each rule found
+    in each molecule (or that it found nothing), and which molecules a scan left out."""
+    if not campaign.notes:
+        return
+    out = Table(title="sets and rules", title_justify="left")
+    for col in ("molecule", "scan", "what"):
+        out.add_column(col)
+    for note in campaign.notes:
+        out.add_row(
+            escape(note["molecule"]),
+            escape(note["scan"] or "-"),
+            f"{_NOTE_WORDS[note['what']]}: " * bool(_NOTE_WORDS[note["what"]])
+            + escape(note["text"]),
+        )
+    console.print(out)
+
+
+def _plan_table(plan, store, done, sample_per_curve=20):
+    """Points with their status and, for a sample of the stored ones, their timing.
+
+    Planning must stay cheap on a large store: it reads the timings of at most
+    ``sample_per_curve`` stored points per molecule and level, not every record.
+    """
+    import numpy as np
+
+    pts = plan.points[["key", "molecule", "level", "method", "basis"]].copy()
+    is_done = pts["key"].isin(done)
+    pts["status"] = np.where(is_done, "done", "pending")
+    sample = pts[is_done].groupby(["molecule", "level"], sort=False).head(sample_per_curve)
+    if sample.empty:
+        pts["wall_s"] = np.nan
+        return pts
+    timing = store.load(keys=set(sample["key"]), columns=("wall_s", "converged")).to_pandas()
+    timing = timing.loc[timing["converged"].astype(bool), ["key", "wall_s"]]
+    return pts.merge(timing, on="key", how="left")
+
+
+def _print_rule_scans(campaign, plan, shown=12) -> None:
+    """Per scan chosen by rule: the coordinates it expanded to (by name), its molecules and
+    its points (the first ``shown`` names; the rest counted)."""
+    rule_scans = [s for s in campaign.scans.values() if s.rule]
+    if not rule_scans:
+        return
+    counts = plan.points.groupby("scan").size()
+    out = Table(title="scans chosen by rule", title_justify="left")
+    for col in ("scan", "rule", "coordinates", "molecules", "points"):
+        out.add_column(col, justify="right" if col in ("molecules", "points") else "left")
+    for source in dict.fromkeys(s.source for s in rule_scans):
+        mine = [s for s in rule_scans if s.source == source]
+        names = [s.coordinates[0].name for s in mine]
+        listed = ", ".join(names[:shown]) + (
+            f" and {len(names) - shown} more" * (len(names) > shown)
+        )
+        out.add_row(
+            escape(source),
+            mine[0].rule,
+            f"{len(names)}: {escape(listed)}",
+            str(len({m for s in mine for m in s.molecules})),
+            str(int(sum(counts.get(s.name, 0) for s in mine))),
+        )
+    console.print(out)
 
 
 def cmd_plan(args) -> int:
     from pesflow import api
-    from pesflow.report.tables import fmt_duration
+    from pesflow.units import format_duration as fmt_duration
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
@@ -135,6 +214,7 @@ def cmd_plan(args) -> int:
             "+".join(words) or "-",
         )
     console.print(out)
+    _print_rule_scans(campaign, plan)
     if sources:
         console.print(
             "estimate: core time of the points still to compute; from: "
@@ -142,12 +222,17 @@ def cmd_plan(args) -> int:
             + ".",
             markup=False,
         )
-    left = summary.estimate_core_s
+    left = summary.total_core_s
     console.print(
         f"{summary.points} points, {summary.cached} cached, "
         f"{summary.points - summary.cached} to compute in {summary.jobs} jobs "
         f"({summary.walks} walks)"
-        + (f"; about {fmt_duration(left)} of core time left." if left > 0 else "."),
+        + (
+            f"; about {fmt_duration(left)} of core time left (an SCF shared by several "
+            "levels counted once)."
+            if left > 0
+            else "."
+        ),
         markup=False,
     )
     console.print(f"store: {summary.store_path}", markup=False, soft_wrap=True)
@@ -282,6 +367,7 @@ def cmd_status(args) -> int:
 
 def cmd_run(args) -> int:
     from pesflow import api
+    from pesflow.units import format_duration as fmt_duration
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
@@ -293,6 +379,8 @@ def cmd_run(args) -> int:
             "{task.fields[done]} done, {task.fields[failed]} failed, {task.fields[left]} left"
         ),
         TimeElapsedColumn(),
+        TextColumn("ETA {task.fields[eta]}"),
+        TextColumn("{task.fields[running]}"),
         console=console,
         transient=False,
     )
@@ -301,22 +389,32 @@ def cmd_run(args) -> int:
     def on_start(to_compute, jobs, cached):
         console.print(f"{to_compute} points to compute in {jobs} jobs ({cached} cached)")
         console.print(f"store: {campaign.store_path}", markup=False, soft_wrap=True)
-        state["task"] = progress.add_task("run", total=to_compute, done=0, failed=0, left=0)
+        state["task"] = progress.add_task(
+            "run", total=to_compute, done=0, failed=0, left=0, eta="-", running=""
+        )
         progress.start()
 
-    def on_progress(finished, failed, total):
+    def on_progress(p):
+        eta = fmt_duration(p.eta_s) if p.finished < p.total else "-"
+        shown = "; ".join(p.running[:3]) + (
+            f" (+{len(p.running) - 3})" if len(p.running) > 3 else ""
+        )
         progress.update(
             state["task"],
-            completed=finished,
-            done=finished - failed,
-            failed=failed,
-            left=total - finished,
+            completed=p.finished,
+            done=p.finished - p.failed,
+            failed=p.failed,
+            left=p.total - p.finished,
+            eta=eta or "-",
+            running=escape(f"running: {shown}") if shown else "",
         )
         if not console.is_terminal and time.monotonic() - state["printed"] > 30:
             state["printed"] = time.monotonic()
             console.print(
-                f"  {finished}/{total} points, {failed} failed, "
-                f"{time.monotonic() - state['start']:.0f} s"
+                f"  {p.finished}/{p.total} points, {p.failed} failed, "
+                f"{time.monotonic() - state['start']:.0f} s, ETA {eta or '-'}"
+                + (f"; running: {shown}" if shown else ""),
+                markup=False,
             )
 
     try:

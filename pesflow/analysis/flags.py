@@ -81,6 +81,9 @@ FLAG_KINDS: dict[str, FlagKind] = {
         FlagKind("path-not-converged", "warning", "minimum-energy path did not converge",
                  _BARRIER),
         FlagKind("incomplete-curve", "note", "value from an incomplete curve"),
+        # Names the quantities in its message; attached to no single value.
+        FlagKind("deviation-within-uncertainty", "note",
+                 "deviation from the reference level within the uncertainty", ()),
     )
 }  # fmt: skip
 

@@ -43,6 +43,8 @@ class Quantity:
         shown: the report shows it at all (False for fit parameters and bookkeeping).
         position_of: the coordinate kind it is a position of (``"dihedral"`` for
             ``dihedral_e_degree``), else None.
+        uncertain: the summary carries its standard uncertainty, ``u_<column>`` in the same
+            unit (:mod:`pesflow.analysis.uncertainty`); False for counts.
     """
 
     column: str
@@ -56,6 +58,7 @@ class Quantity:
     headline: bool = True
     shown: bool = True
     position_of: str | None = None
+    uncertain: bool = True
 
     @property
     def title(self) -> str:
@@ -137,7 +140,7 @@ QUANTITIES: tuple[Quantity, ...] = (
     Quantity("morse_rms_cm-1", "Morse fit rms", "Morse fit rms", "cm⁻¹", 1, compared=False,
              shown=False),
     Quantity("n_levels_trusted", "trusted levels", "trusted levels", "", 0, compared=False,
-             shown=False),
+             shown=False, uncertain=False),
 )  # fmt: skip
 
 #: The registry by column.
@@ -148,6 +151,19 @@ COMPARED: tuple[str, ...] = tuple(q.column for q in QUANTITIES if q.compared)
 
 #: Columns of a curve's summary row that the analysis fills.
 CURVE_COLUMNS: tuple[str, ...] = tuple(q.column for q in QUANTITIES if q.curve)
+
+#: Columns that carry a standard uncertainty ``u_<column>`` (same unit).
+UNCERTAIN: tuple[str, ...] = tuple(q.column for q in QUANTITIES if q.uncertain)
+
+
+def uncertainty_column(column: str) -> str:
+    """Name of the standard-uncertainty column of a quantity column (same unit).
+
+    >>> uncertainty_column("omega_e_cm-1")
+    'u_omega_e_cm-1'
+    """
+    return f"u_{column}"
+
 
 #: The barrier columns with the energy unit of :mod:`pesflow.units` each is converted to.
 BARRIER_UNITS: dict[str, str] = {

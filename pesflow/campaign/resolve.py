@@ -14,6 +14,7 @@ from pesflow.campaign.resolved import Campaign, Coordinate, Level, Molecule, Sca
 from pesflow.campaign.spec import (
     MAX_POINTS,
     MIN_ATOM_DISTANCE_ANGSTROM,
+    SET_SOURCES,
     CampaignSpec,
     MoleculeSpec,
     ScanSpec,
@@ -21,13 +22,15 @@ from pesflow.campaign.spec import (
 )
 from pesflow.campaign.yaml_source import _Errors, _read_yaml, parse_spec
 from pesflow.coordinates.kinds import KINDS
-from pesflow.errors import EngineSetupError
+from pesflow.errors import EngineSetupError, SpecError
 
 
 def _resolve_molecule(name, spec: MoleculeSpec, base: Path, err) -> Molecule:
+    """A single molecule (builtin, file, xyz, or one SMILES with one conformer)."""
     from pesflow.campaign import molecules as mol
 
     loc = ("molecules", name)
+    rdmol, built = None, ""
     try:
         if spec.builtin is not None:
             atoms = mol.from_builtin(spec.builtin)
@@ -36,27 +39,152 @@ def _resolve_molecule(name, spec: MoleculeSpec, base: Path, err) -> Molecule:
             if not file.is_absolute():
                 file = base / file
             atoms = mol.from_file(file)
+        elif spec.smiles is not None:
+            seed = mol.DEFAULT_EMBED_SEED if spec.seed is None else spec.seed
+            rdmol, (positions,) = mol.embed_smiles(
+                spec.smiles, seed=seed, force_field=spec.force_field
+            )
+            atoms = mol.atoms_from_rdkit(rdmol, positions)
+            built = f"SMILES {spec.smiles}: ETKDG seed {seed} + {spec.force_field.upper()}"
         else:
             atoms = mol.from_xyz_text(spec.xyz)
     except ValueError as exc:
-        source = "builtin" if spec.builtin is not None else "file" if spec.file else "xyz"
-        raise err(loc + (source,), str(exc)) from None
+        raise err(loc + (spec.source,), str(exc)) from None
+    return _checked_molecule(name, atoms, spec, loc, err, rdkit=rdmol, built=built)
+
+
+def _resolve_entry(name, spec: MoleculeSpec, base: Path, err, notes) -> dict[str, Molecule]:
+    """The molecules of one entry: one molecule, a molecule's conformers, or a set's
+    members (``<entry>/<member>``, conformers ``.../c1``, ``.../c2``).  A set member that
+    cannot be built is left out with the reason in ``notes`` unless the set is strict."""
+    from pesflow.campaign import molecules as mol
+
+    if spec.source not in SET_SOURCES and not (spec.smiles and spec.conformers > 1):
+        return {name: _resolve_molecule(name, spec, base, err)}
+    loc = ("molecules", name, spec.source)
+    seed = mol.DEFAULT_EMBED_SEED if spec.seed is None else spec.seed
+    recipe = f"ETKDG seed {seed} + {spec.force_field.upper()}"
+    try:
+        if spec.smiles is not None:
+            sources = [(None, name, ("smiles", spec.smiles))]
+        elif spec.smiles_file is not None:
+            entries = mol.read_smiles_file(_relative(spec.smiles_file, base))
+            sources = [(f"line {n}", label, ("smiles", smi)) for n, label, smi in entries]
+        elif spec.sdf is not None:
+            records = mol.read_sdf(_relative(spec.sdf, base))
+            sources = [(f"record {n}", label, ("sdf", (m, why))) for n, label, m, why in records]
+        else:
+            paths = mol.xyz_paths(spec.xyz_files, base)
+            sources = [(p.name, p.stem, ("xyz", p)) for p in paths]
+    except ValueError as exc:
+        raise err(loc, str(exc)) from None
+    out: dict[str, Molecule] = {}
+    for where, label, (kind, source) in sources:
+        short = mol.member_name(label) or mol.member_name(where or "")
+        member = name if spec.smiles is not None else f"{name}/{short}"
+        try:
+            if member in out or f"{member}/c1" in out:
+                raise ValueError(f"the name {short!r} is taken by an earlier member")
+            if kind == "smiles":
+                rdmol, stack = mol.embed_smiles(
+                    source, seed=seed, conformers=spec.conformers, force_field=spec.force_field
+                )
+                built = f"SMILES {source}: {recipe}"
+            elif kind == "sdf":
+                rdmol, why = source
+                if rdmol is None:
+                    raise ValueError(why)
+                if not rdmol.GetConformer().Is3D():
+                    raise ValueError("the record has no 3-D coordinates")
+                if any(a.GetNumImplicitHs() for a in rdmol.GetAtoms()):
+                    raise ValueError(
+                        "the record leaves hydrogens implicit; write every hydrogen with its "
+                        "3-D position (or give the set as SMILES to have them built)"
+                    )
+                stack, built = [rdmol.GetConformer().GetPositions()], f"SDF {where}"
+            else:
+                read = mol.from_file(source)
+                rdmol, stack, built = None, [read.positions], f"XYZ {source.name}"
+                symbols = read.get_chemical_symbols()
+            built_here = {}
+            for c, positions in enumerate(stack, start=1):
+                cname = member if len(stack) == 1 and spec.conformers == 1 else f"{member}/c{c}"
+                if rdmol is not None:
+                    atoms = mol.atoms_from_rdkit(rdmol, positions)
+                else:
+                    atoms = mol.Atoms(symbols=symbols, positions=positions)
+                conformer = f", conformer {c} of {len(stack)}" if spec.conformers > 1 else ""
+                built_here[cname] = _checked_molecule(
+                    cname,
+                    atoms,
+                    spec,
+                    ("molecules", name),
+                    err,
+                    rdkit=rdmol,
+                    built=built + conformer,
+                    set_name=name if spec.smiles is None else "",
+                    member=member,
+                    conformer=c if spec.conformers > 1 else 0,
+                    lenient=not spec.strict,
+                )
+        except (ValueError, SpecError) as exc:
+            reason = exc.reason if isinstance(exc, SpecError) else str(exc)
+            if spec.strict or spec.smiles is not None:
+                raise err(loc, f"member '{short}' ({where}): {reason}") from None
+            notes.append(
+                {"what": "refused", "entry": name, "molecule": member, "scan": "",
+                 "text": f"{where}: {reason}"}
+            )  # fmt: skip
+            continue
+        out.update(built_here)
+        first = next(iter(built_here.values()))
+        notes.append(
+            {"what": "member", "entry": name, "molecule": member, "scan": "",
+             "text": f"{first.atoms.get_chemical_formula()} charge {first.charge} "
+                     f"multiplicity {first.multiplicity}: {first.built.split(', conformer')[0]}"
+                     + (f", {len(built_here)} conformers" if len(built_here) > 1 else "")}
+        )  # fmt: skip
+    if not out:
+        first = next(n for n in notes if n["entry"] == name and n["what"] == "refused")
+        raise err(
+            loc, f"no member of this set could be built; {first['molecule']}: {first['text']}"
+        )
+    return out
+
+
+def _relative(path, base: Path) -> Path:
+    path = Path(path)
+    return path if path.is_absolute() else base / path
+
+
+def _checked_molecule(name, atoms, spec: MoleculeSpec, loc, err, **extra) -> Molecule:
+    """The molecule ``name`` of ``atoms``: charge, multiplicity, contacts, isotopes and
+    fragments checked against ``spec`` (errors at ``loc``).  Charge and multiplicity not
+    given in the spec come from the RDKit structure in ``extra`` when there is one."""
+    from pesflow.campaign import molecules as mol
+
+    rdmol = extra.get("rdkit")
+    written = mol.structure_charge_multiplicity(rdmol) if rdmol is not None else (0, None)
+    charge = written[0] if spec.charge is None else spec.charge
     if len(atoms) == 0:
         raise err(loc, "the molecule has no atoms")
     problem = None
     multiplicity = spec.multiplicity
+    if multiplicity is None and spec.charge is None and written[1] is not None:
+        multiplicity = written[1]
     if multiplicity is None:
         try:
-            multiplicity = mol.default_multiplicity(atoms, spec.charge)
+            multiplicity = mol.default_multiplicity(atoms, charge)
         except ValueError as exc:
             raise err(loc + ("charge",), str(exc)) from None
-        problem = mol.multiplicity_problem(atoms, spec.charge, multiplicity)
+        problem = mol.multiplicity_problem(atoms, charge, multiplicity)
         if problem is not None:
             raise err(loc + ("charge",), problem)
     else:
-        problem = mol.multiplicity_problem(atoms, spec.charge, multiplicity)
+        problem = mol.multiplicity_problem(atoms, charge, multiplicity)
         if problem is not None:
             raise err(loc + ("multiplicity",), problem)
+
     contacts = mol.close_contacts(atoms, MIN_ATOM_DISTANCE_ANGSTROM)
     if contacts:
         i, j, d = contacts[0]
@@ -107,18 +235,19 @@ def _resolve_molecule(name, spec: MoleculeSpec, base: Path, err) -> Molecule:
                 loc + ("fragments",),
                 f"the fragments must together list every atom 1-{n} exactly once",
             )
-        if sum(f["charge"] for f in fragments) != spec.charge:
+        if sum(f["charge"] for f in fragments) != charge:
             raise err(
                 loc + ("fragments",),
-                f"the fragments' charges must add up to the molecule's charge ({spec.charge})",
+                f"the fragments' charges must add up to the molecule's charge ({charge})",
             )
     return Molecule(
         name=name,
         atoms=atoms,
-        charge=spec.charge,
+        charge=charge,
         multiplicity=multiplicity,
         masses_amu=masses,
         fragments=fragments,
+        **extra,
     )
 
 
@@ -136,20 +265,95 @@ def _check_values(kind, values, loc, err):
         raise err(loc, problem)
 
 
-def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
-    from pesflow.coordinates import geometry as coords
-
+def _scan_members(name, spec: ScanSpec, groups, molecules, err) -> list[str]:
+    """The molecules a scan lists, with each set and member expanded into its molecules
+    (a member with several conformers into one molecule per conformer)."""
     loc = ("scans", name)
+    members: dict[str, list[str]] = {}
+    for m in molecules.values():
+        members.setdefault(m.member, []).append(m.name)
+    out = []
     for i, mname in enumerate(spec.molecules):
-        if mname not in molecules:
-            defined = ", ".join(sorted(molecules))
+        if mname in groups:
+            out += groups[mname]
+        elif mname in members:
+            out += members[mname]
+        else:
+            defined = ", ".join(sorted(groups))
+            known = list(dict.fromkeys([*groups, *members]))
             raise err(
                 loc + ("molecules", i),
                 f"molecule '{mname}' is not defined under molecules"
-                f"{did_you_mean(mname, molecules)}; defined: {defined}",
+                f"{did_you_mean(mname, known)}; defined: {defined}",
             )
-    if len(set(spec.molecules)) != len(spec.molecules):
+    if len(set(out)) != len(out):
         raise err(loc + ("molecules",), "a molecule is listed twice")
+    return out
+
+
+def _resolve_scans(spec: CampaignSpec, molecules, groups, err, notes) -> dict[str, Scan]:
+    """Every scan; a scan whose coordinate is chosen by rule becomes one scan per
+    coordinate the rule finds (``<scan>/<coordinate name>``), over the molecules where
+    it finds it.  What each rule found, and in which molecule it found nothing, goes to
+    ``notes``."""
+    from pesflow.campaign import molecules as mol
+    from pesflow.campaign.rules import coordinate_name, expand_rule
+
+    scans = {}
+    for name, sspec in spec.scans.items():
+        names = _scan_members(name, sspec, groups, molecules, err)
+        cspec = sspec.coordinates[0]
+        if cspec.rule is None:
+            scans[name] = _resolve_scan(name, sspec, molecules, err, names, notes=notes)
+            continue
+        found: dict[str, list[str]] = {}
+        atoms_of: dict[str, tuple[int, ...]] = {}
+        for mname in names:
+            m = molecules[mname]
+            try:
+                if m.rdkit is None:
+                    m.rdkit = mol.perceive_bonds(m.atoms, m.charge)
+                picked = expand_rule(
+                    m.rdkit, cspec.rule, smarts=cspec.smarts, methyl_rotors=cspec.methyl_rotors
+                )
+            except ValueError as exc:
+                problem = err(("scans", name, "coordinates", 0, "rule"), f"'{mname}': {exc}")
+                if not m.lenient:
+                    raise problem from None
+                _leave_out(notes, name, m, problem.reason)
+                continue
+            labels = [coordinate_name(m.rdkit, t) for t in picked]
+            if m.conformer <= 1:
+                notes.append(
+                    {"what": "rule" if labels else "no-match", "entry": m.set_name,
+                     "molecule": m.member, "scan": name,
+                     "text": f"{cspec.rule} found " + (", ".join(labels) or "nothing")}
+                )  # fmt: skip
+            for t, label in zip(picked, labels):
+                found.setdefault(label, []).append(mname)
+                atoms_of[label] = t
+        for label, mnames in found.items():
+            one = cspec.model_copy(update={"atoms": [a + 1 for a in atoms_of[label]], "rule": None})
+            concrete = sspec.model_copy(update={"coordinates": [one]})
+            scan = _resolve_scan(name, concrete, molecules, err, mnames, notes=notes)
+            scan.name, scan.rule = f"{name}/{label}", cspec.rule
+            scan.coordinates[0].name = label
+            scans[scan.name] = scan
+    return scans
+
+
+def _leave_out(notes, scan, m: Molecule, reason) -> None:
+    notes.append(
+        {"what": "left-out", "entry": m.set_name, "molecule": m.name, "scan": scan,
+         "text": reason}
+    )  # fmt: skip
+
+
+def _resolve_scan(name, spec: ScanSpec, molecules, err, names=None, notes=None) -> Scan:
+
+    loc = ("scans", name)
+    if names is None:
+        names = _scan_members(name, spec, {m: [m] for m in molecules}, molecules, err)
     resolved = []
     for c, cspec in enumerate(spec.coordinates):
         cloc = loc + ("coordinates", c)
@@ -180,64 +384,76 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err) -> Scan:
             loc + ("coordinates",), _too_many(f"this grid has {n1} x {n2} = {n1 * n2:,} points")
         )
     moving = {}
-    for mname in spec.molecules:
-        atoms = molecules[mname].atoms
-        n = len(atoms)
-        per = []
-        for c, (cspec, coord) in enumerate(zip(spec.coordinates, resolved)):
-            cloc = loc + ("coordinates", c)
-            for a in cspec.atoms:
-                if not 1 <= a <= n:
-                    raise err(
-                        cloc + ("atoms",),
-                        f"atom {a} is out of range for molecule '{mname}', which has atoms 1-{n}",
-                    )
-            move = None
-            if cspec.move is not None:
-                for a in cspec.move:
-                    if not 1 <= a <= n:
-                        raise err(
-                            cloc + ("move",),
-                            f"atom {a} is out of range for molecule "
-                            f"'{mname}', which has atoms 1-{n}",
-                        )
-                move = [a - 1 for a in cspec.move]
-            if coord.kind == "dihedral":
-                problem = coords.undefined_dihedral(
-                    [atoms.positions[i] for i in coord.atoms], coord.atoms
-                )
-                if problem:
-                    raise err(cloc + ("atoms",), f"molecule '{mname}': {problem}")
-            try:
-                per.append(coords.moving_atoms(atoms, coord.kind, coord.atoms, move=move))
-            except ValueError as exc:
-                raise err(
-                    cloc + ("move" if move is not None else "atoms",), f"molecule '{mname}': {exc}"
-                ) from None
-        # Trial geometries at the ends of the range (the corners of a grid) catch coupled
-        # coordinates and undefined dihedrals before anything runs.
-        if len(resolved) == 2:
-            corners = np.array(
-                [[resolved[0].values[i], resolved[1].values[j]] for i in (0, -1) for j in (0, -1)]
-            )
-        else:
-            corners = resolved[0].values[[0, -1], None]
+    for mname in names:
         try:
-            coords.apply_grid(
-                atoms.get_positions(),
-                [(co.kind, co.atoms, mv) for co, mv in zip(resolved, per)],
-                corners,
-            )
-        except ValueError as exc:
-            raise err(loc + ("coordinates",), f"molecule '{mname}': {exc}") from None
-        moving[mname] = per
+            moving[mname] = _moving_atoms(loc, spec, resolved, mname, molecules[mname].atoms, err)
+        except SpecError as exc:
+            if not molecules[mname].lenient:
+                raise
+            _leave_out(notes, name, molecules[mname], exc.reason)
     return Scan(
         name=name,
-        molecules=list(spec.molecules),
+        molecules=[m for m in names if m in moving],
         coordinates=resolved,
         moving=moving,
         relax=spec.relax,
     )
+
+
+def _moving_atoms(loc, spec: ScanSpec, resolved, mname, atoms, err) -> list[np.ndarray]:
+    """Per coordinate, the 0-based atoms of molecule ``mname`` that move; the ends of the
+    range (the corners of a grid) are tried, so that coupled coordinates and undefined
+    dihedrals are caught before anything runs."""
+    from pesflow.coordinates import geometry as coords
+
+    n = len(atoms)
+    per = []
+    for c, (cspec, coord) in enumerate(zip(spec.coordinates, resolved)):
+        cloc = loc + ("coordinates", c)
+        for a in cspec.atoms:
+            if not 1 <= a <= n:
+                raise err(
+                    cloc + ("atoms",),
+                    f"atom {a} is out of range for molecule '{mname}', which has atoms 1-{n}",
+                )
+        move = None
+        if cspec.move is not None:
+            for a in cspec.move:
+                if not 1 <= a <= n:
+                    raise err(
+                        cloc + ("move",),
+                        f"atom {a} is out of range for molecule '{mname}', which has atoms 1-{n}",
+                    )
+            move = [a - 1 for a in cspec.move]
+        if coord.kind == "dihedral":
+            problem = coords.undefined_dihedral(
+                [atoms.positions[i] for i in coord.atoms], coord.atoms
+            )
+            if problem:
+                raise err(cloc + ("atoms",), f"molecule '{mname}': {problem}")
+        try:
+            per.append(coords.moving_atoms(atoms, coord.kind, coord.atoms, move=move))
+        except ValueError as exc:
+            raise err(
+                cloc + ("move" if move is not None else "atoms",), f"molecule '{mname}': {exc}"
+            ) from None
+    # Trial geometries at the ends of the range (the corners of a grid) catch coupled
+    # coordinates and undefined dihedrals before anything runs.
+    if len(resolved) == 2:
+        corners = np.array(
+            [[resolved[0].values[i], resolved[1].values[j]] for i in (0, -1) for j in (0, -1)]
+        )
+    else:
+        corners = resolved[0].values[[0, -1], None]
+    try:
+        coords.apply_grid(
+            atoms.get_positions(),
+            [(co.kind, co.atoms, mv) for co, mv in zip(resolved, per)],
+            corners,
+        )
+    except ValueError as exc:
+        raise err(loc + ("coordinates",), f"molecule '{mname}': {exc}") from None
+    return per
 
 
 def _resolve_level_list(lspecs, loc, elements, err, checked) -> list[Level]:
@@ -334,7 +550,7 @@ def _check_point_count(spec: CampaignSpec, scans, err) -> None:
         largest = max(sizes, key=sizes.get)
         scan = scans[largest]
         raise err(
-            ("scans", largest),
+            ("scans", scan.source),
             _too_many(
                 f"the campaign has {total:,} points (this scan: "
                 f"{sizes[largest] // (len(scan.molecules) * len(scan.levels)):,} grid points x "
@@ -351,31 +567,35 @@ def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
         return sorted({s for m in names for s in molecules[m].symbols})
 
     default_users = [
-        m for n, sc in scans.items() if spec.scans[n].levels is None for m in sc.molecules
+        m for sc in scans.values() if spec.scans[sc.source].levels is None for m in sc.molecules
     ]
     campaign_levels = _resolve_level_list(
         spec.levels, ("levels",), elements_of(default_users), err, checked_basis
     )
     union = list(campaign_levels)
-    for name, scan in scans.items():
-        own = spec.scans[name].levels
+    for scan in scans.values():
+        own = spec.scans[scan.source].levels
         if own is None:
             if not campaign_levels:
                 raise err(
-                    ("scans", name),
+                    ("scans", scan.source),
                     "no levels of theory: give levels at the top of the campaign or in this scan",
                 )
             scan.levels = list(campaign_levels)
         else:
             scan.levels = _resolve_level_list(
-                own, ("scans", name, "levels"), elements_of(scan.molecules), err, checked_basis
+                own,
+                ("scans", scan.source, "levels"),
+                elements_of(scan.molecules),
+                err,
+                checked_basis,
             )
         if scan.relax:
             from pesflow.engine import method_info
 
             for lvl in scan.levels:
                 if not method_info(lvl.method).has_gradients:
-                    where = ("scans", name, "levels") if own is not None else ("levels",)
+                    where = ("scans", scan.source, "levels") if own is not None else ("levels",)
                     raise err(
                         where,
                         f"a relaxed scan needs analytic gradients; {lvl.method} has "
@@ -440,13 +660,24 @@ def load_campaign(path) -> Campaign:
     spec = parse_spec(path)
     _, located = _read_yaml(path)
     err = _Errors(path, located)
-    molecules = {
-        name: _resolve_molecule(name, m, path.parent, err) for name, m in spec.molecules.items()
-    }
-    scans = {name: _resolve_scan(name, s, molecules, err) for name, s in spec.scans.items()}
+    notes: list[dict] = []
+    molecules, groups = {}, {}
+    for name, m in spec.molecules.items():
+        resolved = _resolve_entry(name, m, path.parent, err, notes)
+        molecules.update(resolved)
+        groups[name] = list(resolved)
+    scans = _resolve_scans(spec, molecules, groups, err, notes)
     levels = _resolve_levels(spec, molecules, scans, err)
     _check_point_count(spec, scans, err)
-    campaign = Campaign(spec=spec, path=path, molecules=molecules, scans=scans, levels=levels)
+    campaign = Campaign(
+        spec=spec,
+        path=path,
+        molecules=molecules,
+        scans=scans,
+        levels=levels,
+        groups=groups,
+        notes=notes,
+    )
     for name in [None, *(n for n, s in spec.scans.items() if s.engine is not None)]:
         try:
             campaign.engine_settings(name)

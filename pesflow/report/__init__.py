@@ -59,6 +59,7 @@ _CSV = (
     ("pending_csv", "pending.csv", "pending"),
     ("convergence_csv", "convergence.csv", "convergence"),
     ("summary_csv", "summary.csv", "curves"),
+    ("sets_csv", "sets.csv", "sets"),
 )
 _LABELS = {
     "quantities.csv": "derived quantities per curve and level, with deviations",
@@ -70,6 +71,7 @@ _LABELS = {
     "pending.csv": "points not computed yet",
     "convergence.csv": "quantities against basis-set size",
     "summary.csv": "the summary table the report was built from",
+    "sets.csv": "statistics per molecule set, rule, level and quantity",
     "report.md": "this report as Markdown",
     "figures/": "the figures as PNG files",
 }
@@ -109,8 +111,8 @@ def build_report(
         ``{"html": .../report.html, "markdown": .../report.md, "figures": .../figures,
         "quantities_csv": ..., "reference_values_csv": ..., "statistics_csv": ...,
         "cost_csv": ..., "status_csv": ..., "failed_csv": ..., "pending_csv": ...,
-        "convergence_csv": ..., "summary_csv": ...}``.  Each file is written atomically
-        (temporary file, then rename); figures of an earlier report that are no longer
+        "convergence_csv": ..., "summary_csv": ..., "sets_csv": ...}``.  Each file is written
+        atomically (temporary file, then rename); figures of an earlier report that are no longer
         produced are removed.  Reads nothing but the arguments (and PySCF's basis-function
         counts when some method was run with two or more basis sets); computes no energies.
     """

@@ -21,6 +21,7 @@ from pesflow.report.tables import (
     fmt_dev,
     fmt_seconds,
     fmt_value,
+    fmt_value_u,
     scan_label,
 )
 
@@ -49,7 +50,7 @@ def _table(head, rows) -> list[str]:
 
 def _cell(row, q) -> str:
     if row["state"] == "value":
-        text = fmt_value(row["value"], q.decimals)
+        text = fmt_value_u(row["value"], row.get("uncertainty"), q.decimals)
     elif row["state"] == "not determined" and row["n_pending"]:
         text = f"*not determined ({row['n_pending']} pending)*"
     else:
@@ -173,6 +174,18 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
         ]
     for q in d.quantities:
         lines += _quantity(d, q)
+    if not d.sets.empty:
+        lines += ["## Molecule sets and rules", ""]
+        lines += _table(
+            ["set", "rule", "level", "quantity", "molecules", "complete", "median", "min", "max"],
+            [
+                [md(r.set), md(r.rule), md(r.level), md(QUANTITY[r.quantity].title),
+                 str(r.n_molecules), f"{r.n_complete} of {r.n_curves}",
+                 *(fmt_value(v, QUANTITY[r.quantity].decimals)
+                   for v in (r.median, r.minimum, r.maximum))]
+                for r in d.sets.itertuples(index=False)
+            ],
+        )  # fmt: skip
     if d.convergence.empty:
         lines += [
             "(Basis-set convergence: left out, each method was computed with one basis set.)",

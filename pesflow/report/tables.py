@@ -20,10 +20,11 @@ import pandas as pd
 
 from pesflow.analysis.flags import FLAG_KINDS, Flag, flags_from_records
 from pesflow.analysis.quantities import QUANTITIES as ALL_QUANTITIES
-from pesflow.analysis.quantities import Quantity
+from pesflow.analysis.quantities import Quantity, uncertainty_column
 from pesflow.coordinates.kinds import KINDS, UNIT_TEXT, column_names
 from pesflow.report.stats import common_curve_statistics, level_statistics
 from pesflow.tables.points import status_counts
+from pesflow.tables.summary import ENVELOPE
 
 #: The quantities the report can show, in the order it shows them (from the registry).
 QUANTITIES = tuple(q for q in ALL_QUANTITIES if q.shown)
@@ -67,10 +68,11 @@ class ReportData:
         level_method, level_basis: method and basis of each level.
         quantities: the quantities shown, in order.
         values: one row per curve x level x quantity: ``molecule, scan, kind, level, method,
-            basis, quantity, value, dev_reference_level, state, n_done, n_failed,
-            n_pending, flags`` (``state``: ``value`` / ``pending`` / ``failed`` /
-            ``not determined``; ``flags``: the warnings that concern this number, joined by
-            ``" | "``).
+            basis, quantity, value, uncertainty, dev_reference_level, state, n_done,
+            n_failed, n_pending, flags`` (``uncertainty``: the summary's standard
+            uncertainty ``u_<column>``, NaN when not known; ``state``: ``value`` /
+            ``pending`` / ``failed`` / ``not determined``; ``flags``: the warnings that
+            concern this number, joined by ``" | "``).
         reference_values: one row per user reference value x level: ``molecule, scan,
             quantity, source, reference_value, level, value, deviation``.
         statistics: :func:`~pesflow.report.stats.level_statistics` rows against the
@@ -109,6 +111,11 @@ class ReportData:
     convergence: pd.DataFrame
     totals: dict = field(default_factory=dict)
     ranking: pd.DataFrame | None = None
+    #: per set, rule, level and quantity: statistics over the set's molecules
+    #: (:func:`set_statistics`); empty when the campaign has no molecule sets
+    sets: pd.DataFrame = field(default_factory=pd.DataFrame)
+    #: the set members' summary rows behind :attr:`sets` (per-molecule detail)
+    set_members: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @property
     def complete(self) -> bool:
@@ -228,6 +235,7 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
                     "basis": row["basis"],
                     "quantity": q.column,
                     "value": value,
+                    "uncertainty": _num(row, uncertainty_column(q.column)),
                     "dev_reference_level": dev,
                     "reference_level": reference_level or "",
                     "state": _state(value, row),
@@ -246,6 +254,7 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
         "basis",
         "quantity",
         "value",
+        "uncertainty",
         "dev_reference_level",
         "reference_level",
         "state",
@@ -516,6 +525,9 @@ def collect(
                 "flags",
             ]
         )
+    sets, set_members = set_statistics(summary)
+    if "conformer" in summary:  # a lower envelope is a derived curve: sets only
+        summary = summary[summary["conformer"] != ENVELOPE].reset_index(drop=True)
     quantities, per_curve = _applicable(summary, kinds, refs)
     values = _values_table(summary, quantities, per_curve, kinds, reference_level)
     reference_values = _reference_values_table(values, refs, levels)
@@ -558,7 +570,76 @@ def collect(
         convergence=_convergence(values, campaign, basis_counts),
         totals={s: int(counts.get(s, 0)) for s in ("done", "failed", "pending")},
         ranking=_ranking(values, reference_values, levels, reference_level),
+        sets=sets,
+        set_members=set_members,
     )
+
+
+#: Columns of :func:`set_statistics`'s statistics table.
+SET_COLUMNS = (
+    "set", "rule", "level", "quantity", "n_molecules", "n_curves", "n_complete",
+    "median", "minimum", "maximum",
+)  # fmt: skip
+
+
+def set_statistics(summary: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Statistics of each molecule set, rule and level over its members, and the member rows.
+
+    Only rows of molecules from a set count; a member with several conformers counts once,
+    through its lower envelope.  For every shown curve quantity that some member has, the
+    median, minimum and maximum over the set's curves (NaN-free values only); ``n_curves``
+    counts every curve of the set and rule at that level, ``n_complete`` those with every
+    point done.  A torsion's minimum position has no statistics (its zero is a convention of
+    each molecule's four atoms).  ``rule`` is ``"atoms by number"`` for a scan that names its atoms.
+
+    Returns ``(statistics, members)``: the statistics (columns :data:`SET_COLUMNS`) and the
+    summary rows they come from, sorted by set, rule, molecule and scan.
+    """
+    empty = pd.DataFrame(columns=list(SET_COLUMNS))
+    if summary is None or summary.empty or "set" not in summary:
+        return empty, pd.DataFrame()
+    rows = summary[summary["set"].fillna("") != ""]
+    if "conformer" in rows:
+        conformer = rows["conformer"].astype(str)
+        envelope = rows[conformer == ENVELOPE]
+        covered = set(zip(envelope["molecule"], envelope["scan"], envelope["level"]))
+        member = rows["molecule"].str.replace(r"/c\d+$", "", regex=True)
+        is_conformer = conformer.str.match(r"^c\d+$")
+        replaced = [
+            c and (m, sc, lv) in covered
+            for c, m, sc, lv in zip(is_conformer, member, rows["scan"], rows["level"])
+        ]
+        rows = rows[~np.asarray(replaced, dtype=bool)]
+    if rows.empty:
+        return empty, pd.DataFrame()
+    rows = rows.assign(rule=rows["rule"].fillna("").replace("", "atoms by number"))
+    # The position of a periodic coordinate's minimum (a torsion's) differs from molecule to
+    # molecule by convention alone (which four atoms, which end of 0..360), so it has no
+    # statistics across a set.
+    quantities = [
+        q
+        for q in ALL_QUANTITIES
+        if q.curve and q.shown and q.headline and q.column in rows
+        and not (q.position_of and KINDS[q.position_of].period)
+    ]  # fmt: skip
+    out = []
+    for (set_name, rule, level), sub in rows.groupby(["set", "rule", "level"], sort=False):
+        complete = int(((sub["n_failed"] == 0) & (sub["n_pending"] == 0)).sum())
+        for q in quantities:
+            values = pd.to_numeric(sub[q.column], errors="coerce").dropna()
+            if values.empty:
+                continue
+            out.append(
+                {
+                    "set": set_name, "rule": rule, "level": level, "quantity": q.column,
+                    "n_molecules": int(sub.loc[values.index, "molecule"].nunique()),
+                    "n_curves": len(sub), "n_complete": complete,
+                    "median": float(values.median()), "minimum": float(values.min()),
+                    "maximum": float(values.max()),
+                }
+            )  # fmt: skip
+    members = rows.sort_values(["set", "rule", "molecule", "scan"], kind="stable")
+    return pd.DataFrame(out, columns=list(SET_COLUMNS)), members.reset_index(drop=True)
 
 
 def curve_arrays(campaign, points: pd.DataFrame, molecule: str, scan: str, level: str):
@@ -626,6 +707,33 @@ def fmt_value(value, decimals: int) -> str:
     return f"{v:.{decimals}f}" if np.isfinite(v) else ""
 
 
+def fmt_value_u(value, uncertainty, decimals: int) -> str:
+    """A value with its standard uncertainty, compact: ``"4138.3 ± 0.4"``.
+
+    The uncertainty gets one significant figure (two when it starts with 1 or 2) and the
+    value as many decimals, at most ``decimals``; an uncertainty below the last shown decimal
+    is written with one significant figure.  Without a (finite) uncertainty: the value alone.
+
+    >>> fmt_value_u(4138.3421, 0.43, 1), fmt_value_u(4138.3421, 12.4, 1)
+    ('4138.3 ± 0.4', '4138 ± 12')
+    >>> fmt_value_u(0.916812, 3e-9, 4), fmt_value_u(1.5, float("nan"), 2)
+    ('0.9168 ± 3e-09', '1.50')
+    """
+    text = fmt_value(value, decimals)
+    try:
+        u = float(uncertainty)
+    except (TypeError, ValueError):
+        return text
+    if not text or not np.isfinite(u) or u < 0:
+        return text
+    if u < 0.5 * 10.0 ** (-decimals):
+        return f"{text} ± {u:.1g}"
+    exponent = int(np.floor(np.log10(u)))
+    digits = 2 if f"{u:.1e}"[0] in "12" else 1
+    places = min(decimals, max(0, digits - 1 - exponent))
+    return f"{float(value):.{places}f} ± {u:.{places}f}"
+
+
 def fmt_dev(value, decimals: int) -> str:
     """A deviation with its sign, as shown in the report's tables (``""`` for NaN).
 
@@ -650,25 +758,6 @@ def fmt_seconds(value) -> str:
     except (TypeError, ValueError):
         return ""
     return f"{v:.3g}" if np.isfinite(v) else ""
-
-
-def fmt_duration(seconds) -> str:
-    """A duration in the unit that reads best: seconds, minutes or hours (``""`` for NaN).
-
-    >>> fmt_duration(4.356), fmt_duration(0.2), fmt_duration(754), fmt_duration(5 * 3600 + 60)
-    ('4.4 s', '0.2 s', '13 min', '5.0 h')
-    """
-    try:
-        v = float(seconds)
-    except (TypeError, ValueError):
-        return ""
-    if not np.isfinite(v):
-        return ""
-    if v < 60:
-        return f"{v:.2g} s" if v < 10 else f"{v:.0f} s"
-    if v < 3600:
-        return f"{v / 60:.0f} min" if v >= 600 else f"{v / 60:.1f} min"
-    return f"{v / 3600:.1f} h" if v < 36000 else f"{v / 3600:.0f} h"
 
 
 def fmt_ratio(value) -> str:

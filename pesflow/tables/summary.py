@@ -20,7 +20,7 @@ import pandas as pd
 from pesflow.analysis.continuity import MAX_OCCUPATION_STEP, occupation_jumps
 from pesflow.analysis.derived import summarize_curve, summarize_surface
 from pesflow.analysis.flags import Flag, flag_records, flag_text, flags_from_records
-from pesflow.analysis.quantities import COMPARED
+from pesflow.analysis.quantities import COMPARED, QUANTITY, uncertainty_column
 from pesflow.coordinates.kinds import KINDS, column_names
 from pesflow.engine import method_info
 
@@ -69,7 +69,10 @@ def _curve_row(campaign, gs, sub, table):
             ),
             restricted_closed_shell_reference=bool(refs) and refs <= _RESTRICTED,
         )
-    row = summarize_curve(kind, sub[column].to_numpy(float), energies, **options)
+    noise = campaign.engine_settings(gs.scan).scf_energy_tolerance_hartree
+    row = summarize_curve(
+        kind, sub[column].to_numpy(float), energies, energy_noise_hartree=noise, **options
+    )
     more = _active_space_flags(sub, column)
     info = method_info(sub["method"].iloc[0])
     if info.options and np.isfinite(row.get("d_e_ev", np.nan)):
@@ -176,7 +179,8 @@ def _surface_row(campaign, gs, sub):
     idx = gs.grid_indices[sub["walk"].to_numpy(int)]
     done = (sub["status"] == "done").to_numpy()
     grid[idx[done, 0], idx[done, 1]] = sub["energy_hartree"].to_numpy(float)[done]
-    return summarize_surface(q1, q2, grid, kinds=gs.coordinate_kinds)
+    noise = campaign.engine_settings(gs.scan).scf_energy_tolerance_hartree
+    return summarize_surface(q1, q2, grid, kinds=gs.coordinate_kinds, energy_noise_hartree=noise)
 
 
 def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
@@ -193,10 +197,14 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
             row = _curve_row(campaign, gs, sub, table)
         else:
             row = _surface_row(campaign, gs, sub)
+        mol, scan = campaign.molecules[gs.molecule], campaign.scans[gs.scan]
         head = {
             "campaign": campaign.name,
             "molecule": gs.molecule,
             "scan": gs.scan,
+            "set": mol.set_name,
+            "rule": scan.rule,
+            "conformer": f"c{mol.conformer}" if mol.conformer else "",
             "level": level,
             "method": sub["method"].iloc[0],
             "basis": sub["basis"].iloc[0],
@@ -208,10 +216,68 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
         }
         # The analysis counts pending points as failed too; the status is what counts here.
         rows.append({**head, **row, "n_failed": head["n_failed"]})
+    rows += _envelope_rows(campaign, plan, scans, table)
     summary = pd.DataFrame(rows)
     if summary.empty:
         return summary
     return add_deviations(summary, campaign.spec.compare.reference_level)
+
+
+#: The ``conformer`` of a summary row that is the lower envelope of a member's conformers.
+ENVELOPE = "lower envelope"
+
+
+def _envelope_rows(campaign, plan, scans, table) -> list[dict]:
+    """One row per member, 1-D scan and level whose member has several conformers: the
+    lower envelope, at each scan value the lowest energy over the conformers' curves
+    (a value no conformer has finished stays missing).  A rigid torsion scan from one
+    conformer can miss the true profile; the envelope is the best curve the set gives."""
+    by_member: dict[tuple[str, str], list] = {}
+    for gs in plan.geometry_sets:
+        mol = campaign.molecules[gs.molecule]
+        if gs.role == "scan" and mol.conformer and len(gs.coordinate_kinds) == 1:
+            by_member.setdefault((mol.member, gs.scan), []).append(gs)
+    rows = []
+    for (member, scan_name), sets in by_member.items():
+        if len(sets) < 2:
+            continue
+        first = sets[0]
+        for level, sub in scans[scans["set_id"] == first.set_id].groupby("level", sort=False):
+            sub = sub.sort_values("walk")
+            stack = []
+            for gs in sets:
+                part = scans[(scans["set_id"] == gs.set_id) & (scans["level"] == level)]
+                part = part.set_index("walk").reindex(sub["walk"])
+                stack.append(np.where(part["status"] == "done", part["energy_hartree"], np.nan))
+            stack = np.asarray(stack, dtype=float)
+            envelope = np.full(stack.shape[1], np.nan)
+            finished = np.isfinite(stack).any(axis=0)
+            envelope[finished] = np.nanmin(stack[:, finished], axis=0)
+            curve = sub.assign(
+                energy_hartree=envelope, status=np.where(finished, "done", "pending")
+            )
+            row = _curve_row(campaign, first, curve, table)
+            scan = campaign.scans[scan_name]
+            rows.append(
+                {
+                    "campaign": campaign.name,
+                    "molecule": member,
+                    "scan": scan_name,
+                    "set": campaign.molecules[first.molecule].set_name,
+                    "rule": scan.rule,
+                    "conformer": ENVELOPE,
+                    "level": level,
+                    "method": sub["method"].iloc[0],
+                    "basis": sub["basis"].iloc[0],
+                    "coordinates": ", ".join(c.label for c in scan.coordinates),
+                    **row,
+                    "n_done": int(finished.sum()),
+                    "n_failed": 0,
+                    "n_pending": int((~finished).sum()),
+                    "cost_core_s": 0.0,
+                }
+            )
+    return rows
 
 
 def _set_ids(plan, frame):
@@ -220,17 +286,52 @@ def _set_ids(plan, frame):
 
 
 def add_deviations(summary: pd.DataFrame, reference_level: str | None) -> pd.DataFrame:
-    """Add ``dev_<column>`` = value - value at ``reference_level`` (same molecule and scan)."""
+    """Add ``dev_<column>`` = value - value at ``reference_level`` (same molecule and scan),
+    ``u_dev_<column>`` (both uncertainties in quadrature) and, where a headline deviation is
+    smaller than its uncertainty, a ``deviation-within-uncertainty`` note."""
     if not reference_level:
         return summary
     reference_level = reference_level.strip().lower()
     cols = [c for c in COMPARED if c in summary.columns]
-    ref = summary.loc[summary["level"] == reference_level, ["molecule", "scan", *cols]]
+    ucols = [uncertainty_column(c) for c in cols if uncertainty_column(c) in summary.columns]
+    ref = summary.loc[summary["level"] == reference_level, ["molecule", "scan", *cols, *ucols]]
     joined = summary[["molecule", "scan"]].merge(
-        ref.rename(columns={c: f"{c}__ref" for c in cols}), on=["molecule", "scan"], how="left"
+        ref.rename(columns={c: f"{c}__ref" for c in (*cols, *ucols)}),
+        on=["molecule", "scan"],
+        how="left",
     )
     out = summary.copy()
+    within = [[] for _ in range(len(out))]
     for c in cols:
-        out[f"dev_{c}"] = summary[c].to_numpy(float) - joined[f"{c}__ref"].to_numpy(float)
+        dev = summary[c].to_numpy(float) - joined[f"{c}__ref"].to_numpy(float)
+        out[f"dev_{c}"] = dev
+        u = uncertainty_column(c)
+        if u not in ucols:
+            continue
+        u_dev = np.hypot(summary[u].to_numpy(float), joined[f"{u}__ref"].to_numpy(float))
+        out[f"u_dev_{c}"] = u_dev
+        if not QUANTITY[c].headline:
+            continue
+        is_ref = (summary["level"] == reference_level).to_numpy()
+        with np.errstate(invalid="ignore"):
+            small = (np.abs(dev) < u_dev) & ~is_ref
+        for i in np.flatnonzero(small):
+            q = QUANTITY[c]
+            within[i].append(f"{q.name} {dev[i]:+.{q.decimals + 1}g} ± {u_dev[i]:.2g} {q.unit}")
+    if "flag_records" in out.columns and any(within):
+        texts, records = list(out["flags"]), list(out["flag_records"])
+        for i, items in enumerate(within):
+            if not items:
+                continue
+            flags = flags_from_records(records[i])
+            flags.append(
+                Flag(
+                    "deviation-within-uncertainty",
+                    f"deviation from {reference_level} smaller than the combined uncertainty "
+                    f"(not significant): {', '.join(items)}",
+                )
+            )
+            texts[i], records[i] = flag_text(flags), flag_records(flags)
+        out["flags"], out["flag_records"] = texts, records
     out["reference_level"] = reference_level
     return out
