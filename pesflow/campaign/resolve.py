@@ -387,6 +387,8 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err, names=None, notes=None) 
     for mname in names:
         try:
             moving[mname] = _moving_atoms(loc, spec, resolved, mname, molecules[mname].atoms, err)
+            if spec.counterpoise:
+                _check_counterpoise(spec, molecules[mname], moving[mname], loc, err)
         except SpecError as exc:
             if not molecules[mname].lenient:
                 raise
@@ -397,6 +399,7 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err, names=None, notes=None) 
         coordinates=resolved,
         moving=moving,
         relax=spec.relax,
+        counterpoise=spec.counterpoise,
     )
 
 
@@ -456,46 +459,175 @@ def _moving_atoms(loc, spec: ScanSpec, resolved, mname, atoms, err) -> list[np.n
     return per
 
 
-def _resolve_level_list(lspecs, loc, elements, err, checked) -> list[Level]:
-    from pesflow import engine
+def _check_counterpoise(spec: ScanSpec, molecule, moving, loc, err) -> None:
+    """A counterpoise scan: one distance moving one whole fragment of a two-fragment molecule."""
+    where = loc + ("counterpoise",)
+    if spec.relax:
+        raise err(where, "counterpoise needs a rigid scan (relax: false)")
+    if len(spec.coordinates) != 1 or spec.coordinates[0].type != "distance":
+        raise err(where, "counterpoise needs one distance coordinate (the fragments' separation)")
+    frags = molecule.fragments
+    if len(frags) != 2:
+        raise err(
+            where,
+            f"counterpoise needs molecule '{molecule.name}' to list 2 fragments under "
+            f"molecules.{molecule.name}.fragments (it lists {len(frags)})",
+        )
+    moved = {int(a) for a in moving[0]}
+    if moved not in ({int(a) for a in f["atoms"]} for f in frags):
+        raise err(
+            where,
+            f"counterpoise needs the scan to move one whole fragment of '{molecule.name}'; it "
+            f"moves atoms {sorted(a + 1 for a in moved)} (give move: with one fragment's atoms)",
+        )
 
+
+def _resolve_level_list(lspecs, loc, elements, err, checked) -> list[Level]:
     levels = []
+    auto = set()  # members added for a CBS level: listing them again is no repeat
     for i, lspec in enumerate(lspecs):
-        options = lspec.options()
+        if lspec.extrapolate is not None:
+            for member in _cbs_members(lspec, loc + (i,), err):
+                level = _resolve_pair(*member, loc + (i,), elements, err, checked)
+                if level not in levels:
+                    levels.append(level)
+                    auto.add(level)
+            for derived in _cbs_levels(lspec, levels):
+                if derived in levels:
+                    raise err(loc + (i,), f"level {derived.label} is listed twice")
+                levels.append(derived)
+            continue
         for method, basis in lspec.pairs():
-            try:
-                info = engine.method_info(method)
-            except EngineSetupError as exc:
-                hint = did_you_mean(str(method).strip().lower(), _method_names())
-                raise err(loc + (i, "method"), _with_hint(str(exc), hint)) from None
-            if options or info.options:
-                try:
-                    info = engine.method_info(engine.level_method(info.name, options))
-                except EngineSetupError as exc:
-                    given = [k for k in options if k not in info.options]
-                    named = [k for k in options if k in str(exc)]
-                    where = (given or named or [*options, "method"])[0]
-                    raise err(loc + (i, where), str(exc)) from None
-            where = loc + (i, "basis") if basis is not None else loc + (i,)
-            basis_c = ""
-            for element in elements:
-                if (info.name, basis, element) not in checked:
-                    try:
-                        _, basis_c = engine.check_level(info.name, basis, [element])
-                        checked[(info.name, basis, element)] = (basis_c, None)
-                    except EngineSetupError as exc:
-                        hint = _basis_hint(basis.strip().lower()) if basis else ""
-                        checked[(info.name, basis, element)] = (None, str(exc) + hint)
-                basis_c, problem = checked[(info.name, basis, element)]
-                if problem is not None:
-                    raise err(where, problem)
-            if not elements:
-                basis_c = "" if basis is None else basis.strip().lower()
-            level = Level(info.name, basis_c)
+            level = _resolve_pair(
+                method, basis, loc + (i,), elements, err, checked, lspec.options()
+            )
+            if level in auto:
+                auto.discard(level)
+                continue
             if level in levels:
                 raise err(loc + (i,), f"level {level.label} is listed twice")
             levels.append(level)
     return levels
+
+
+def _resolve_pair(method, basis, loc, elements, err, checked, options=None) -> Level:
+    """One computed level, its method (with its level options folded into its name)
+    and basis checked against the engines."""
+    from pesflow import engine
+
+    options = options or {}
+    try:
+        info = engine.method_info(method)
+    except EngineSetupError as exc:
+        hint = did_you_mean(str(method).strip().lower(), _method_names())
+        raise err(loc + ("method",), _with_hint(str(exc), hint)) from None
+    if options or info.options:
+        try:
+            info = engine.method_info(engine.level_method(info.name, options))
+        except EngineSetupError as exc:
+            given = [k for k in options if k not in info.options]
+            named = [k for k in options if k in str(exc)]
+            where = (given or named or [*options, "method"])[0]
+            raise err(loc + (where,), str(exc)) from None
+    where = loc + ("basis",) if basis is not None else loc
+    basis_c = ""
+    for element in elements:
+        if (info.name, basis, element) not in checked:
+            try:
+                _, basis_c = engine.check_level(info.name, basis, [element])
+                checked[(info.name, basis, element)] = (basis_c, None)
+            except EngineSetupError as exc:
+                hint = _basis_hint(basis.strip().lower()) if basis else ""
+                checked[(info.name, basis, element)] = (None, str(exc) + hint)
+        basis_c, problem = checked[(info.name, basis, element)]
+        if problem is not None:
+            raise err(where, problem)
+    if not elements:
+        basis_c = "" if basis is None else basis.strip().lower()
+    return Level(info.name, basis_c)
+
+
+#: Methods a CBS level can extrapolate: HF alone, or a correlated method on an HF reference.
+CBS_METHODS = ("hf", "mp2", "ccsd", "ccsd(t)")
+
+
+def _cbs_members(lspec, loc, err) -> list[tuple[str, str]]:
+    """The (method, basis) pairs a CBS level spec needs computed; checks the spec."""
+    from pesflow.analysis.cbs import parse_cc_basis
+
+    methods = [lspec.method] if isinstance(lspec.method, str) else list(lspec.method)
+    bases = (
+        []
+        if lspec.basis is None
+        else [lspec.basis]
+        if isinstance(lspec.basis, str)
+        else list(lspec.basis)
+    )
+    for j, method in enumerate(methods):
+        name = "".join(str(method).strip().lower().split())
+        if name not in CBS_METHODS:
+            where = loc + ("method",) if isinstance(lspec.method, str) else loc + ("method", j)
+            raise err(
+                where,
+                f"extrapolate: cbs needs hf or a correlated wavefunction method; got "
+                f"'{method}'; allowed: {', '.join(CBS_METHODS)}",
+            )
+    if not 2 <= len(bases) <= 3:
+        raise err(
+            loc + ("basis",),
+            f"extrapolate: cbs needs a list of 2 or 3 basis sets of one correlation-consistent "
+            f"family (got {len(bases)}), e.g. [cc-pvtz, cc-pvqz]",
+        )
+    parsed = []
+    for j, basis in enumerate(bases):
+        p = parse_cc_basis(basis)
+        if p is None:
+            raise err(
+                loc + ("basis", j),
+                f"extrapolate: cbs needs correlation-consistent basis sets; '{basis}' is not one; "
+                "allowed: cc-pvXz, aug-cc-pvXz, cc-pcvXz, cc-pwcvXz and their aug- forms, "
+                "X = d, t, q, 5, 6",
+            )
+        parsed.append(p)
+    families = list(dict.fromkeys(f for f, _ in parsed))
+    if len(families) > 1:
+        raise err(
+            loc + ("basis",),
+            f"extrapolate: cbs needs basis sets of one family; got {' and '.join(families)} "
+            "(the formulas assume one family's convergence)",
+        )
+    cardinals = sorted(x for _, x in parsed)
+    if len(set(cardinals)) != len(cardinals):
+        raise err(
+            loc + ("basis",), "extrapolate: cbs needs basis sets of different cardinal numbers"
+        )
+    if len(cardinals) == 3 and cardinals[2] - cardinals[0] != 2:
+        raise err(
+            loc + ("basis",),
+            "extrapolate: cbs with 3 basis sets needs consecutive cardinal numbers (e.g. "
+            "dz, tz, qz; Feller's three-point formula)",
+        )
+    pairs = []
+    for method in methods:
+        pairs += [(method, b) for b in bases]
+        if "".join(str(method).strip().lower().split()) != "hf":
+            pairs += [("hf", b) for b in bases]
+    return pairs
+
+
+def _cbs_levels(lspec, levels) -> list[Level]:
+    """The derived CBS levels of a spec whose members are resolved in ``levels``."""
+    from pesflow.analysis.cbs import cbs_basis_label
+
+    methods = [lspec.method] if isinstance(lspec.method, str) else list(lspec.method)
+    bases = [b.strip().lower() for b in lspec.basis]
+    out = []
+    for method in methods:
+        name = "".join(str(method).strip().lower().split())
+        want = {(name, b) for b in bases} | ({("hf", b) for b in bases} if name != "hf" else set())
+        members = tuple(lvl for lvl in levels if (lvl.method, lvl.basis) in want)
+        out.append(Level(name, cbs_basis_label(bases), members=members))
+    return out
 
 
 def _with_hint(message: str, hint: str) -> str:
@@ -590,11 +722,22 @@ def _resolve_levels(spec: CampaignSpec, molecules, scans, err) -> list[Level]:
                 err,
                 checked_basis,
             )
+        if scan.counterpoise:
+            from pesflow.engine import method_info
+
+            for lvl in scan.levels:
+                if not lvl.members and not method_info(lvl.method).needs_basis:
+                    where = ("scans", scan.source, "levels") if own is not None else ("levels",)
+                    raise err(
+                        where,
+                        f"counterpoise needs levels with basis sets; {lvl.method} has a "
+                        "built-in basis (no ghost atoms)",
+                    )
         if scan.relax:
             from pesflow.engine import method_info
 
             for lvl in scan.levels:
-                if not method_info(lvl.method).has_gradients:
+                if not lvl.members and not method_info(lvl.method).has_gradients:
                     where = ("scans", scan.source, "levels") if own is not None else ("levels",)
                     raise err(
                         where,

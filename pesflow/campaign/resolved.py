@@ -16,10 +16,15 @@ from pesflow.coordinates.kinds import KINDS
 
 @dataclass(frozen=True)
 class Level:
-    """A level of theory; ``basis`` is ``""`` for a level with a built-in basis."""
+    """A level of theory; ``basis`` is ``""`` for a level with a built-in basis.
+
+    A derived level (complete-basis-set extrapolation) has ``members``: the computed
+    levels its energies are made from (``basis`` is then e.g. ``cbs(cc-pv[tq]z)``); the
+    plan computes no point of its own for it (README "CBS levels")."""
 
     method: str
     basis: str
+    members: tuple[Level, ...] = ()
 
     @property
     def label(self) -> str:
@@ -96,6 +101,8 @@ class Scan:
     source: str = ""
     #: the rule that chose the coordinate, "" for atoms given by number
     rule: str = ""
+    #: each fragment also computed in the complex's full basis (ghost atoms) at each point
+    counterpoise: bool = False
 
     def __post_init__(self):
         if not self.source:

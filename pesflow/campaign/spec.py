@@ -321,6 +321,9 @@ class ScanSpec(_Strict):
     relax: bool = False
     #: engine settings of this scan only (over the campaign's), e.g. broken_symmetry
     engine: EngineSpec | None = None
+    #: counterpoise-corrected interaction curve of a complex of two fragments (README
+    #: "Counterpoise"): each fragment is also computed in the complex's basis
+    counterpoise: bool = False
 
     @model_validator(mode="after")
     def _rule_alone(self):
@@ -380,6 +383,10 @@ class LevelSpec(_Strict):
             if value is not None:
                 out[name] = value.model_dump() if isinstance(value, BaseModel) else value
         return out
+
+    #: ``cbs``: one derived level per method, extrapolated to the complete basis set from
+    #: the two or three correlation-consistent basis sets listed (README "CBS levels")
+    extrapolate: Literal["cbs"] | None = None
 
     def pairs(self) -> list[tuple[str, str | None]]:
         methods = [self.method] if isinstance(self.method, str) else list(self.method)

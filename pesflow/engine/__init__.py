@@ -107,6 +107,9 @@ class Geometry:
         positions_angstrom: ``(n, 3)`` Cartesian coordinates in angstrom.
         charge: total charge in units of e; default 0.
         multiplicity: 2S+1; default 1 (singlet).
+        ghosts: 0-based atoms that are ghosts: their basis functions stay, their nuclei
+            and electrons do not (counterpoise correction, Boys & Bernardi, Mol. Phys.
+            19, 553 (1970)); charge and multiplicity are those of the real atoms.
 
     >>> g = Geometry(("H", "H"), [[0, 0, 0], [0, 0, 0.74]])
     >>> g.positions_angstrom.shape, g.spin
@@ -117,9 +120,17 @@ class Geometry:
     positions_angstrom: np.ndarray
     charge: int = 0
     multiplicity: int = 1
+    ghosts: tuple[int, ...] = ()
 
     def __post_init__(self):
         symbols = tuple(str(s) for s in self.symbols)
+        ghosts = tuple(sorted({int(a) for a in self.ghosts}))
+        in_range = not ghosts or (ghosts[0] >= 0 and ghosts[-1] < len(symbols))
+        if not in_range or len(ghosts) >= len(symbols) > 0:
+            raise EngineSetupError(
+                f"ghosts {list(ghosts)} must be atoms 0-{len(symbols) - 1}, not all of them"
+            )
+        object.__setattr__(self, "ghosts", ghosts)
         positions = np.array(self.positions_angstrom, dtype=float)
         if positions.shape != (len(symbols), 3):
             raise EngineSetupError(

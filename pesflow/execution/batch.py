@@ -141,12 +141,15 @@ class _Walk:
             positions_angstrom=np.asarray(point["positions"], dtype=float),
             charge=self.task["charge"],
             multiplicity=self.task["multiplicity"],
+            ghosts=tuple(self.task.get("ghosts", ())),
         )
 
     def settings_key(self, method):
         key = self.settings.key_dict(method)
         if self.relax:
             key = {**key, "relax": self.relax["key"]}
+        if self.task.get("ghosts"):
+            key = {**key, "ghosts": list(self.task["ghosts"])}
         return key
 
     def relax_point(self, point, method):

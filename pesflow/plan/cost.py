@@ -165,7 +165,7 @@ def used_pairs(campaign) -> list[tuple[str, str]]:
     for scan in campaign.scans.values():
         for molecule in scan.molecules:
             for level in scan.levels:
-                if (molecule, level.basis) not in pairs:
+                if not level.members and (molecule, level.basis) not in pairs:
                     pairs.append((molecule, level.basis))
     return pairs
 

@@ -878,6 +878,14 @@ def _sets_section(d: ReportData, figures, files) -> Markup:
 #: takes ``(data, figures, files)`` and returns the section's markup, or an :class:`Omitted`
 #: reason when it has nothing to show: the section is then left out of the page and its
 #: contents line says why.
+def _counterpoise_section(d, figures, files):
+    from pesflow.report.interaction import counterpoise_section
+
+    if not any(k.startswith("interaction:") for k in figures):
+        return Omitted("the campaign has no counterpoise scan")
+    return counterpoise_section(d, figures, files)
+
+
 SECTIONS = (
     (
         "overview",
@@ -898,6 +906,12 @@ SECTIONS = (
         "Curves and surfaces",
         "Curves and surfaces",
         lambda d, figures, files: _curve_sections(d, figures),
+    ),
+    (
+        "counterpoise",
+        "Counterpoise-corrected interaction curves",
+        "Interaction curves",
+        lambda d, figures, files: _counterpoise_section(d, figures, files),
     ),
     ("notes", "Notes: warnings of the analysis", "Notes", _notes_section),
     ("cost", "Compute cost per level", "Compute cost", lambda d, f, x: _cost_section(d)),

@@ -793,6 +793,9 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
             ),
             f"{q.name} against basis-set size",
         )
+    from pesflow.report.interaction import interaction_figures
+
+    figures.update(interaction_figures(campaign, points, data, styles))
     if data.reference_level:
         stats = data.statistics[
             (data.statistics["against"] == data.reference_level) & (data.statistics["n"] > 0)

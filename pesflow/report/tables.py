@@ -455,6 +455,8 @@ def _convergence(values, campaign, basis_counts):
     """Quantity against basis-set size for every method computed with two or more bases."""
     columns = ["molecule", "scan", "quantity", "method", "basis", "nbf", "cardinal", "value"]
     finite = values[values["state"] == "value"]
+    # a CBS level has no basis-set size; it is a level of its own in every other table
+    finite = finite[~finite["basis"].astype(str).str.startswith("cbs(")]
     bases_per_method = finite.groupby(["molecule", "scan", "quantity", "method"])["basis"].nunique()
     wanted = bases_per_method[bases_per_method >= 2]
     if wanted.empty:

@@ -12,6 +12,12 @@ import numpy as np
 import pandas as pd
 
 from pesflow.plan.expand import Plan, points_frame
+from pesflow.tables.derived import (
+    NEEDED_COLUMNS,
+    add_derived_rows,
+    add_interaction_columns,
+    derived_levels,
+)
 
 #: Columns of the exported points table, in order (coordinate columns follow ``scan``).
 LEADING = ["campaign", "molecule", "scan", "role", "level", "method", "basis", "walk"]
@@ -52,8 +58,11 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
     """
     frame = points_frame(plan)
     wanted = None
+    derived = derived_levels(plan)
     if columns is not None:
-        wanted = sorted(set(columns) | {"key", "converged"})
+        wanted = sorted(
+            set(columns) | {"key", "converged"} | set(NEEDED_COLUMNS if derived else ())
+        )
     records = store.load(keys=set(frame["key"]), columns=wanted) if store.exists() else None
     if records is not None and records.num_rows:
         rec = records.to_pandas()
@@ -66,11 +75,15 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
     for col in wanted if wanted is not None else [c for c in TRAILING if c != "status"]:
         if col not in frame.columns:
             frame[col] = np.nan
+    if derived:  # CBS levels: rows made from their members' stored energies
+        frame = add_derived_rows(plan, frame)
     frame["status"] = _status_of(frame["converged"])
     if "extra_json" in frame.columns:
         occupations = natural_occupations(frame["extra_json"])
         if occupations.notna().any():
             frame["natural_occupations"] = occupations
+    if "energy_hartree" in frame.columns:  # counterpoise scans: interaction energies per point
+        frame = add_interaction_columns(plan, frame)
     frame.insert(0, "campaign", plan.campaign)
     coord = [
         c

@@ -172,6 +172,19 @@ def _dissociation_note(info, fragment_energies):
     return Flag("dissociation-reference", text)
 
 
+def _interaction_row(gs, sub):
+    """Counterpoise scan: the interaction curve's minimum, well depths and BSSE there."""
+    from pesflow.analysis.interaction import interaction_summary
+
+    sub = sub.sort_values("walk")
+    column = column_names(gs.coordinate_kinds)[0]
+    return interaction_summary(
+        sub[column].to_numpy(float),
+        sub["interaction_hartree"].to_numpy(float),
+        sub["interaction_cp_hartree"].to_numpy(float),
+    )
+
+
 def _surface_row(campaign, gs, sub):
     scan = campaign.scans[gs.scan]
     q1, q2 = (c.values for c in scan.coordinates)
@@ -195,6 +208,8 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
         gs = plan.geometry_sets[int(set_id)]
         if len(gs.coordinate_kinds) == 1:
             row = _curve_row(campaign, gs, sub, table)
+            if campaign.scans[gs.scan].counterpoise and "interaction_cp_hartree" in sub:
+                row.update(_interaction_row(gs, sub))
         else:
             row = _surface_row(campaign, gs, sub)
         mol, scan = campaign.molecules[gs.molecule], campaign.scans[gs.scan]
