@@ -498,7 +498,9 @@ def _resolve_level_list(lspecs, loc, elements, err, checked) -> list[Level]:
                 levels.append(derived)
             continue
         for method, basis in lspec.pairs():
-            level = _resolve_pair(method, basis, loc + (i,), elements, err, checked)
+            level = _resolve_pair(
+                method, basis, loc + (i,), elements, err, checked, lspec.options()
+            )
             if level in auto:
                 auto.discard(level)
                 continue
@@ -508,15 +510,25 @@ def _resolve_level_list(lspecs, loc, elements, err, checked) -> list[Level]:
     return levels
 
 
-def _resolve_pair(method, basis, loc, elements, err, checked) -> Level:
-    """One computed level, its method and basis checked against the engines."""
+def _resolve_pair(method, basis, loc, elements, err, checked, options=None) -> Level:
+    """One computed level, its method (with its level options folded into its name)
+    and basis checked against the engines."""
     from pesflow import engine
 
+    options = options or {}
     try:
         info = engine.method_info(method)
     except EngineSetupError as exc:
         hint = did_you_mean(str(method).strip().lower(), _method_names())
         raise err(loc + ("method",), _with_hint(str(exc), hint)) from None
+    if options or info.options:
+        try:
+            info = engine.method_info(engine.level_method(info.name, options))
+        except EngineSetupError as exc:
+            given = [k for k in options if k not in info.options]
+            named = [k for k in options if k in str(exc)]
+            where = (given or named or [*options, "method"])[0]
+            raise err(loc + (where,), str(exc)) from None
     where = loc + ("basis",) if basis is not None else loc
     basis_c = ""
     for element in elements:
@@ -634,9 +646,14 @@ def _method_names() -> tuple[str, ...]:
     """Method names to suggest from: the wavefunction methods and libxc's functionals."""
     from pyscf.dft import libxc
 
-    from pesflow.engine import TIGHT_BINDING_METHODS, WAVEFUNCTION_METHODS
+    from pesflow.engine import (
+        MULTIREFERENCE_METHODS,
+        TIGHT_BINDING_METHODS,
+        WAVEFUNCTION_METHODS,
+    )
 
-    names = {*WAVEFUNCTION_METHODS, *TIGHT_BINDING_METHODS, *(k.lower() for k in libxc.XC_ALIAS)}
+    names = {*WAVEFUNCTION_METHODS, *TIGHT_BINDING_METHODS, *MULTIREFERENCE_METHODS}
+    names |= {k.lower() for k in libxc.XC_ALIAS}
     names |= {k.lower() for k in libxc.XC_CODES}
     return tuple(sorted(names))
 

@@ -337,12 +337,53 @@ class ScanSpec(_Strict):
         return self
 
 
+class ActiveLabelsSpec(_Strict):
+    """An active space chosen by PySCF's AVAS from atomic-orbital labels."""
+
+    ao_labels: list[str] = Field(min_length=1)
+
+
 class LevelSpec(_Strict):
     """Levels of theory: every method with every basis set listed.  A tight-binding
-    level (``gfn2-xtb``, ``gfn1-xtb``) has its own basis and is given without one."""
+    level (``gfn2-xtb``, ``gfn1-xtb``) has its own basis and is given without one.
+
+    Level options (:data:`pesflow.engine.LEVEL_OPTIONS`) apply to every method listed
+    that takes them and become part of its name (``casscf(6,6)``); a method that takes
+    none refuses them."""
 
     method: str | list[str]
     basis: str | list[str] | None = None
+    #: active space of casscf/nevpt2: [electrons, orbitals] or {ao_labels: [...]}
+    active: list[int] | ActiveLabelsSpec | None = None
+    #: casscf/nevpt2: roots averaged in the CASSCF (state averaging)
+    states: int | None = Field(default=None, ge=1)
+    #: casscf/nevpt2: weights of the averaged roots (default equal)
+    weights: list[FiniteFloat] | None = None
+
+    @field_validator("active", mode="before")
+    @classmethod
+    def _active_labels(cls, value):
+        # A mapping is the AO-label form: name its unknown keys (not "not a list").
+        if isinstance(value, dict):
+            for key in value:
+                if key != "ao_labels":
+                    raise PydanticCustomError(
+                        "unknown_key",
+                        "unknown key '{key}'{hint}; allowed: ao_labels",
+                        {"key": str(key), "hint": did_you_mean(key, ["ao_labels"])},
+                    )
+        return value
+
+    def options(self) -> dict:
+        """The level options given, by name (as :func:`pesflow.engine.level_method` takes
+        them)."""
+        out = {}
+        for name in ("active", "states", "weights"):
+            value = getattr(self, name)
+            if value is not None:
+                out[name] = value.model_dump() if isinstance(value, BaseModel) else value
+        return out
+
     #: ``cbs``: one derived level per method, extrapolated to the complete basis set from
     #: the two or three correlation-consistent basis sets listed (README "CBS levels")
     extrapolate: Literal["cbs"] | None = None

@@ -44,6 +44,7 @@ __all__ = [
     "PointResult",
     "canonical_method",
     "check_basis",
+    "level_method",
     "get_engine",
     "method_info",
     "scf_family",
@@ -51,6 +52,14 @@ __all__ = [
 
 #: Methods built on a Hartree-Fock reference; they all share one SCF at one basis.
 WAVEFUNCTION_METHODS = ("hf", "mp2", "ccsd", "ccsd(t)")
+
+#: Multireference methods (PySCF); each needs an active space as a level option.
+MULTIREFERENCE_METHODS = ("casscf", "nevpt2")
+
+#: Level options: spec keys of a level beside method and basis.  An engine folds the
+#: ones a method takes (:attr:`MethodInfo.options`) into its canonical name
+#: (:func:`level_method`), so that the name keys and labels the level everywhere.
+LEVEL_OPTIONS = ("active", "states", "weights")
 
 #: Tight-binding levels (tblite); each has its own built-in basis, so no basis set.
 TIGHT_BINDING_METHODS = ("gfn2-xtb", "gfn1-xtb")
@@ -84,7 +93,8 @@ _KEY_NAMES = {
 _METHOD_HINT = (
     f"use one of {', '.join(WAVEFUNCTION_METHODS)} "
     "or a DFT functional known to PySCF's libxc (e.g. b3lyp, pbe0), "
-    f"or a tight-binding level ({', '.join(TIGHT_BINDING_METHODS)})"
+    f"or a tight-binding level ({', '.join(TIGHT_BINDING_METHODS)}), "
+    f"or a multireference level ({', '.join(MULTIREFERENCE_METHODS)}, with an active space)"
 )
 
 
@@ -387,6 +397,23 @@ def canonical_method(name: str) -> str:
     >>> canonical_method(" CCSD(T) ")
     'ccsd(t)'
     """
+    return method_info(name).name
+
+
+def level_method(method: str, options: dict | None = None) -> str:
+    """The canonical name of a level's method with its level options folded in.
+
+    ``options`` maps names of :data:`LEVEL_OPTIONS` to the spec's values (absent ones
+    left out).  The method's engine makes the name; raises EngineSetupError (one line)
+    for an unknown method, options it does not take, wrong values, or a method that
+    needs options and got none.
+
+    >>> level_method("CASSCF", {"active": [6, 6]}), level_method("hf")
+    ('casscf(6,6)', 'hf')
+    """
+    info = method_info(method)
+    options = {k: v for k, v in (options or {}).items() if v is not None}
+    name = get_engine(info.engine).method_with_options(info.name, options)
     return method_info(name).name
 
 

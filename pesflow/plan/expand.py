@@ -205,6 +205,9 @@ def _fragment_sets(campaign, start_id):
         for scan in campaign.scans.values():
             if mol.name in scan.molecules:
                 levels += [lvl for lvl in scan.levels if lvl not in levels]
+        # A level whose fragments have no consistent counterpart (an active space by
+        # counts) takes D_e from its curve's end instead.
+        levels = [lvl for lvl in levels if method_info(lvl.method).fragments == "separate"]
         levels = tuple(levels)
         for f, frag in enumerate(mol.fragments):
             atoms = list(frag["atoms"])

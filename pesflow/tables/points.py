@@ -6,6 +6,8 @@ Pure table work on what the store returns; used by ``status``, ``export``,
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 
@@ -76,6 +78,10 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
     if derived:  # CBS levels: rows made from their members' stored energies
         frame = add_derived_rows(plan, frame)
     frame["status"] = _status_of(frame["converged"])
+    if "extra_json" in frame.columns:
+        occupations = natural_occupations(frame["extra_json"])
+        if occupations.notna().any():
+            frame["natural_occupations"] = occupations
     if "energy_hartree" in frame.columns:  # counterpoise scans: interaction energies per point
         frame = add_interaction_columns(plan, frame)
     frame.insert(0, "campaign", plan.campaign)
@@ -88,6 +94,20 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
     order += [c for c in TRAILING if c in frame.columns]
     order += [c for c in frame.columns if c not in order and c not in ("set_id", "family")]
     return frame[order]
+
+
+def natural_occupations(extra_json: pd.Series) -> pd.Series:
+    """The natural occupations of each point's active orbitals (multireference levels),
+    as text, largest first, separated by spaces (``"1.991 1.964 0.035"``); None for
+    points without an active space."""
+
+    def one(text):
+        if not isinstance(text, str) or "natural_occupations" not in text:
+            return None
+        occ = json.loads(text).get("active_space", {}).get("natural_occupations")
+        return None if occ is None else " ".join(f"{n:.6f}" for n in occ)
+
+    return extra_json.map(one)
 
 
 def status_counts(table: pd.DataFrame, molecules=None, levels=None) -> pd.DataFrame:

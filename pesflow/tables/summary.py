@@ -17,6 +17,7 @@ import json
 import numpy as np
 import pandas as pd
 
+from pesflow.analysis.continuity import MAX_OCCUPATION_STEP, occupation_jumps
 from pesflow.analysis.curves import covers_full_circle, leave_one_out_residuals, prepare_curve
 from pesflow.analysis.derived import summarize_curve, summarize_surface
 from pesflow.analysis.diagnosis import SOLUTION_JUMP_HARTREE, diagnose_noisy
@@ -77,6 +78,16 @@ def _curve_row(campaign, gs, sub, table):
         kind, sub[column].to_numpy(float), energies, energy_noise_hartree=noise, **options
     )
     _diagnose(row, sub, column, kind)
+    more = _active_space_flags(sub, column)
+    info = method_info(sub["method"].iloc[0])
+    if info.options and np.isfinite(row.get("d_e_ev", np.nan)):
+        fragment_energies = options.get("fragment_energies_hartree")
+        more.append(_dissociation_note(info, fragment_energies))
+        if fragment_energies is not None:
+            more += _fragment_active_space_flags(table, sub)
+    if more:
+        flags = flags_from_records(row["flag_records"]) + more
+        row["flags"], row["flag_records"] = flag_text(flags), flag_records(flags)
     return row
 
 
@@ -163,6 +174,92 @@ def _harmonise_level_advice(summary: pd.DataFrame) -> pd.DataFrame:
             ]
             out.at[i, "flags"], out.at[i, "flag_records"] = flag_text(new), flag_records(new)
     return out
+
+
+def _active_space_flags(sub, column) -> list:
+    """A warning where the active space changed character between neighbours and the
+    walk back did not remove it: the engine's own verdict stored on a point
+    (``character_change``), or a jump of the stored natural occupations."""
+    if "extra_json" not in sub.columns:
+        return []
+    done = sub[sub["status"] == "done"]
+    extras = [json.loads(t) if isinstance(t, str) else {} for t in done["extra_json"]]
+    if not any("active_space" in e for e in extras):
+        return []
+    q = done[column].to_numpy(float)
+    occupations = [e.get("active_space", {}).get("natural_occupations") for e in extras]
+    at = set(occupation_jumps(occupations, MAX_OCCUPATION_STEP))
+    at |= {i for i, e in enumerate(extras) if i > 0 and e.get("character_change")}
+    if not at:
+        return []
+    positions = sorted(float(q[i]) for i in at)
+    where = ", ".join(f"{p:.4g}" for p in positions)
+    return [
+        Flag(
+            "active-space-change",
+            f"the active space changes character between neighbours at {where} (an orbital "
+            "rotates into or out of it, or the natural occupations jump) and walking back "
+            "did not remove it: check the active space there (a larger or differently "
+            "chosen one, or state averaging)",
+            positions,
+        )
+    ]
+
+
+def _active_size(extra_json):
+    if not isinstance(extra_json, str):
+        return None
+    active = json.loads(extra_json).get("active_space")
+    return None if active is None else (active["n_electrons"], active["n_orbitals"])
+
+
+def _fragment_active_space_flags(table, sub) -> list:
+    """A warning when the fragments' active spaces do not add up to the molecule's at
+    the end of its curve (AVAS chose more or fewer orbitals there than on the atoms):
+    D_e then compares unlike wavefunctions."""
+    done = sub[sub["status"] == "done"].sort_values("walk")
+    fragments = table[
+        (table["role"] == "fragment")
+        & (table["molecule"] == sub["molecule"].iloc[0])
+        & (table["level"] == sub["level"].iloc[0])
+    ]
+    if done.empty or "extra_json" not in table.columns:
+        return []
+    molecule = _active_size(done["extra_json"].iloc[-1])
+    parts = [_active_size(t) for t in fragments["extra_json"]]
+    if molecule is None or None in parts:
+        return []
+    summed = (sum(p[0] for p in parts), sum(p[1] for p in parts))
+    if summed == molecule:
+        return []
+    listed = " + ".join(f"({e},{o})" for e, o in parts)
+    return [
+        Flag(
+            "inconsistent-active-space",
+            f"the fragments' active spaces {listed} do not add up to the molecule's "
+            f"({molecule[0]},{molecule[1]}) at the end of the curve: D_e compares unlike "
+            "wavefunctions; choose AO labels that give matching spaces (e.g. all valence "
+            "shells of the atoms that separate)",
+        )
+    ]
+
+
+def _dissociation_note(info, fragment_energies):
+    if fragment_energies is not None:
+        text = (
+            f"D_e against the fragments computed at the same level ({info.name}: the active "
+            "space from the same AO labels on each fragment)"
+        )
+    elif info.fragments == "asymptote":
+        text = (
+            f"D_e from the curve's last point: an active space given by counts ({info.name}) "
+            "has no consistent counterpart on the fragments, so none are computed; the "
+            "curve must reach its asymptote (give the active space by AO labels to have "
+            "fragments)"
+        )
+    else:
+        text = "D_e from the curve's last point (no fragment energies at this level)"
+    return Flag("dissociation-reference", text)
 
 
 def _interaction_row(gs, sub):

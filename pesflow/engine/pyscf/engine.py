@@ -60,6 +60,9 @@ class PySCFEngine(Engine):
     def check_basis(self, basis, elements):
         methods.check_basis(basis, elements)
 
+    def method_with_options(self, method, options):
+        return methods.method_with_options(method, options)
+
     def start_walk(self, settings, basis, methods):
         """A :class:`PySCFWalk` of ``methods`` (one scf family) at ``basis``.
 
@@ -67,6 +70,10 @@ class PySCFEngine(Engine):
         unknown method, methods of different scf families, a method of another
         engine, or settings that are not :class:`~pesflow.engine.EngineSettings`.
         """
+        if not isinstance(methods, str) and methods and method_info(methods[0]).options:
+            from pesflow.engine.pyscf.multireference import MultireferenceWalk
+
+            return MultireferenceWalk(settings, basis, methods)
         return PySCFWalk(settings, basis, methods)
 
 
