@@ -110,6 +110,10 @@ QUANTITIES: tuple[Quantity, ...] = (
     Quantity("d_e_ev", "D_e", "D<sub>e</sub>", "eV", 3),
     Quantity("d_0_ev", "D_0", "D<sub>0</sub>", "eV", 3),
     _barrier("barrier_kcal_mol", "kcal/mol", 2, True),
+    # Excited states (a multi-state level's rows of states 1, 2, ...).
+    Quantity("t_v_ev", "T_v (vertical)", "T<sub>v</sub> (vertical)", "eV", 3),
+    Quantity("t_e_ev", "T_e", "T<sub>e</sub>", "eV", 3),
+    Quantity("t_e_cm-1", "T_e", "T<sub>e</sub>", "cm⁻¹", 0, headline=False),
     Quantity("zpe_cm-1", "ZPE", "ZPE", "cm⁻¹", 1, headline=False),
     Quantity("b_e_cm-1", "B_e", "B<sub>e</sub>", "cm⁻¹", 3, headline=False),
     Quantity("k_mdyn_angstrom-1", "k (stretch)", "k<sub>stretch</sub>", "mdyn/Å", 3,

@@ -44,6 +44,9 @@ __all__ = [
     "PointResult",
     "canonical_method",
     "check_basis",
+    "level_method",
+    "split_state",
+    "state_record",
     "get_engine",
     "method_info",
     "scf_family",
@@ -51,6 +54,20 @@ __all__ = [
 
 #: Methods built on a Hartree-Fock reference; they all share one SCF at one basis.
 WAVEFUNCTION_METHODS = ("hf", "mp2", "ccsd", "ccsd(t)")
+
+#: Excited-state methods (PySCF): prefixes of a DFT functional (``tda-b3lyp``,
+#: ``tddft-pbe0``), and CIS/TDHF on HF and EOM-EE-CCSD on CCSD.  Each computes several
+#: electronic states per point, one record each (:func:`state_record`).
+EXCITED_METHODS = ("tda-<functional>", "tddft-<functional>", "cis", "tdhf", "eom-ccsd")
+
+#: Level options: spec keys of a level beside method and basis.  An engine folds the
+#: ones a method takes (:attr:`MethodInfo.options`) into its canonical name
+#: (:func:`level_method`), so that the name keys and labels the level everywhere.
+LEVEL_OPTIONS = ("states", "spin", "follow")
+
+#: Joins a multi-state method's name and a state index in the name of that state's
+#: record (``tda-b3lyp(singlets=3)#2``); state 0 is the ground state.
+STATE_SEPARATOR = "#"
 
 #: Tight-binding levels (tblite); each has its own built-in basis, so no basis set.
 TIGHT_BINDING_METHODS = ("gfn2-xtb", "gfn1-xtb")
@@ -84,7 +101,8 @@ _KEY_NAMES = {
 _METHOD_HINT = (
     f"use one of {', '.join(WAVEFUNCTION_METHODS)} "
     "or a DFT functional known to PySCF's libxc (e.g. b3lyp, pbe0), "
-    f"or a tight-binding level ({', '.join(TIGHT_BINDING_METHODS)})"
+    f"or a tight-binding level ({', '.join(TIGHT_BINDING_METHODS)}), "
+    f"or an excited-state method ({', '.join(EXCITED_METHODS)})"
 )
 
 
@@ -349,7 +367,29 @@ def method_info(method: str) -> MethodInfo:
     """
     if not isinstance(method, str):
         raise EngineSetupError(f"method must be a string, got {method!r}; {_METHOD_HINT}")
-    return _method_info(method)
+    return _method_info(split_state(method)[0])
+
+
+def state_record(method: str, state: int | None) -> str:
+    """The record name of one electronic state of a multi-state method (``method#k``,
+    k = 0 the ground state), or ``method`` itself for a single-state level (None).
+
+    >>> state_record("tda-b3lyp(singlets=3)", 2), state_record("hf", None)
+    ('tda-b3lyp(singlets=3)#2', 'hf')
+    """
+    return method if state is None else f"{method}{STATE_SEPARATOR}{int(state)}"
+
+
+def split_state(name: str) -> tuple[str, int | None]:
+    """The method and state index of a record name (:func:`state_record`'s inverse).
+
+    >>> split_state("cis(singlets=2)#1"), split_state("b3lyp")
+    (('cis(singlets=2)', 1), ('b3lyp', None))
+    """
+    head, sep, tail = name.rpartition(STATE_SEPARATOR)
+    if sep and tail.isdigit():
+        return head, int(tail)
+    return name, None
 
 
 @functools.lru_cache(maxsize=512)
@@ -376,6 +416,22 @@ def canonical_method(name: str) -> str:
     >>> canonical_method(" CCSD(T) ")
     'ccsd(t)'
     """
+    return method_info(name).name
+
+
+def level_method(method: str, options: dict | None = None) -> str:
+    """The canonical name of a level's method with its level options folded in.
+
+    ``options`` maps names of :data:`LEVEL_OPTIONS` to the spec's values (absent ones
+    left out).  The method's engine makes the name; raises EngineSetupError (one line)
+    for an unknown method, options it does not take, or wrong values.
+
+    >>> level_method("TDA-B3LYP", {"states": 4}), level_method("hf")
+    ('tda-b3lyp(singlets=4)', 'hf')
+    """
+    info = method_info(method)
+    options = {k: v for k, v in (options or {}).items() if v is not None}
+    name = get_engine(info.engine).method_with_options(info.name, options)
     return method_info(name).name
 
 

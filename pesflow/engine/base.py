@@ -21,6 +21,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from pesflow.errors import EngineSetupError
+
 
 @dataclass(frozen=True)
 class MethodInfo:
@@ -47,7 +49,14 @@ class MethodInfo:
         byproducts: methods computed for free on the way (``ccsd`` for ``ccsd(t)``).
         settings: the names (as in :meth:`EngineSettings.key_dict`) of the settings
             that can change this method's number; only these enter its points' keys.
-        n_states: electronic states per point (1: the ground state).
+        n_states: electronic states per point (1: the ground state); a multi-state
+            method stores one record per state (the ground state and ``n_states - 1``
+            excited states), named by :func:`pesflow.engine.state_record`.
+        options: the level options the method takes (spec keys beside method and
+            basis, e.g. ``states``, ``spin``); the engine folds them into the
+            canonical name (:meth:`Engine.method_with_options`).
+        follow_states: a multi-state method whose states are numbered by character
+            along a walk (followed by overlaps between neighbours), not by energy.
     """
 
     name: str
@@ -63,6 +72,8 @@ class MethodInfo:
     byproducts: tuple[str, ...] = ()
     settings: tuple[str, ...] = ()
     n_states: int = 1
+    options: tuple[str, ...] = ()
+    follow_states: bool = False
 
 
 class Engine:
@@ -88,6 +99,15 @@ class Engine:
     def check_basis(self, basis: str, elements) -> None:
         """Raise EngineSetupError when ``basis`` lacks an element (engines with basis sets)."""
         raise NotImplementedError
+
+    def method_with_options(self, method: str, options: dict) -> str:
+        """The canonical name of ``method`` (canonical already) with level options folded
+        in (e.g. ``tda-b3lyp(singlets=4)``); this name is what plan, keys and walks use.
+        Raises EngineSetupError for options the method does not take or wrong values.
+        By default a method takes none."""
+        if options:
+            raise EngineSetupError(f"{method} takes no level options (got {', '.join(options)})")
+        return method
 
     def start_walk(self, settings, basis: str, methods) -> EngineWalk:
         """A new :class:`EngineWalk` of ``methods`` (one family) at ``basis``.

@@ -10,9 +10,10 @@ import numpy as np
 import pandas as pd
 
 from pesflow.plan.expand import Plan, points_frame
+from pesflow.tables.states import add_state_columns
 
 #: Columns of the exported points table, in order (coordinate columns follow ``scan``).
-LEADING = ["campaign", "molecule", "scan", "role", "level", "method", "basis", "walk"]
+LEADING = ["campaign", "molecule", "scan", "role", "level", "method", "basis", "state", "walk"]
 TRAILING = [
     "status",
     "energy_hartree",
@@ -65,6 +66,7 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
         if col not in frame.columns:
             frame[col] = np.nan
     frame["status"] = _status_of(frame["converged"])
+    frame = add_state_columns(frame, plan)
     frame.insert(0, "campaign", plan.campaign)
     coord = [
         c

@@ -18,6 +18,7 @@ import pandas as pd
 from pesflow.analysis.derived import summarize_curve, summarize_surface
 from pesflow.analysis.quantities import COMPARED
 from pesflow.coordinates.kinds import KINDS, column_names
+from pesflow.tables.states import add_state_quantities
 
 _RESTRICTED = {"RHF", "RKS"}
 
@@ -85,7 +86,9 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
     rows = []
     scans = table[table["role"] == "scan"]
     scans = scans.assign(set_id=_set_ids(plan, scans))
-    for (set_id, level), sub in scans.groupby(["set_id", "level"], sort=False):
+    if "state" not in scans:
+        scans = scans.assign(state=0)
+    for (set_id, level, state), sub in scans.groupby(["set_id", "level", "state"], sort=False):
         gs = plan.geometry_sets[int(set_id)]
         if len(gs.coordinate_kinds) == 1:
             row = _curve_row(campaign, gs, sub, table)
@@ -98,6 +101,7 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
             "level": level,
             "method": sub["method"].iloc[0],
             "basis": sub["basis"].iloc[0],
+            "state": int(state),
             "coordinates": ", ".join(c.label for c in campaign.scans[gs.scan].coordinates),
             "n_done": int((sub["status"] == "done").sum()),
             "n_failed": int((sub["status"] == "failed").sum()),
@@ -109,6 +113,7 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
     summary = pd.DataFrame(rows)
     if summary.empty:
         return summary
+    summary = add_state_quantities(summary, plan, scans)
     return add_deviations(summary, campaign.spec.compare.reference_level)
 
 
@@ -123,9 +128,10 @@ def add_deviations(summary: pd.DataFrame, reference_level: str | None) -> pd.Dat
         return summary
     reference_level = reference_level.strip().lower()
     cols = [c for c in COMPARED if c in summary.columns]
-    ref = summary.loc[summary["level"] == reference_level, ["molecule", "scan", *cols]]
-    joined = summary[["molecule", "scan"]].merge(
-        ref.rename(columns={c: f"{c}__ref" for c in cols}), on=["molecule", "scan"], how="left"
+    on = ["molecule", "scan", "state"] if "state" in summary.columns else ["molecule", "scan"]
+    ref = summary.loc[summary["level"] == reference_level, [*on, *cols]]
+    joined = summary[on].merge(
+        ref.rename(columns={c: f"{c}__ref" for c in cols}), on=on, how="left"
     )
     out = summary.copy()
     for c in cols:
