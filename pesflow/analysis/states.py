@@ -38,6 +38,18 @@ MIN_FOLLOW_OVERLAP = 0.5
 #: Two states swapping order count as crossing (no mixing) when every overlap they are
 #: matched by across the step is above this, and as an avoided crossing otherwise.
 UNMIXED_OVERLAP = 0.9
+#: States closer than this (hartree) count as one degenerate set (e.g. the two
+#: components of a Pi state): their members are told apart by no overlap, so a link is
+#: judged by the overlap with the whole set and they never "cross" each other.
+DEGENERATE_HARTREE = 1e-5
+
+
+def _group_overlap(o, row, col, energies):
+    """|O| of previous state ``row`` with the degenerate set of current state ``col``."""
+    if energies is None:
+        return o[row, col]
+    members = np.abs(energies - energies[col]) < DEGENERATE_HARTREE
+    return float(np.sqrt(np.sum(o[row, members] ** 2)))
 
 
 @dataclass
@@ -59,7 +71,7 @@ class Following:
     gaps: list[int]
 
 
-def follow_states(overlaps, n_states: int) -> Following:
+def follow_states(overlaps, n_states: int, energies_hartree=None) -> Following:
     """Follow ``n_states`` excited states by the overlaps between neighbours.
 
     Inputs:
@@ -67,6 +79,8 @@ def follow_states(overlaps, n_states: int) -> Following:
             between excited state k of the previous point (rows) and state l of this
             one (columns), both in order of energy (0-based over the excited states).
         n_states: n, the number of excited states.
+        energies_hartree: optional (m, n + 1) energies by energy order (column 0 the
+            ground state): members of a degenerate set are then judged together.
 
     Returns a :class:`Following`; where a link is missing or weak the states are taken
     in energy order at that point (a gap).
@@ -88,7 +102,8 @@ def follow_states(overlaps, n_states: int) -> Following:
         step = dict(zip(rows, cols))  # previous adiabatic (0-based) -> this one
         prev = assignment[i - 1] - 1
         assignment[i] = [step[p] + 1 for p in prev]
-        matched[i] = [o[p, step[p]] for p in prev]
+        current = None if energies_hartree is None else np.asarray(energies_hartree)[i, 1:]
+        matched[i] = [_group_overlap(o, p, step[p], current) for p in prev]
         if np.min(matched[i]) < MIN_FOLLOW_OVERLAP:
             gaps.append(i)
     return Following(assignment, matched, gaps)
@@ -140,9 +155,13 @@ def find_crossings(values, energies_hartree, following: Following, overlaps) -> 
     for i in range(1, len(q)):
         if i in following.gaps:
             continue
+        seen = set()  # a crossing with a degenerate set is one crossing, not one per member
         for a in range(n):
             for b in range(a + 1, n):
                 ia0, ib0 = assign[i - 1, a], assign[i - 1, b]
+                sets = tuple(_degenerate_set(e[i - 1, 1:], k - 1) for k in (ia0, ib0))
+                if sets in seen:
+                    continue
                 ia1, ib1 = assign[i, a], assign[i, b]
                 if (ia0 - ib0) * (ia1 - ib1) > 0:
                     continue
@@ -150,12 +169,15 @@ def find_crossings(values, energies_hartree, following: Following, overlaps) -> 
                 d1 = e[i, ia1] - e[i, ib1]
                 if not (np.isfinite(d0) and np.isfinite(d1)) or d0 == d1:
                     continue
+                if max(abs(d0), abs(d1)) < DEGENERATE_HARTREE:
+                    continue  # one degenerate set throughout
                 t = min(max(d0 / (d0 - d1), 0.0), 1.0)
                 position = float(q[i - 1] + t * (q[i] - q[i - 1]))
                 o = np.abs(np.asarray(overlaps[i], dtype=float))
-                carried = min(o[ia0 - 1, ia1 - 1], o[ib0 - 1, ib1 - 1])
+                carried = min(following.matched[i, a], following.matched[i, b])
                 mixed = max(o[ia0 - 1, ib1 - 1], o[ib0 - 1, ia1 - 1])
                 unmixed = carried > UNMIXED_OVERLAP and mixed < 1 - UNMIXED_OVERLAP
+                seen.add(sets)
                 gap = min(abs(d0), abs(d1)) * HARTREE_TO_EV
                 out.append(
                     Crossing(
@@ -167,6 +189,13 @@ def find_crossings(values, energies_hartree, following: Following, overlaps) -> 
                     )
                 )
     return out
+
+
+def _degenerate_set(energies, k) -> int:
+    # The lowest index of the degenerate set of state k (0-based) at one point.
+    if not np.isfinite(energies[k]):
+        return k
+    return int(np.flatnonzero(np.abs(energies - energies[k]) < DEGENERATE_HARTREE)[0])
 
 
 def followed_energies(energies_hartree, following: Following) -> np.ndarray:

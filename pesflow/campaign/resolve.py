@@ -245,12 +245,19 @@ def _resolve_level_list(lspecs, loc, elements, err, checked) -> list[Level]:
 
     levels = []
     for i, lspec in enumerate(lspecs):
+        options = lspec.options()
         for method, basis in lspec.pairs():
             try:
                 info = engine.method_info(method)
             except EngineSetupError as exc:
                 hint = did_you_mean(str(method).strip().lower(), _method_names())
                 raise err(loc + (i, "method"), _with_hint(str(exc), hint)) from None
+            if options or info.options:
+                try:
+                    info = engine.method_info(engine.level_method(info.name, options))
+                except EngineSetupError as exc:
+                    named = [k for k in options if k in str(exc)]
+                    raise err(loc + (i, (named or [*options, "method"])[0]), str(exc)) from None
             where = loc + (i, "basis") if basis is not None else loc + (i,)
             basis_c = ""
             for element in elements:

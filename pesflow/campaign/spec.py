@@ -218,10 +218,27 @@ class ScanSpec(_Strict):
 
 class LevelSpec(_Strict):
     """Levels of theory: every method with every basis set listed.  A tight-binding
-    level (``gfn2-xtb``, ``gfn1-xtb``) has its own basis and is given without one."""
+    level (``gfn2-xtb``, ``gfn1-xtb``) has its own basis and is given without one.
+
+    Level options (:data:`pesflow.engine.LEVEL_OPTIONS`) apply to every method listed
+    that takes them and become part of its name (``tda-b3lyp(singlets=4)``); a method
+    that takes none refuses them."""
 
     method: str | list[str]
     basis: str | list[str] | None = None
+    #: excited-state methods: excited states computed above the ground state (default 3)
+    states: int | None = Field(default=None, ge=1)
+    #: excited-state methods: spin of the excited states (closed-shell reference)
+    spin: Literal["singlet", "triplet"] | None = None
+    #: excited-state methods: number states by energy at each point, or follow each
+    #: state's character along the walk
+    follow: Literal["energy", "character"] | None = None
+
+    def options(self) -> dict:
+        """The level options given, by name (as :func:`pesflow.engine.level_method`
+        takes them)."""
+        names = ("states", "spin", "follow")
+        return {n: getattr(self, n) for n in names if getattr(self, n) is not None}
 
     def pairs(self) -> list[tuple[str, str | None]]:
         methods = [self.method] if isinstance(self.method, str) else list(self.method)

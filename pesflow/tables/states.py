@@ -55,7 +55,7 @@ def add_state_columns(frame: pd.DataFrame, plan) -> pd.DataFrame:
         rows = frame.index[frame["method"] == method]
         for _, sub in frame.loc[rows].groupby(["set_id", "basis"], sort=False):
             walk = walk_states(sub, plan)
-            following = follow_states(walk["overlaps"], walk["n"])
+            following = follow_states(walk["overlaps"], walk["n"], walk["energies"])
             curve = {}  # (walk, adiabatic index) -> followed curve
             for i, w in enumerate(walk["walks"]):
                 for c, a in enumerate(following.assignment[i]):
@@ -181,7 +181,7 @@ def _crossing_flags(summary, rows, points, plan):
     method = rows["method"].iloc[0]
     followed = method_info(method).follow_states
     walk = walk_states(points, plan)
-    following = follow_states(walk["overlaps"], walk["n"])
+    following = follow_states(walk["overlaps"], walk["n"], walk["energies"])
     by_state = {int(r["state"]): i for i, r in rows.iterrows()}
     label = {s: summary.at[i, "state_label"] or f"state {s}" for s, i in by_state.items()}
     extra = {i: [] for i in rows.index}

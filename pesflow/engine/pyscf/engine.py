@@ -261,7 +261,7 @@ class PySCFWalk(EngineWalk):
                 states = excited.run_eom(mycc, level)
             else:
                 step_start = time.perf_counter()
-                states = excited.run_td(self._plain_scf(mf), level, self.settings)
+                states = excited.run_td(self._plain_scf(mf), level)
         except Exception as exc:
             wall_s += time.perf_counter() - step_start if "step_start" in locals() else 0.0
             return {n: record(n, math.nan, wall_s, error_line(exc)) for n in names}
