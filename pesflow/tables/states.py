@@ -234,3 +234,45 @@ def _crossing_flags(summary, rows, points, plan):
             flags = flags_from_records(summary.at[i, "flag_records"]) + flags
             summary.at[i, "flags"] = flag_text(flags)
             summary.at[i, "flag_records"] = flag_records(flags)
+
+
+def state_level(level: str, label) -> str:
+    """The report's name of one state's curves of a multi-state level (``cis/6-31g S1``).
+
+    >>> state_level("cis(singlets=3)/6-31g", "S2")
+    'cis(singlets=3)/6-31g S2'
+    """
+    return f"{level} {label}"
+
+
+def states_as_levels(points: pd.DataFrame, summary: pd.DataFrame):
+    """Points and summary tables in which every excited state of a multi-state level is
+    a level of its own (:func:`state_level`; state 0, the ground state, keeps the
+    level's name), for the report, which compares curves level by level.  Returns
+    ``(points, summary, labels)``, ``labels`` mapping each level to its state levels
+    in order; tables without multi-state levels come back unchanged."""
+    if summary is None or "state" not in summary or not (summary["state"] > 0).any():
+        return points, summary, {}
+    summary = summary.copy()
+    excited = summary["state"] > 0
+    names = [
+        state_level(lvl, lab if isinstance(lab, str) else f"state {s}")
+        for lvl, lab, s in zip(
+            summary.loc[excited, "level"],
+            summary.loc[excited].get("state_label", [None] * int(excited.sum())),
+            summary.loc[excited, "state"],
+        )
+    ]
+    rename = dict(zip(zip(summary.loc[excited, "level"], summary.loc[excited, "state"]), names))
+    labels = {}
+    for (lvl, _), name in rename.items():
+        labels.setdefault(lvl, []).append(name)
+    summary.loc[excited, "level"] = names
+    summary = summary.drop(columns=["state"])
+    if points is not None and "state" in points and len(points):
+        points = points.copy()
+        points["level"] = [
+            rename.get((lvl, s), lvl) for lvl, s in zip(points["level"], points["state"])
+        ]
+        points = points.drop(columns=["state"])
+    return points, summary, labels
