@@ -5,6 +5,11 @@ Each error says in its docstring when it is raised.  The command line turns
 calculation are recorded on the point instead of being raised out of a batch.
 """
 
+import re
+
+#: Every character str.splitlines() breaks a line at.
+_LINE_BREAK = re.compile("[\n\r\v\f\x1c\x1d\x1e\x85\u2028\u2029]")
+
 
 class PesflowError(Exception):
     """Base class of every error pesflow raises on purpose."""
@@ -27,9 +32,9 @@ class SpecError(PesflowError):
         where = self.file or "<spec>"
         if self.line is not None:
             where = f"{where}:{self.line}"
-        if self.field:
-            return f"{where}: {self.field}: {self.reason}"
-        return f"{where}: {self.reason}"
+        text = f"{where}: {self.field}: {self.reason}" if self.field else f"{where}: {self.reason}"
+        # One line, whatever the spec's keys and values hold: line breaks are shown escaped.
+        return _LINE_BREAK.sub(lambda m: m.group(0).encode("unicode_escape").decode(), text)
 
 
 class EngineSetupError(PesflowError):

@@ -30,7 +30,7 @@ grids) gives a second estimate of every stationary point: where the two disagree
 a tolerance the grid does not resolve that point, and the flag says between which scanned
 points to add more and at what step (:func:`grid_quality`).  Noise is told apart from coarse
 spacing by leave-one-out prediction: a higher degree predicts a left-out point of a smooth
-curve much better, but not a noisy one (:func:`noisy_points`).
+curve differently, a noisy point by the same amount whatever the degree (:func:`noisy_points`).
 
 Minima and maxima are taken from the *grid* first (a scanned point lower, or higher, than both
 neighbours, :func:`scipy.signal.find_peaks`), then refined to the stationary point of the
@@ -63,10 +63,17 @@ DEFAULT_CURVATURE_RTOL = 0.01
 DEFAULT_POSITION_TOL = {"angstrom": 1e-3, "degree": 0.1}
 #: ... or when their stationary-point energies differ by more than this (0.01 kcal/mol).
 DEFAULT_ENERGY_TOL_HARTREE = 1.6e-5
-#: A point is reported as noisy when it deviates from the interpolant of the other points by
-#: more than this (hartree) and a higher-order interpolant does not explain it better.
+#: A point is reported as noisy when it deviates from the interpolants of the other points by
+#: more than this (hartree), whatever their degree (:func:`noisy_points`).
 #: SCF energies converged to 1e-9 hartree are smooth far below it (common practice).
 DEFAULT_NOISE_FLOOR_HARTREE = 1e-7
+#: ... and by more than this many times the interpolants' own error at that spacing, estimated
+#: by how much the leave-one-out prediction changes between spline degrees 5 and 7.  Values
+#: from 2 to 3 tell smooth from noisy on a set of trial curves (Morse stretches of 7-30
+#: points, torsions at 5-30 degree spacing, HF H-O-O-H torsions; the same with random noise of
+#: 3e-6 hartree or steps of 1e-5 hartree): 1.5 flags a smooth 9-point stretch, 4 misses the
+#: noise on a 21-point one.  2.5 sits in the middle.
+NOISE_MARGIN = 2.5
 
 
 @dataclass(frozen=True)
@@ -495,31 +502,45 @@ def leave_one_out_residuals(curve, order=DEFAULT_ORDER):
 
 
 def noisy_points(curve, *, order=DEFAULT_ORDER, noise_floor_hartree=DEFAULT_NOISE_FLOOR_HARTREE):
-    """Scanned points that look noisy (not explained by a smooth curve).
+    """Scanned points that look noisy (not explained by a smooth curve at this spacing).
 
-    A point is noisy when its leave-one-out residual from the order-``order`` spline exceeds
-    ``noise_floor_hartree`` *and* is not clearly smaller than the residual from the spline two
-    orders lower.  For a smooth, resolved curve the higher order predicts a left-out point much
-    better (error ~ h^6 instead of h^4); random noise is amplified, not removed, by a higher
-    order, so both residuals are then alike.  Needs at least 7 points.
+    Each point is predicted from all the others twice, by the spline of degree ``order`` and
+    by the spline two degrees higher (leave-one-out).  For a smooth curve the two predictions
+    miss by the interpolants' own error at this spacing, and the higher degree misses by a
+    different amount (much less on a fine grid, about as much but elsewhere on a coarse one):
+    their difference estimates how far off an interpolant may be there.  A point whose own
+    energy is off (noise, or another SCF solution) is missed by both by the same amount, with
+    the same sign, whatever the degree.  So a point is noisy when both residuals agree in
+    sign, the smaller exceeds ``noise_floor_hartree``, and it exceeds
+    :data:`NOISE_MARGIN` times the difference of the two (the largest difference at the point
+    and its two neighbours, so that a chance agreement of the two interpolants at one point
+    does not count).  The threshold therefore scales with the error the interpolant is
+    expected to have at that spacing: a steep, coarsely sampled torsion raises nothing, a step
+    of 1e-5 hartree on a point of a reasonable grid is found.  Short curves (fewer than
+    ``order + 4`` points; ``order + 3`` periodic) compare degrees ``order - 2`` and ``order``.
+
+    An outlier also spoils the prediction of its neighbours, so the worst point is removed and
+    the rest looked at again (at most a third of the points, and ten).
 
     Returns ``(indices, residuals_hartree)``: the indices into ``curve.q`` of the noisy points
-    and the leave-one-out residuals of every point (NaN where not computable).
+    and the leave-one-out residuals of every point at degree ``order`` (NaN where not
+    computable).
     """
-    # An outlier also spoils the prediction of its neighbours, so remove the worst point and
-    # look again, until the rest is smooth (at most a third of the points, and ten).
     original = np.arange(curve.n_points)
     work, flagged, first = curve, [], None
     for _ in range(max(1, min(curve.n_points // 3, 10))):
-        hi = leave_one_out_residuals(work, order=order)
-        lo = leave_one_out_residuals(work, order=order - 2)
+        low, high = leave_one_out_residuals(work, order), leave_one_out_residuals(work, order + 2)
         if first is None:
-            first = hi
+            first = low
+        if np.all(np.isnan(high)):  # too few points for the higher degree
+            low, high = leave_one_out_residuals(work, order - 2), low
+        common = np.where(np.sign(low) == np.sign(high), np.minimum(np.abs(low), np.abs(high)), 0.0)
+        expected = _neighbourhood_max(np.abs(low - high), work.periodic)
         with np.errstate(invalid="ignore"):
-            bad = (np.abs(hi) > noise_floor_hartree) & (np.abs(hi) > 0.5 * np.abs(lo))
+            bad = (common > noise_floor_hartree) & (common > NOISE_MARGIN * expected)
         if not bad.any():
             break
-        j = int(np.nanargmax(np.where(bad, np.abs(hi), np.nan)))
+        j = int(np.nanargmax(np.where(bad, common, np.nan)))
         flagged.append(int(original[j]))
         keep = np.arange(work.n_points) != j
         original = original[keep]
@@ -531,6 +552,17 @@ def noisy_points(curve, *, order=DEFAULT_ORDER, noise_floor_hartree=DEFAULT_NOIS
             unit=work.unit,
         )
     return sorted(flagged), first
+
+
+def _neighbourhood_max(values, periodic):
+    """The largest of each value and its two neighbours (NaN counts as 0)."""
+    v = np.where(np.isnan(values), 0.0, values)
+    if periodic:
+        return np.maximum(v, np.maximum(np.roll(v, 1), np.roll(v, -1)))
+    out = v.copy()
+    out[1:] = np.maximum(out[1:], v[:-1])
+    out[:-1] = np.maximum(out[:-1], v[1:])
+    return out
 
 
 def analyze_curve(

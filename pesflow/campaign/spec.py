@@ -139,6 +139,13 @@ class CoordinateSpec(_Strict):
     values: list[FiniteFloat] | None = None
     move: list[int] | None = None
 
+    @field_validator("points", mode="before")
+    @classmethod
+    def _points_not_bool(cls, value):
+        if isinstance(value, bool):  # YAML's true would otherwise count as 1 point
+            raise PydanticCustomError("int_type", "points must be a whole number, not true/false")
+        return value
+
     @model_validator(mode="after")
     def _one_range(self):
         if self.values is not None:
@@ -308,7 +315,7 @@ class ReferenceValueSpec(_Strict):
     molecule: str
     scan: str
     quantity: str
-    value: float
+    value: FiniteFloat
     source: str = Field(min_length=1)
 
 

@@ -42,6 +42,7 @@ RELAX_ENFORCE = 0.1
 #: Constraint kinds of a relaxed point (geomeTRIC's names, from the coordinate-kind
 #: registry) and the number of atoms each takes.
 CONSTRAINT_ATOMS = {kind.constraint: kind.n_atoms for kind in KINDS.values()}
+_KIND_OF_CONSTRAINT = {kind.constraint: kind for kind in KINDS.values()}
 
 
 def check_constraints(constraints, n_atoms: int) -> list[tuple[str, tuple[int, ...], float]]:
@@ -81,11 +82,18 @@ def check_constraints(constraints, n_atoms: int) -> list[tuple[str, tuple[int, .
             )
         if not math.isfinite(value):
             raise EngineSetupError(f"{where}: value must be finite, got {value}")
-        if kind == "distance" and value <= 0:
-            raise EngineSetupError(f"{where}: distance must be positive, got {value} angstrom")
-        if kind == "angle" and not 0 < value < 180:
-            raise EngineSetupError(f"{where}: angle must lie in (0, 180) degrees, got {value}")
-        if kind == "dihedral":
+        registered = _KIND_OF_CONSTRAINT[kind]
+        problem = registered.range_problem([value])
+        if problem:
+            raise EngineSetupError(f"{where}: {problem}")
+        if registered.motion == "bend" and value == registered.upper:
+            # Not a range rule but a limit of the optimiser: geomeTRIC's angle coordinate is
+            # singular at a linear arrangement, so a linear angle cannot be held there.
+            raise EngineSetupError(
+                f"{where}: a relaxed scan's angle must lie in (0, 180) degrees, got {value:g}: "
+                "the optimiser's angle coordinate is undefined at a linear arrangement"
+            )
+        if registered.period is not None:
             value = _wrap_degree(value)
         checked.append((kind, atoms, value))
     return checked
@@ -172,10 +180,9 @@ def constraint_report(constraints, positions_bohr) -> list[dict]:
     report = []
     for kind, atoms, target in constraints:
         value = _primitive(kind, atoms).value(positions_bohr)
-        if kind == "distance":
-            unit, reached = "angstrom", float(value * BOHR_ANGSTROM)
-        else:
-            unit, reached = "degree", math.degrees(float(value))
+        unit = _KIND_OF_CONSTRAINT[kind].unit
+        # geomeTRIC's primitives are in bohr and radian.
+        reached = float(value * BOHR_ANGSTROM) if unit == "angstrom" else math.degrees(float(value))
         report.append({"kind": kind, "atoms": [i + 1 for i in atoms], "unit": unit,
                        "target": target, "final": reached})  # fmt: skip
     return report

@@ -144,3 +144,62 @@ def test_too_few_points_give_a_row_of_nans_with_the_reason():
     row = summarize_curve("distance", [0.9, 1.0, 1.1], [np.nan, -100.0, np.nan])
     assert row["n_points"] == 1 and row["n_failed"] == 2
     assert "at least three" in row["flags"]
+
+
+# A torsion-like curve with hydrogen-peroxide magnitudes: V(phi) = sum_k a_k cos(k phi) with
+# a = (4.5, 3.2, 0.4, 0.1) mhartree.  Its cis barrier is about 9 kcal/mol and its trans barrier
+# about 1 kcal/mol above the minima near 115 and 245 degrees, the shape of H2O2's torsion
+# (experiment: cis about 7, trans about 1.1 kcal/mol; values from memory, for scale only).
+TORSION_A_HARTREE = (4.5e-3, 3.2e-3, 0.4e-3, 0.1e-3)
+
+
+def torsion(phi_degree):
+    phi = np.radians(phi_degree)
+    return -150.8 + sum(a * np.cos((k + 1) * phi) for k, a in enumerate(TORSION_A_HARTREE))
+
+
+PHI_15 = np.arange(0.0, 360.0, 15.0)
+
+
+def test_smooth_torsion_on_a_15_degree_grid_raises_no_noise_flag():
+    a = analyze_curve(PHI_15, torsion(PHI_15), periodic=True, unit="degree")
+    # The quintic misses left-out points by up to ~3e-6 hartree on the steep parts (a
+    # 30-degree gap): interpolation error, not noise.
+    assert np.nanmax(np.abs(noisy_points(a.curve)[1])) > 1e-6
+    assert not [f for f in a.flags if "noisy" in f]
+    assert noisy_points(a.curve)[0] == []
+
+
+@pytest.mark.parametrize("spacing", [5.0, 10.0, 20.0, 30.0])
+def test_smooth_torsion_raises_no_noise_flag_at_other_spacings(spacing):
+    phi = np.arange(0.0, 360.0, spacing)
+    assert noisy_points(prepare_curve(phi, torsion(phi), periodic=True, unit="degree"))[0] == []
+
+
+@pytest.mark.parametrize("index", [0, 2, 5, 12])
+def test_a_1e5_hartree_step_on_one_point_of_the_torsion_is_found_there(index):
+    # Another SCF solution 1e-5 hartree (0.006 kcal/mol) above the curve at one point.
+    e = torsion(PHI_15)
+    e[index] += 1e-5
+    bad, _ = noisy_points(prepare_curve(PHI_15, e, periodic=True, unit="degree"))
+    assert index in bad and len(bad) <= 2
+    flags = analyze_curve(PHI_15, e, periodic=True, unit="degree").flags
+    assert [f for f in flags if "noisy" in f]
+
+
+def test_a_1e5_hartree_step_on_a_run_of_points_is_caught():
+    e = torsion(PHI_15)
+    e[5:8] += 1e-5  # three neighbouring points on another solution
+    bad, _ = noisy_points(prepare_curve(PHI_15, e, periodic=True, unit="degree"))
+    assert bad and set(bad) <= {4, 5, 6, 7, 8}
+    half = np.arange(0.0, 181.0, 15.0)
+    e = torsion(half)
+    e[7:] += 1e-5  # a jump to another solution for the rest of a half-circle scan
+    bad, _ = noisy_points(prepare_curve(half, e, unit="degree"))
+    assert bad and min(bad) in (6, 7)
+
+
+def test_random_noise_on_the_torsion_is_detected():
+    noise = np.random.default_rng(7).normal(0.0, 3e-6, PHI_15.size)
+    a = analyze_curve(PHI_15, torsion(PHI_15) + noise, periodic=True, unit="degree")
+    assert [f for f in a.flags if "noisy" in f]

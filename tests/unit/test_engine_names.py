@@ -204,7 +204,7 @@ def test_constraints_are_checked_and_written_for_geometric():
         ([("angle", (0, 1), 90.0)], "angle takes 3 atoms"),
         ([("distance", (0, 4), 1.0)], "distinct 0-based indices below 4"),
         ([("distance", (1, 1), 1.0)], "distinct 0-based indices below 4"),
-        ([("distance", (0, 1), -1.0)], "distance must be positive"),
+        ([("distance", (0, 1), -1.0)], "distances? must be positive"),
         ([("angle", (0, 1, 2), 180.0)], r"angle must lie in \(0, 180\)"),
         ([("dihedral", (0, 1, 2, 3), float("nan"))], "value must be finite"),
         ([("distance", (0, 1))], "must be \\(kind, atoms, value\\)"),

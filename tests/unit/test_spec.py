@@ -5,6 +5,7 @@ Each bad spec must give exit code 2 and one line naming the file, the YAML line
 """
 
 import json
+import re
 import textwrap
 from pathlib import Path
 
@@ -321,8 +322,15 @@ def test_json_schema_in_sync():
 # ---------------------------------------------------------------------------
 
 
+def refused_at_line(text, capsys, *expected):
+    """As :func:`refused`, and the line names ``campaign.yaml:LINE: FIELD: reason``."""
+    message = refused(text, capsys, *expected)
+    assert re.search(r"campaign\.yaml:\d+: [\w.\[\]-]+: \S", message), message
+    return message
+
+
 def test_start_value_out_of_range_is_reported_under_from(capsys):
-    msg = refused(
+    msg = refused_at_line(
         GOOD.replace("from: 0.7, to: 1.4", "from: -0.5, to: 1.4"),
         capsys,
         "scans.stretch.coordinates[0].from:",
@@ -334,7 +342,7 @@ def test_start_value_out_of_range_is_reported_under_from(capsys):
 
 
 def test_end_value_out_of_range_is_reported_under_to(capsys):
-    refused(
+    refused_at_line(
         GOOD.replace("from: 90, to: 120", "from: 90, to: 200"),
         capsys,
         "scans.bend.coordinates[0].to:",
@@ -343,7 +351,7 @@ def test_end_value_out_of_range_is_reported_under_to(capsys):
 
 
 def test_value_out_of_range_in_a_list_names_its_index(capsys):
-    refused(
+    refused_at_line(
         GOOD.replace("from: 90, to: 120, step: 5", "values: [90, 100, 181]"),
         capsys,
         "scans.bend.coordinates[0].values[2]:",
@@ -368,7 +376,7 @@ levels:
 
 def test_dihedral_over_collinear_atoms_is_a_spec_error_not_a_traceback(capsys):
     # ASE's g2 acetylene is linear (H-C-C-H on the z axis): no plane, so no dihedral.
-    refused(
+    refused_at_line(
         ACETYLENE,
         capsys,
         "campaign.yaml:8:",
@@ -379,7 +387,7 @@ def test_dihedral_over_collinear_atoms_is_a_spec_error_not_a_traceback(capsys):
     )
 
 
-def test_angle_grid_reaching_180_with_a_dihedral_over_it_is_refused(capsys):
+def test_angle_grid_reaching_180_with_a_dihedral_over_it_is_refused_at_line(capsys):
     # Water's H-O-H opened to 180 degrees leaves the dihedral 3-1-2-... undefined: caught
     # at the trial corner of the grid, before planning.
     spec = """\
@@ -395,7 +403,7 @@ def test_angle_grid_reaching_180_with_a_dihedral_over_it_is_refused(capsys):
     levels:
       - {method: hf, basis: sto-3g}
     """
-    refused(spec, capsys, "scans.grid.coordinates:", "lie on a line")
+    refused_at_line(spec, capsys, "scans.grid.coordinates:", "lie on a line")
 
 
 @pytest.mark.parametrize(
@@ -407,7 +415,7 @@ def test_angle_grid_reaching_180_with_a_dihedral_over_it_is_refused(capsys):
 )
 def test_absurd_point_count_is_refused_before_any_array_is_built(capsys, range_, field):
     # 7e9 values would need 56 GB; the count is checked from points/step alone.
-    refused(
+    refused_at_line(
         GOOD.replace("from: 0.7, to: 1.4, points: 15", range_),
         capsys,
         f"scans.stretch.coordinates[0].{field}:",
@@ -416,18 +424,20 @@ def test_absurd_point_count_is_refused_before_any_array_is_built(capsys, range_,
     )
 
 
-def test_grid_whose_product_explodes_is_refused(capsys):
+def test_grid_whose_product_explodes_is_refused_at_line(capsys):
     grid = GOOD.replace(
         "      - {type: angle, atoms: [2, 1, 3], from: 90, to: 120, step: 5}",
         "      - {type: angle, atoms: [2, 1, 3], from: 90, to: 120, points: 1000}\n"
         "      - {type: distance, atoms: [1, 2], from: 0.8, to: 1.2, points: 1000}",
     )
-    refused(grid, capsys, "scans.bend.coordinates:", "1000 x 1000 = 1,000,000 points", "200,000")
+    refused_at_line(
+        grid, capsys, "scans.bend.coordinates:", "1000 x 1000 = 1,000,000 points", "200,000"
+    )
 
 
 def test_campaign_total_over_the_limit_names_the_largest_scan(capsys):
     # 60,000 grid points x 2 molecules x 3 levels = 360,000 points.
-    refused(
+    refused_at_line(
         GOOD.replace("points: 15", "points: 60000"),
         capsys,
         "scans.stretch:",
@@ -452,7 +462,7 @@ levels:
 
 def test_distance_between_atoms_that_are_not_bonded_says_so_and_how_to_fix_it(capsys):
     # ASE's g2 ammonia: N is atom 1, the hydrogens 2-4; H...H is 1.6 A, no bond.
-    msg = refused(
+    msg = refused_at_line(
         AMMONIA,
         capsys,
         "campaign.yaml:8:",
@@ -467,7 +477,7 @@ def test_distance_between_atoms_that_are_not_bonded_says_so_and_how_to_fix_it(ca
 
 
 def test_misspelt_key_gets_did_you_mean_and_the_allowed_list(capsys):
-    refused(
+    refused_at_line(
         GOOD.replace("points: 15}", "pionts: 15}"),
         capsys,
         "scans.stretch.coordinates[0].pionts:",
@@ -477,7 +487,7 @@ def test_misspelt_key_gets_did_you_mean_and_the_allowed_list(capsys):
 
 
 def test_misspelt_coordinate_type_gets_did_you_mean(capsys):
-    refused(
+    refused_at_line(
         GOOD.replace("type: distance", "type: distnace"),
         capsys,
         "scans.stretch.coordinates[0].type:",
@@ -487,7 +497,7 @@ def test_misspelt_coordinate_type_gets_did_you_mean(capsys):
 
 
 def test_misspelt_basis_gets_did_you_mean(capsys):
-    refused(
+    refused_at_line(
         GOOD.replace("basis: sto-3g}", "basis: sto-3gg}"),
         capsys,
         "levels[1].basis:",
@@ -497,7 +507,7 @@ def test_misspelt_basis_gets_did_you_mean(capsys):
 
 
 def test_misspelt_method_gets_did_you_mean_and_the_allowed_list(capsys):
-    refused(
+    refused_at_line(
         GOOD.replace("method: b3lyp", "method: b3lpy"),
         capsys,
         "levels[1].method:",
@@ -507,7 +517,7 @@ def test_misspelt_method_gets_did_you_mean_and_the_allowed_list(capsys):
 
 
 def test_misspelt_builtin_molecule_gets_did_you_mean(capsys):
-    refused(
+    refused_at_line(
         GOOD.replace("{builtin: HF}", "{builtin: NH4}"),
         capsys,
         "molecules.hf_molecule.builtin:",
@@ -517,7 +527,7 @@ def test_misspelt_builtin_molecule_gets_did_you_mean(capsys):
 
 
 def test_misspelt_molecule_reference_in_a_scan_gets_did_you_mean(capsys):
-    refused(
+    refused_at_line(
         GOOD.replace("molecules: [water]", "molecules: [watter]"),
         capsys,
         "scans.bend.molecules[0]:",
@@ -527,7 +537,7 @@ def test_misspelt_molecule_reference_in_a_scan_gets_did_you_mean(capsys):
 
 
 def test_misspelt_reference_level_gets_did_you_mean(capsys):
-    refused(
+    refused_at_line(
         GOOD.replace("reference_level: hf/6-31g", "reference_level: hf/6-31gg"),
         capsys,
         "compare.reference_level:",
@@ -542,14 +552,21 @@ def test_misspelt_scan_and_quantity_in_reference_values_get_did_you_mean(capsys)
         "    - {molecule: hf_molecule, scan: strech, quantity: r_e_angstrom, value: 0.9168,"
         " source: Huber & Herzberg 1979}\n"
     )
-    refused(values, capsys, "reference_values[0].scan:", "did you mean 'stretch'?")
-    refused(
+    refused_at_line(values, capsys, "reference_values[0].scan:", "did you mean 'stretch'?")
+    refused_at_line(
         values.replace("scan: strech", "scan: stretch").replace("r_e_angstrom", "r_e_angstom"),
         capsys,
         "reference_values[0].quantity:",
         "did you mean 'r_e_angstrom'",
         "allowed:",
     )
+
+
+def test_run_refuses_an_absurd_point_count_at_once_without_writing(capsys):
+    path = write(GOOD.replace("points: 15", "points: 50000000"))
+    assert main(["run", str(path), "--cores", "1"]) == 2
+    assert "at most 200,000 points" in capsys.readouterr().err
+    assert not Path("results").exists() and not Path("pesflow-store").exists()
 
 
 def test_tight_binding_level_has_no_basis_and_its_label_is_the_method():
@@ -585,4 +602,25 @@ def test_renamed_engine_key_names_its_new_name(capsys):
         capsys,
         "engine",
         "unknown key 'conv_tol'; it is now called 'scf_energy_tolerance_hartree'",
+    )
+
+
+def test_points_given_as_true_is_refused_not_read_as_one(capsys):
+    refused_at_line(
+        GOOD.replace("points: 15", "points: true"),
+        capsys,
+        "scans.stretch.coordinates[0].points:",
+        "whole number",
+    )
+
+
+def test_reference_value_that_is_not_finite_is_refused(capsys):
+    refused_at_line(
+        GOOD
+        + "  reference_values:\n"
+        + "    - {molecule: hf_molecule, scan: stretch, quantity: r_e_angstrom, value: .nan,"
+        + " source: x}\n",
+        capsys,
+        "compare.reference_values[0].value:",
+        "finite number",
     )
