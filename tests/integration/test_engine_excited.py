@@ -153,3 +153,19 @@ def test_h2_b_state_adiabatic_excitation_against_measured():
     # B state r_e 1.2928 A (Huber & Herzberg 1979, from memory); a 0.1 A grid, same basis
     assert rows[1]["r_e_angstrom"] == pytest.approx(1.2928, abs=0.05)
     assert out["t_v_ev"] > out["t_e_ev"]  # the vertical excitation lies above T_e
+
+
+def test_a_failed_scf_is_recorded_on_every_state():
+    # one SCF iteration, one rung: cannot converge O2 (a failure, never an exception)
+    settings = EngineSettings(scf_max_iterations=1, scf_ladder=("default",))
+    walk = get_engine().start_walk(settings, "sto-3g", ["cis(singlets=2)#1"])
+    records = walk.compute(Geometry(("O", "O"), [[0, 0, 0], [0, 0, 1.2]]))
+    assert sorted(records) == [f"cis(singlets=2)#{k}" for k in range(3)]
+    assert not any(r.converged for r in records.values())
+    assert all("SCF did not converge" in r.error for r in records.values())
+
+
+def test_triplets_on_an_open_shell_are_a_recorded_error():
+    walk = get_engine().start_walk(EngineSettings(), "sto-3g", ["cis(triplets=2)"])
+    records = walk.compute(Geometry(("O", "H"), [[0, 0, 0], [0, 0, 0.97]], multiplicity=2))
+    assert all(not r.converged and "closed-shell" in r.error for r in records.values())

@@ -143,7 +143,10 @@ class PySCFWalk(EngineWalk):
             ladder = converge_scf(geometry, self.basis, family, kind, settings, guess)
         except Exception as exc:
             wall_s = time.perf_counter() - start
-            return {m: PointResult.failed(m, error_line(exc), label, wall_s=wall_s) for m in wanted}
+            return {
+                m: PointResult.failed(m, error_line(exc), label, wall_s=wall_s)
+                for m in _record_names(wanted)
+            }
 
         if not ladder.converged:
             reason = "SCF did not converge after rungs: " + ", ".join(settings.scf_ladder)
@@ -153,7 +156,7 @@ class PySCFWalk(EngineWalk):
                 m: PointResult.failed(
                     m, reason, label, ladder.attempts, ladder.cycles, ladder.wall_s
                 )
-                for m in wanted
+                for m in _record_names(wanted)
             }
 
         mf = ladder.mf
@@ -392,6 +395,15 @@ class PySCFWalk(EngineWalk):
         elif record.error:
             info["error"] = record.error
         return record
+
+
+def _record_names(methods):
+    # The record names of methods: one per state for a multi-state method (method#k).
+    names = []
+    for m in methods:
+        n_states = method_info(m).n_states
+        names += [m] if n_states == 1 else [state_record(m, k) for k in range(n_states)]
+    return names
 
 
 def _check_inputs(geometry, basis):
