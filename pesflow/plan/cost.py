@@ -114,6 +114,8 @@ def estimate(points: pd.DataFrame, nbf: dict[tuple[str, str], int]) -> pd.DataFr
         prefactor[cls] = float(np.median(scaled))
     medians = timed.groupby(["molecule", "level"])["wall_s"].median().to_dict()
     pending = pts[pts["status"] == "pending"]
+    if "state" in pending:  # the states of a multi-state level come from one calculation
+        pending = pending[pending["state"] == 0]
     rows = []
     for level, sub in pending.groupby("level", sort=False):
         seconds, sources = 0.0, set()
