@@ -71,8 +71,8 @@ def walk_states(sub: pd.DataFrame, plan) -> dict:
 
     Returns ``walks`` (walk indices in order), ``values`` (the first scan coordinate),
     ``energies`` ((m, n + 1) by energy, NaN where not done), ``overlaps`` (per walk
-    point, the (n, n) overlaps with the previous walk point, or None when they are not
-    stored or belong to another neighbour) and ``n``.
+    point, the (n, n) overlaps with the previous walk point, rows its states, or None
+    when neither point stored overlaps against the other) and ``n``.
     """
     set_id = int(sub["set_id"].iloc[0])
     gs = plan.geometry_sets[set_id]
@@ -82,7 +82,7 @@ def walk_states(sub: pd.DataFrame, plan) -> dict:
     index = {w: i for i, w in enumerate(walks)}
     energies = np.full((len(walks), n + 1), np.nan)
     overlaps = [np.full((n, n), np.nan) for _ in walks]
-    linked = [True] * len(walks)
+    backward = [np.full((n, n), np.nan) for _ in walks]  # stored against walk + 1
     done = sub["status"] == "done" if "status" in sub else pd.Series(True, index=sub.index)
     texts = sub["extra_json"] if "extra_json" in sub else [None] * len(sub)
     for w, s, e, ok, text in zip(sub["walk"], sub[state_col], sub["energy_hartree"], done, texts):
@@ -92,25 +92,35 @@ def walk_states(sub: pd.DataFrame, plan) -> dict:
         info = _state_info(text)
         if s == 0:
             continue
-        previous = info.get("neighbour_positions_angstrom")
-        expected = gs.positions[int(w) - 1].ravel() if int(w) > 0 else None
-        if (
-            previous is None
-            or expected is None
-            or len(previous) != expected.size
-            or np.max(np.abs(np.asarray(previous) - expected)) > SAME_POSITION_ANGSTROM
-        ):
-            linked[i] = False
-            continue
-        overlaps[i][:, s - 1] = info.get("neighbour_overlaps", [np.nan] * n)
-    out_overlaps = []
-    for i, w in enumerate(walks):
-        ok = linked[i] and i > 0 and walks[i - 1] == w - 1 and np.all(np.isfinite(overlaps[i]))
-        out_overlaps.append(overlaps[i] if ok else None)
+        # The overlaps are with the point computed before, normally walk - 1; a point
+        # redone walking back (a lower SCF solution) has them against walk + 1.
+        neighbour = info.get("neighbour_positions_angstrom")
+        for target, store in ((int(w) - 1, overlaps), (int(w) + 1, backward)):
+            if neighbour is not None and _same_positions(neighbour, gs, target):
+                store[i][:, s - 1] = info.get("neighbour_overlaps", [np.nan] * n)
+    out_overlaps = [None]
+    for i in range(1, len(walks)):
+        link = None
+        if walks[i - 1] == walks[i] - 1:
+            if np.all(np.isfinite(overlaps[i])):
+                link = overlaps[i]
+            elif np.all(np.isfinite(backward[i - 1])):
+                link = backward[i - 1].T  # rows: the states of walk - 1
+        out_overlaps.append(link)
     values = gs.values[walks, 0] if gs.values.shape[1] else np.zeros(len(walks))
     return {
         "walks": walks, "values": values, "energies": energies, "overlaps": out_overlaps, "n": n
     }  # fmt: skip
+
+
+def _same_positions(stored, gs, walk) -> bool:
+    if not 0 <= walk < len(gs.positions):
+        return False
+    expected = gs.positions[walk].ravel()
+    stored = np.asarray(stored, dtype=float)
+    return (
+        stored.size == expected.size and np.max(np.abs(stored - expected)) <= SAME_POSITION_ANGSTROM
+    )
 
 
 def add_state_quantities(summary: pd.DataFrame, plan, scans: pd.DataFrame) -> pd.DataFrame:

@@ -192,3 +192,46 @@ def test_spec_refuses_options_a_method_does_not_take(tmp_path):
     with pytest.raises(SpecError, match="spin"):
         load_campaign(spec)
     assert Path(spec).exists()
+
+
+def _rows(method, positions, overlaps_at, against):
+    """Points-table rows of a 1-excited-state level along three geometries; the point
+    ``overlaps_at`` stores overlaps against walk point ``against``."""
+    import json
+
+    import pandas as pd
+
+    rows = []
+    for w in range(3):
+        for s in (0, 1):
+            info = {"index": s}
+            if s == 1 and w == overlaps_at:
+                info["neighbour_overlaps"] = [0.9]
+                info["neighbour_positions_angstrom"] = positions[against].ravel().tolist()
+            rows.append(
+                {"set_id": 0, "walk": w, "state": s, "method": method, "status": "done",
+                 "energy_hartree": -1.0 + 0.1 * s, "extra_json": json.dumps({"state": info})}
+            )  # fmt: skip
+    return pd.DataFrame(rows)
+
+
+def test_overlaps_are_used_only_between_neighbours_of_the_walk():
+    from types import SimpleNamespace
+
+    from pesflow.tables.states import walk_states
+
+    positions = np.array([[[0, 0, 0], [0, 0, r]] for r in (1.0, 1.1, 1.2)])
+    plan = SimpleNamespace(
+        geometry_sets=[SimpleNamespace(positions=positions, values=np.array([[1.0], [1.1], [1.2]]))]
+    )
+    method = "cis(singlets=1)"
+    forward = walk_states(_rows(method, positions, 1, 0), plan)["overlaps"]
+    assert forward[0] is None and forward[1].tolist() == [[0.9]] and forward[2] is None
+    # a point redone walking back stores its overlaps against walk + 1
+    backward = walk_states(_rows(method, positions, 1, 2), plan)["overlaps"]
+    assert backward[1] is None and backward[2].tolist() == [[0.9]]
+    # overlaps against a geometry that is not a neighbour here are not used
+    elsewhere = positions.copy()
+    elsewhere[0, 1, 2] = 0.95
+    stale = _rows(method, elsewhere, 1, 0)
+    assert walk_states(stale, plan)["overlaps"][1] is None
