@@ -54,13 +54,14 @@ if [[ $hw != NodeName=* ]]; then
     mem=$(awk '/^MemTotal:/ {print int($2 / 1024)}' /proc/meminfo)
     hw="NodeName=$node CPUs=$(nproc) RealMemory=$mem"
 fi
-hw="NodeName=$node ${hw#NodeName=* }"
+# One node: daemons talk over the loopback, whether or not the host name resolves.
+hw="NodeName=$node NodeAddr=127.0.0.1 ${hw#NodeName=* }"
 
 conf="$MARK
 # One node, no accounting database (sacct has nothing to ask), no cgroups (works
 # inside a container): processes tracked by /proc, tasks not bound to cores.
 ClusterName=pesflow-ci
-SlurmctldHost=$node
+SlurmctldHost=$node(127.0.0.1)
 AuthType=auth/munge
 SlurmUser=slurm
 StateSaveLocation=/var/lib/slurm/slurmctld

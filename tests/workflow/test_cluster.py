@@ -205,8 +205,13 @@ def test_interrupt_cancels_cluster_jobs(tmp_path):
     state = tmp_path / "results" / "cluster-check" / ".pesflow" / "workflow" / ".local-cluster"
     fragments = tmp_path / "store" / "fragments"
     try:
+        # stored points only: a writer's dot-named temporary file is not one yet
         assert _wait_for(
-            lambda: fragments.exists() and len(list(fragments.iterdir())) >= 4, timeout_s=120
+            lambda: (
+                fragments.exists()
+                and sum(not p.name.startswith(".") for p in fragments.iterdir()) >= 4
+            ),
+            timeout_s=120,
         )
         pids = [int((job / "pid").read_text()) for job in state.iterdir() if (job / "pid").exists()]
         assert pids and all(alive(p) for p in pids)

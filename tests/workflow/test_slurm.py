@@ -7,9 +7,10 @@ one, the tests skip with the reason.  The profile used is a copy of
 ``configs/profiles/slurm`` with only its EDIT placeholders filled in (partition,
 account, runtime, memory), as a user would.
 
-References outside pesflow: the same campaign computed by a local ``pesflow run``
-(point for point, to 1e-10 Eh: same code, same geometries, one thread), and SLURM's
-own ``squeue``/``scancel`` for the jobs.  A run waits for the plugin's status checks
+References: the same campaign computed by a local ``pesflow run`` (point for point, to
+1e-10 Eh: same code, same geometries, one thread), plain PySCF for two of the points
+(``helpers.direct_energy``, 1e-7 Eh as in test_run.py), and SLURM's own
+``squeue``/``scancel`` for the jobs.  A run waits for the plugin's status checks
 (10 s after submitting, then 20 s later, ...): the first test takes about 30 s; the
 cancel-and-rerun test (about 90 s) and the sacct test (about 35 s) are marked slow.
 """
@@ -25,7 +26,7 @@ import numpy as np
 import pytest
 
 from pesflow.store.point_store import PointStore
-from tests.workflow.helpers import SMALL_CAMPAIGN, pesflow
+from tests.workflow.helpers import SMALL_CAMPAIGN, direct_energy, pesflow
 
 REPO = Path(__file__).resolve().parents[2]
 SLURM_PROFILE = REPO / "configs" / "profiles" / "slurm"
@@ -129,6 +130,8 @@ def our_jobs(folder: Path, states: str) -> list[str]:
     ]
 
 
+# ~30 s on a quiet machine, a minute under load: run by .ci/run's slow call, not the default run.
+@pytest.mark.slow
 def test_slurm_profile_and_local_run_give_the_same_store(tmp_path):
     for name in ("slurm", "local"):
         (tmp_path / name).mkdir()
@@ -157,6 +160,12 @@ def test_slurm_profile_and_local_run_give_the_same_store(tmp_path):
     np.testing.assert_allclose(
         [on_slurm[k] for k in keys], [on_local[k] for k in keys], rtol=0, atol=1e-10
     )
+    # Two points against plain PySCF (the reference outside pesflow): a closed-shell HF
+    # and an open-shell MP2 point computed on the SLURM node.
+    table = PointStore(tmp_path / "slurm" / "store").load().to_pandas()
+    for query in ("method == 'hf' and symbols == 'H H'", "method == 'mp2' and symbols == 'O H'"):
+        row = table.query(query).iloc[0]
+        assert row["energy_hartree"] == pytest.approx(direct_energy(row), abs=1e-7)
 
 
 @pytest.mark.slow  # two runs through SLURM with two cancels: about 90 s
@@ -184,7 +193,11 @@ def test_scancel_mid_run_then_rerun_computes_only_what_is_missing(tmp_path):
         while len(cancelled) < 2 and time.monotonic() < deadline:
             assert first.poll() is None, f"the run ended before two cancels: {cancelled}"
             if not cancelled:
-                n = len(list(fragments.glob("*.parquet"))) if fragments.exists() else 0
+                n = (  # stored points only, not a writer's dot-named temporary file
+                    sum(not p.name.startswith(".") for p in fragments.glob("*.parquet"))
+                    if fragments.exists()
+                    else 0
+                )
                 running = our_jobs(tmp_path, "RUNNING")
                 if n >= 3 and running:
                     known = set(our_jobs(tmp_path, "all"))
