@@ -256,8 +256,10 @@ def _resolve_level_list(lspecs, loc, elements, err, checked) -> list[Level]:
                 try:
                     info = engine.method_info(engine.level_method(info.name, options))
                 except EngineSetupError as exc:
+                    given = [k for k in options if k not in info.options]
                     named = [k for k in options if k in str(exc)]
-                    raise err(loc + (i, (named or [*options, "method"])[0]), str(exc)) from None
+                    where = (given or named or [*options, "method"])[0]
+                    raise err(loc + (i, where), str(exc)) from None
             where = loc + (i, "basis") if basis is not None else loc + (i,)
             basis_c = ""
             for element in elements:
