@@ -21,8 +21,6 @@ from pesflow import __version__
 from pesflow.errors import PesflowError, RunError, SpecError
 
 EXIT_OK, EXIT_FAILED, EXIT_INVALID, EXIT_INTERRUPTED = 0, 1, 2, 130
-#: During a run, fragments are compacted into a part after this many new points.
-COMPACT_EVERY_POINTS = 2000
 
 console = Console(highlight=False)
 err_console = Console(stderr=True, highlight=False)
@@ -46,8 +44,8 @@ def _plan(campaign):
     return expand(campaign)
 
 
-def _report_quarantined(store) -> None:
-    for path, reason in store.last_quarantined:
+def _report_quarantined(store, quarantined=None) -> None:
+    for path, reason in store.last_quarantined if quarantined is None else quarantined:
         err_console.print(
             f"warning: corrupt store file {path} set aside ({reason}); its points "
             "will be computed again",
@@ -56,25 +54,16 @@ def _report_quarantined(store) -> None:
         )
 
 
-def _done_keys(store) -> set[str]:
-    """Keys of every stored point (done or failed)."""
-    if not store.exists():
-        return set()
-    keys = store.keys()
-    _report_quarantined(store)
-    return keys
-
-
-def _failed_keys(store) -> set[str]:
-    """Keys of the points stored as failed."""
-    if not store.exists():
-        return set()
-    table = store.status_table(columns=("key", "converged"))
-    return {
-        k
-        for k, c in zip(table.column("key").to_pylist(), table.column("converged").to_pylist())
-        if not c
-    }
+def table(*columns, title=None, numeric=()):
+    """A rich table that fits the terminal: text columns fold (never cut), number columns
+    keep their digits together (``numeric``: the names of those)."""
+    out = Table(title=title, title_justify="left")
+    for name in columns:
+        if name in numeric:
+            out.add_column(name, justify="right", no_wrap=True)
+        else:
+            out.add_column(name, overflow="fold")
+    return out
 
 
 # ---------------------------------------------------------------------------
@@ -83,100 +72,93 @@ def _failed_keys(store) -> set[str]:
 
 
 def cmd_check(args) -> int:
+    from pesflow import api
+
     campaign = _load(args.spec)
     plan = _plan(campaign)
-    table = Table(title=f"campaign {campaign.name}: spec is valid", title_justify="left")
-    for col in ("molecule", "atoms", "charge", "multiplicity", "scans"):
-        table.add_column(col)
-    for name, mol in campaign.molecules.items():
-        scans = [s.name for s in campaign.scans.values() if name in s.molecules]
-        table.add_row(
-            name,
-            mol.atoms.get_chemical_formula(),
-            str(mol.charge),
-            str(mol.multiplicity),
-            ", ".join(scans) or "-",
-        )
-    console.print(table)
-    scans = Table(show_header=True)
-    for col in ("scan", "coordinates", "points per molecule"):
-        scans.add_column(col)
-    for scan in campaign.scans.values():
-        coords = "; ".join(
-            f"{c.label} {c.values[0]:g}..{c.values[-1]:g} {c.unit} ({len(c.values)})"
-            for c in scan.coordinates
-        )
-        scans.add_row(scan.name, coords, str(len(scan.grid())))
+    out = table(
+        "molecule",
+        "atoms",
+        "charge",
+        "multiplicity",
+        "scans",
+        title=f"campaign {campaign.name}: spec is valid",
+        numeric=("charge", "multiplicity"),
+    )
+    for r in api.molecules_table(campaign).itertuples(index=False):
+        out.add_row(r.molecule, r.formula, str(r.charge), str(r.multiplicity), r.scans or "-")
+    console.print(out)
+    scans = table("scan", "coordinates", "points per molecule", numeric=("points per molecule",))
+    for r in api.scans_table(campaign).itertuples(index=False):
+        scans.add_row(r.scan, r.coordinates, str(r.points_per_molecule))
     console.print(scans)
-    console.print("levels: " + ", ".join(lvl.label for lvl in campaign.levels))
+    console.print(
+        "levels: " + ", ".join(lvl.label for lvl in campaign.levels), markup=False, soft_wrap=True
+    )
     console.print(f"{len(plan.points)} points in all; nothing was computed.")
     return EXIT_OK
 
 
-def _plan_table(plan, store, done, sample_per_curve=20):
-    """Points with their status and, for a sample of the stored ones, their timing.
-
-    Planning must stay cheap on a large store: it reads the timings of at most
-    ``sample_per_curve`` stored points per molecule and level, not every record.
-    """
-    import numpy as np
-
-    pts = plan.points[["key", "molecule", "level", "method", "basis"]].copy()
-    is_done = pts["key"].isin(done)
-    pts["status"] = np.where(is_done, "done", "pending")
-    sample = pts[is_done].groupby(["molecule", "level"], sort=False).head(sample_per_curve)
-    if sample.empty:
-        pts["wall_s"] = np.nan
-        return pts
-    timing = store.load(keys=set(sample["key"]), columns=("wall_s", "converged")).to_pandas()
-    timing = timing.loc[timing["converged"].astype(bool), ["key", "wall_s"]]
-    return pts.merge(timing, on="key", how="left")
+#: Short words of the plan's ``from`` column for the sources of an estimate.
+_SOURCE_WORDS = {"stored timings": "stored", "scaling model": "model"}
 
 
 def cmd_plan(args) -> int:
-    from pesflow.plan import cost
-    from pesflow.plan.batches import plan_jobs
+    from pesflow import api
+    from pesflow.report.tables import fmt_duration
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
     store = _store(campaign)
-    done = _done_keys(store)
-    nbf = cost.basis_function_counts(campaign)
-    jobs = plan_jobs(
-        plan, done, cores=args.cores or _cpu_count(), size_weight=cost.size_weights(nbf)
+    summary = api.plan_levels(campaign, plan, store, args.cores or _cpu_count())
+    _report_quarantined(store)
+    out = table(
+        "level",
+        "points",
+        "cached",
+        "to compute",
+        "estimate",
+        "from",
+        title=f"campaign {campaign.name}: plan",
+        numeric=("points", "cached", "to compute", "estimate"),
     )
-    table = _plan_table(plan, store, done)
-    estimate = cost.estimate(table, nbf).set_index("level")
-    out = Table(title=f"campaign {campaign.name}: plan", title_justify="left")
-    for col in ("level", "points", "cached", "to compute", "estimate (core-h)", "from"):
-        out.add_column(col, justify="left" if col in ("level", "from") else "right")
-    for level, sub in table.groupby("level", sort=False):
-        cached = int((sub["status"] != "pending").sum())
-        est = estimate.loc[level] if level in estimate.index else None
+    sources = set()
+    for r in summary.levels.itertuples(index=False):
+        words = [_SOURCE_WORDS.get(x, x) for x in r.source.split(" + ") if x]
+        sources.update(x for x in r.source.split(" + ") if x)
         out.add_row(
-            level,
-            str(len(sub)),
-            str(cached),
-            str(len(sub) - cached),
-            "-" if est is None else f"{est['estimate_core_h']:.3g}",
-            "-" if est is None else est["source"],
+            r.level,
+            str(r.points),
+            str(r.cached),
+            str(r.to_compute),
+            fmt_duration(r.estimate_core_s) or "-",
+            "+".join(words) or "-",
         )
     console.print(out)
-    n_cached = int((table["status"] != "pending").sum())
-    total_h = float(estimate["estimate_core_h"].sum()) if len(estimate) else 0.0
-    console.print(
-        f"{len(table)} points, {n_cached} cached, {len(table) - n_cached} to compute "
-        f"in {len(jobs)} jobs ({sum(len(j.batches) for j in jobs)} walks); "
-        f"about {total_h:.3g} core-hours left; store: "
-        f"{campaign.store_path}",
-        soft_wrap=True,
-    )
-    for level in cost.dominant_levels(estimate.reset_index()):
-        share = estimate.loc[level, "share"]
+    if sources:
         console.print(
-            f"[yellow]warning[/yellow]: {escape(level)} is about {share:.0%} of the remaining cost",
-            soft_wrap=True,
+            "estimate: core time of the points still to compute; from: "
+            + "; ".join(f"{_SOURCE_WORDS[x]} = {api.ESTIMATE_SOURCES[x]}" for x in sorted(sources))
+            + ".",
+            markup=False,
         )
+    left = summary.estimate_core_s
+    console.print(
+        f"{summary.points} points, {summary.cached} cached, "
+        f"{summary.points - summary.cached} to compute in {summary.jobs} jobs "
+        f"({summary.walks} walks)"
+        + (f"; about {fmt_duration(left)} of core time left." if left > 0 else "."),
+        markup=False,
+    )
+    console.print(f"store: {summary.store_path}", markup=False, soft_wrap=True)
+    levels = summary.levels
+    if len(levels.dropna(subset=["estimate_core_s"])) > 1:
+        top = levels.loc[levels["share"].idxmax()]
+        if top["share"] > 0.5:
+            console.print(
+                f"most of the remaining cost is {top['level']} (about {top['share']:.0%}).",
+                markup=False,
+            )
     return EXIT_OK
 
 
@@ -186,135 +168,124 @@ def _cpu_count():
     return os.cpu_count() or 1
 
 
-def _print_status(campaign, plan, store, show_failed=10) -> tuple[int, int, int]:
-    from pesflow.tables.points import STATUS_COLUMNS, failed_points, points_table, status_counts
+#: Above this many molecule x level rows, the end of a run prints per-level totals and only
+#: the rows that need attention; ``pesflow status`` prints them all.
+MAX_STATUS_ROWS = 12
 
-    table = points_table(plan, store, columns=STATUS_COLUMNS)
-    counts = status_counts(table, list(campaign.molecules), [lvl.label for lvl in campaign.levels])
-    out = Table(title=f"campaign {campaign.name}: status", title_justify="left")
-    for col in ("molecule", "level", "done", "failed", "pending"):
-        out.add_column(col, justify="left" if col in ("molecule", "level") else "right")
-    for row in counts.itertuples(index=False):
-        out.add_row(
-            row.molecule,
-            row.level,
-            str(row.done),
-            f"[red]{row.failed}[/red]" if row.failed else "0",
-            str(row.pending),
+
+def _where(row, columns) -> str:
+    return ", ".join(
+        f"{c}={getattr(row, c):g}"
+        for c in columns
+        if c.endswith(("_angstrom", "_degree"))
+        and c != "positions_angstrom"
+        and c in row._fields
+        and getattr(row, c) == getattr(row, c)
+    )
+
+
+def _print_status(
+    campaign, counts, failed, columns, *, spec=None, warnings=None, show_failed=10
+) -> None:
+    """The status table (all rows; or, with ``spec`` and a large campaign, per-level totals
+    and only the rows that need attention: failed or pending points, or curves with warnings
+    when ``warnings`` (a callable returning :func:`pesflow.api.warning_counts`) is given),
+    then the first failed points."""
+    rows = counts
+    flagged = None
+    if spec is not None and len(counts) > MAX_STATUS_ROWS:
+        totals = counts.groupby("level", sort=False)[["done", "failed", "pending"]].sum()
+        out = table(
+            "level",
+            "done",
+            "failed",
+            "pending",
+            title=f"campaign {campaign.name}: points per level",
+            numeric=("done", "failed", "pending"),
         )
-    console.print(out)
-    failed = failed_points(table)
+        for level, r in totals.iterrows():
+            out.add_row(
+                escape(level),
+                str(r["done"]),
+                f"[red]{r['failed']}[/red]" if r["failed"] else "0",
+                str(r["pending"]),
+            )
+        console.print(out)
+        attention = (counts["failed"] > 0) | (counts["pending"] > 0)
+        if warnings is not None:
+            flagged = counts.merge(warnings(), on=["molecule", "level"], how="left")
+            flagged = flagged["warnings"].fillna(0).astype(int).to_numpy()
+            attention = attention | (flagged > 0)
+            flagged = flagged[attention.to_numpy()]
+        rows = counts[attention]
+    if len(rows):
+        names = ["molecule", "level", "done", "failed", "pending"]
+        if flagged is not None:
+            names.append("warnings")
+        out = table(
+            *names,
+            title=f"campaign {campaign.name}: "
+            + ("status" if rows is counts else "rows that need attention"),
+            numeric=("done", "failed", "pending", "warnings"),
+        )
+        for k, row in enumerate(rows.itertuples(index=False)):
+            cells = [
+                escape(row.molecule),
+                escape(row.level),
+                str(row.done),
+                f"[red]{row.failed}[/red]" if row.failed else "0",
+                str(row.pending),
+            ]
+            if flagged is not None:
+                cells.append(str(flagged[k]))
+            out.add_row(*cells)
+        console.print(out)
+    if rows is not counts:
+        console.print(
+            f"{len(counts)} molecule x level rows; every one: pesflow status {spec}",
+            markup=False,
+            soft_wrap=True,
+        )
+        if flagged is not None:
+            console.print(
+                f"what the warnings say: pesflow report {spec}", markup=False, soft_wrap=True
+            )
     for row in failed.head(show_failed).itertuples(index=False):
-        where = ", ".join(
-            f"{c}={getattr(row, c):g}"
-            for c in table.columns
-            if c.endswith(("_angstrom", "_degree"))
-            and c != "positions_angstrom"
-            and c in row._fields
-            and getattr(row, c) == getattr(row, c)
-        )
         console.print(
             f"[red]failed[/red] {escape(row.molecule)} {escape(row.scan)} "
-            f"{escape(row.level)} {where}: {escape(str(row.error))}",
-            soft_wrap=True,
+            f"{escape(row.level)} {_where(row, columns)}: {escape(str(row.error))}"
         )
     if len(failed) > show_failed:
         console.print(
             f"... and {len(failed) - show_failed} more failed points "
             "(pesflow export lists them all)"
         )
-    n = table["status"].value_counts()
-    return int(n.get("done", 0)), int(n.get("failed", 0)), int(n.get("pending", 0))
 
 
-def _size_weights(campaign, plan, done):
-    """Per (molecule, basis) cost weights for batching; skipped when nothing is pending."""
-    from pesflow.plan import cost
-
-    if plan.points["key"].isin(done).all():
-        return None
-    return cost.size_weights(cost.basis_function_counts(campaign))
+def _totals(counts) -> tuple[int, int, int]:
+    return tuple(int(counts[c].sum()) if len(counts) else 0 for c in ("done", "failed", "pending"))
 
 
 def cmd_status(args) -> int:
-    campaign = _load(args.spec)
-    plan = _plan(campaign)
-    done, failed, pending = _print_status(campaign, plan, _store(campaign))
-    console.print(f"{done} done, {failed} failed, {pending} pending")
-    return EXIT_FAILED if failed else EXIT_OK
-
-
-def cmd_run(args) -> int:
-    from pesflow.execution import driver as runner
-    from pesflow.plan import batches as packing
+    from pesflow import api
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
     store = _store(campaign)
-    options = runner.RunOptions(
-        cores=args.cores,
-        profile=args.profile,
-        threads_per_batch=args.threads_per_batch,
-    )
-    lock = runner.RunLock(campaign.results_path / ".pesflow" / "run.lock").acquire()
-    try:
-        recompute = _failed_keys(store) if args.retry_failed else set()
-        done = _done_keys(store) - recompute
-        target_job_s = options.target_job_s or (
-            packing.TARGET_JOB_S_CLUSTER if options.profile else packing.TARGET_JOB_S_LOCAL
-        )
-        batches = packing.plan_jobs(
-            plan,
-            done,
-            cores=args.cores or _cpu_count(),
-            size_weight=_size_weights(campaign, plan, done),
-            target_job_s=target_job_s,
-        )
-        pending = set(plan.points["key"]) - done
-        if not batches:
-            console.print("nothing to compute: every point is in the store")
-        else:
-            console.print(
-                f"{len(pending)} points to compute in {len(batches)} jobs "
-                f"({len(plan.points) - len(pending)} cached); store: "
-                f"{campaign.store_path}"
-            )
-            wd = runner.workdir(campaign)
-            config = runner.write_tasks(
-                plan, batches, campaign.store_path, wd, options, recompute=recompute
-            )
-            outcome = _run_with_progress(runner, wd, config, options, lock, store, pending)
-            if outcome.interrupted:
-                console.print(
-                    "[yellow]interrupted[/yellow]: every finished point is stored; "
-                    "run the same command again to continue"
-                )
-                return EXIT_INTERRUPTED
-            if outcome.stalled:
-                err_console.print(
-                    f"all {len(pending)} points are stored but the scheduler still reported jobs "
-                    f"running {options.stall_grace_s:.0f} s after the last batch ended, so "
-                    "Snakemake was stopped; the executor's status query may not work on this "
-                    "cluster (see configs/profiles/slurm/README.md)",
-                    soft_wrap=True,
-                )
-            elif outcome.returncode != 0:
-                err_console.print(f"some batch jobs failed; Snakemake's log: {outcome.log_path}")
-        if store.exists():
-            store.compact()
-    finally:
-        lock.release()
-    done_n, failed, pending_n = _print_status(campaign, plan, store)
-    console.print(f"{done_n} done, {failed} failed, {pending_n} pending")
-    if failed or pending_n:
-        return EXIT_FAILED
-    return EXIT_OK
+    counts, failed, points = api.status_of(campaign, plan, store)
+    _report_quarantined(store)
+    _print_status(campaign, counts, failed, points.columns)
+    done, n_failed, pending = _totals(counts)
+    console.print(f"{done} done, {n_failed} failed, {pending} pending")
+    return EXIT_FAILED if n_failed else EXIT_OK
 
 
-def _run_with_progress(runner, wd, config, options, lock, store, pending):
-    seen: dict[str, bool] = {}
-    total = len(pending)
-    start = time.monotonic()
+def cmd_run(args) -> int:
+    from pesflow import api
+
+    campaign = _load(args.spec)
+    plan = _plan(campaign)
+    store = _store(campaign)
     progress = Progress(
         TextColumn("[bold]points"),
         BarColumn(),
@@ -325,46 +296,83 @@ def _run_with_progress(runner, wd, config, options, lock, store, pending):
         console=console,
         transient=False,
     )
-    task = progress.add_task("run", total=total, done=0, failed=0, left=total)
-    last_print = [start]
+    state = {"task": None, "start": time.monotonic(), "printed": time.monotonic()}
 
-    timing = {"next": 0.0, "compacted_at": 0}
+    def on_start(to_compute, jobs, cached):
+        console.print(f"{to_compute} points to compute in {jobs} jobs ({cached} cached)")
+        console.print(f"store: {campaign.store_path}", markup=False, soft_wrap=True)
+        state["task"] = progress.add_task("run", total=to_compute, done=0, failed=0, left=0)
+        progress.start()
 
-    def poll(force=False):
-        now = time.monotonic()
-        if not force and now < timing["next"]:
-            return
-        if store.exists():
-            keys = store.keys()
-            new = (keys & pending) - seen.keys()
-            for key in new:
-                record = store.get(key)
-                seen[key] = bool(record and record.get("converged"))
-        failed = sum(1 for ok in seen.values() if not ok)
+    def on_progress(finished, failed, total):
         progress.update(
-            task,
-            completed=len(seen),
-            done=len(seen) - failed,
+            state["task"],
+            completed=finished,
+            done=finished - failed,
             failed=failed,
-            left=total - len(seen),
+            left=total - finished,
         )
-        if not console.is_terminal and time.monotonic() - last_print[0] > 30:
-            last_print[0] = time.monotonic()
+        if not console.is_terminal and time.monotonic() - state["printed"] > 30:
+            state["printed"] = time.monotonic()
             console.print(
-                f"  {len(seen)}/{total} points, {failed} failed, {time.monotonic() - start:.0f} s"
+                f"  {finished}/{total} points, {failed} failed, "
+                f"{time.monotonic() - state['start']:.0f} s"
             )
-        # Keep the fragment folder small during long runs so that listing it stays cheap;
-        # compaction is safe while batches write (see pesflow.store.point_store).
-        if len(seen) - timing["compacted_at"] >= COMPACT_EVERY_POINTS:
-            timing["compacted_at"] = len(seen)
-            store.compact(merge_parts=False)
-        # Watching must stay a small share of one core, however large the store.
-        timing["next"] = time.monotonic() + max(0.5, 10 * (time.monotonic() - now))
 
-    with progress:
-        outcome = runner.run_snakemake(wd, config, options, lock, on_poll=poll)
-        poll(force=True)
-    return outcome
+    try:
+        result = api.run_campaign(
+            campaign,
+            plan,
+            store,
+            cores=args.cores,
+            profile=args.profile,
+            threads_per_batch=args.threads_per_batch,
+            retry_failed=args.retry_failed,
+            on_start=on_start,
+            on_progress=on_progress,
+        )
+    finally:
+        progress.stop()
+    _report_quarantined(store, result.quarantined)
+    if not result.jobs:
+        console.print("nothing to compute: every point is in the store")
+    if result.interrupted and not result.stalled:
+        console.print(
+            "[yellow]interrupted[/yellow]: every finished point is stored; "
+            "run the same command again to continue"
+        )
+        return EXIT_INTERRUPTED
+    if result.stalled:
+        err_console.print(
+            f"all {result.to_compute} points are stored but the scheduler still reported jobs "
+            f"running {_stall_grace_s():.0f} s after the last batch ended, so "
+            "Snakemake was stopped; the executor's status query may not work on this "
+            "cluster (see configs/profiles/slurm/README.md)",
+            soft_wrap=True,
+        )
+    elif result.returncode != 0:
+        err_console.print(
+            f"some batch jobs failed; Snakemake's log: {result.log_path}", soft_wrap=True
+        )
+    failed = result.failed_points
+    _print_status(
+        campaign,
+        result.status,
+        failed,
+        failed.columns,
+        spec=args.spec,
+        warnings=lambda: api.warning_counts(campaign, plan, store),
+    )
+    console.print(f"{result.done} done, {result.failed} failed, {result.pending} pending")
+    if result.failed or result.pending:
+        return EXIT_FAILED
+    return EXIT_OK
+
+
+def _stall_grace_s() -> float:
+    from pesflow.execution.driver import stall_grace_s
+
+    return stall_grace_s()
 
 
 def cmd_report(args) -> int:
@@ -380,7 +388,7 @@ def cmd_report(args) -> int:
     summary = summary_table(campaign, plan, points)
     out = Path(args.output) if args.output else campaign.results_path / "report"
     paths = build_report(campaign, plan, points, summary, out)
-    terminal_summary(campaign, summary, console, paths=paths)
+    terminal_summary(campaign, summary, console, paths=paths, points=points)
     return EXIT_OK
 
 

@@ -150,19 +150,32 @@ def build_report(
     return paths
 
 
-def terminal_summary(campaign, summary: pd.DataFrame, console, *, paths=None) -> None:
+#: The closest-level mark of the terminal report (a column of its own, so that it cannot be
+#: read as part of a level's name).
+CLOSEST_MARK = "← closest"
+
+
+def terminal_summary(campaign, summary: pd.DataFrame, console, *, paths=None, points=None) -> None:
     """Print the report's verdicts to ``console`` (a :class:`rich.console.Console`).
 
-    Per quantity, the error statistics of each level against the reference level (and the
-    user's reference values), the closest level marked; then what is missing, and the report
-    files when ``paths`` (the dict :func:`build_report` returned) is given.  Point counts and
-    core-seconds here are those of the summary (scan points; fragment points are in the
-    report's cost table).  All text is printed without markup interpretation.
+    Per quantity and reference, the error statistics of each level over the curves every
+    compared level has, the closest level marked; then the cost and the points of each
+    level, what is missing, and the report files when ``paths`` (the dict
+    :func:`build_report` returned) is given.  With ``points`` (the points table the report
+    was built from) the numbers are those of the HTML page, fragment points included;
+    without it, point counts and core-seconds are those of the summary's scan points.
+    Tables fit the console's width (text folds, numbers are never cut); all text is printed
+    without markup interpretation.
     """
     from rich.table import Table
     from rich.text import Text
 
-    points = pd.DataFrame({"molecule": [], "scan": [], "level": [], "status": [], "role": []})
+    from pesflow.report.tables import fmt_dev, fmt_seconds, fmt_value
+
+    if points is None:
+        points = pd.DataFrame(
+            {"molecule": [], "scan": [], "level": [], "status": [], "role": [], "method": []}
+        )
     data = collect(campaign, None, points, summary, basis_counts={})
     summary = states_as_levels(None, summary)[1]
     ref = data.reference_level
@@ -171,64 +184,113 @@ def terminal_summary(campaign, summary: pd.DataFrame, console, *, paths=None) ->
             f"campaign {campaign.name}: comparison of {len(data.levels)} levels"
             + (f" against {ref}" if ref else " (no reference level set)"),
             style="bold",
-        )
+        ),
+        soft_wrap=True,
     )
-    per_level = (
-        summary.groupby("level", sort=False)
-        .agg(
-            core_s=("cost_core_s", "sum"),
-            done=("n_done", "sum"),
-            failed=("n_failed", "sum"),
-            pending=("n_pending", "sum"),
-        )
-        .reindex([lvl for lvl in data.levels if lvl in set(summary["level"])])  # spec's order
-        if len(summary)
-        else pd.DataFrame(columns=["core_s", "done", "failed", "pending"])
-    )
-    best = closest_levels(data.statistics)
-    for column in dict.fromkeys(data.statistics["quantity"]):
+
+    def new_table(title, *columns):
+        out = Table(title=Text(title), title_justify="left")
+        for name in columns:
+            if name in ("level", ""):
+                out.add_column(name, overflow="fold")
+            else:
+                out.add_column(name, justify="right", no_wrap=True)
+        return out
+
+    ranking = data.ranking
+    best = closest_levels(ranking)
+    explained = False
+    for (column, against), rows in ranking.groupby(["quantity", "against"], sort=False):
         q = QUANTITY[column]
-        table = Table(title=Text(f"{q.name} ({q.unit})"), title_justify="left")
-        for name in ("level", "against", "n", "MSD", "MAD", "max |dev|", "core-s"):
-            left = name in ("level", "against")
-            table.add_column(name, justify="left" if left else "right", no_wrap=True)
-        rows = data.statistics[data.statistics["quantity"] == column]
-        winners = set(
-            zip(
-                best.loc[best["quantity"] == column, "against"],
-                best.loc[best["quantity"] == column, "level"],
-            )
+        rows = rows[rows["n"] > 0]
+        if rows.empty:
+            continue
+        n, n_most = int(rows["n"].max()), int(rows["n_curves"].max())
+        curves = f"{n} of {n_most}" if n_most > n else str(n)
+        what = "reference values" if against == "reference values" else f"{against}"
+        table = new_table(
+            f"{q.name} ({q.unit}) against {what}, over {curves} curve"
+            + ("" if n_most == 1 else "s"),
+            "level",
+            "MSD",
+            "MAD",
+            "max |dev|",
+            "",
         )
+        winner = best[(best["quantity"] == column) & (best["against"] == against)]
+        won = set(winner["level"])
         for _, r in rows.iterrows():
-            if r["n"] == 0:
-                continue
-            mark = " *" if (r["against"], r["level"]) in winners else ""
-            core = per_level["core_s"].get(r["level"], np.nan)
             table.add_row(
-                Text(r["level"] + mark),
-                Text(str(r["against"])),
-                str(int(r["n"])),
-                f"{r['mean_signed']:+.{q.decimals}f}",
-                f"{r['mean_absolute']:.{q.decimals}f}",
-                f"{r['max_absolute']:.{q.decimals}f}",
-                f"{core:.3g}" if np.isfinite(core) else "",
+                Text(r["level"]),
+                fmt_dev(r["mean_signed"], q.decimals),
+                fmt_value(r["mean_absolute"], q.decimals),
+                fmt_value(r["max_absolute"], q.decimals),
+                Text(CLOSEST_MARK if r["level"] in won else ""),
             )
-        if table.row_count:
-            console.print(table)
+        console.print(table)
+        if not explained:
+            console.print(
+                "MSD, MAD: mean signed and mean absolute deviation (level minus reference), "
+                "max |dev|: the largest absolute deviation, over the curves every level has; "
+                f"{CLOSEST_MARK}: the smallest MAD.",
+                markup=False,
+            )
+            explained = True
     if best.empty:
         console.print(
             "no deviations to rank yet (needs a reference level or reference values "
             "and computed curves)"
         )
+    if len(points):
+        cost = data.cost.set_index("level")
+        counts = cost.rename(
+            columns={"points_done": "done", "points_failed": "failed", "points_pending": "pending"}
+        )
+        core = counts["core_s"]
+        per_point = counts["core_s_per_point"]
     else:
-        console.print("* closest level (smallest mean absolute deviation)")
-    missing = per_level[(per_level["failed"] > 0) | (per_level["pending"] > 0)]
+        counts = (
+            summary.groupby("level", sort=False)
+            .agg(
+                core_s=("cost_core_s", "sum"),
+                done=("n_done", "sum"),
+                failed=("n_failed", "sum"),
+                pending=("n_pending", "sum"),
+            )
+            .reindex([lvl for lvl in data.levels if lvl in set(summary["level"])])
+            if len(summary)
+            else pd.DataFrame(columns=["core_s", "done", "failed", "pending"])
+        )
+        core = counts["core_s"]
+        computed = counts["done"] + counts["failed"]
+        per_point = core / computed.where(computed > 0)
+    if len(counts):
+        table = new_table(
+            "cost and points per level", "level", "core-s", "per point", "done", "failed", "pending"
+        )
+        for level, r in counts.iterrows():
+            table.add_row(
+                Text(level + (" (reference)" if level == ref else "")),
+                fmt_seconds(core.get(level, np.nan)),
+                fmt_seconds(per_point.get(level, np.nan)),
+                str(int(r["done"])),
+                str(int(r["failed"])),
+                str(int(r["pending"])),
+            )
+        console.print(table)
+        console.print(
+            "core-s: core-seconds, the sum of the points' wall times"
+            + (" (fragment points included)" if len(points) else " (scan points)")
+            + "; per point: core-s over the points computed.",
+            markup=False,
+        )
+    missing = counts[(counts["failed"] > 0) | (counts["pending"] > 0)] if len(counts) else counts
     if len(missing):
         text = ", ".join(
             f"{lvl}: {int(r['failed'])} failed, {int(r['pending'])} pending"
             for lvl, r in missing.iterrows()
         )
-        console.print(Text(f"incomplete: {text} (scan points)", style="yellow"), soft_wrap=True)
+        console.print(Text(f"incomplete: {text}", style="yellow"))
     if paths:
         for key in ("html", "markdown"):
             if key in paths:

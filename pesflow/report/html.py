@@ -30,6 +30,7 @@ from pesflow.report.tables import (
     QUANTITY,
     ReportData,
     fmt_dev,
+    fmt_ratio,
     fmt_seconds,
     fmt_value,
     scan_label,
@@ -58,38 +59,22 @@ def _level_head(level, reference_level) -> Markup:
     return esc(level)
 
 
-class _Notes:
-    """Numbered footnotes of one table: one number per distinct warning text."""
+class Omitted(str):
+    """What a section builder returns instead of markup when the section has nothing to show:
+    the reason, said in one line of the contents (``"each method has one basis set"``)."""
 
-    def __init__(self, prefix):
-        self.prefix = prefix
-        self.items: dict[str, list[str]] = {}
 
-    def mark(self, flags, where: str) -> Markup:
-        """Footnote marks for ``flags`` (the :class:`~pesflow.analysis.flags.Flag` objects that
-        concern one cell), each numbered once per distinct message."""
-        out = []
-        for flag in dict.fromkeys(str(f) for f in flags):
-            self.items.setdefault(flag, [])
-            if where not in self.items[flag]:
-                self.items[flag].append(where)
-            n = list(self.items).index(flag) + 1
-            out.append(tag("a", f"[{n}]", class_="flag", href=f"#{self.prefix}-{n}", title=flag))
-        return join(out)
-
-    def render(self) -> Markup:
-        if not self.items:
-            return Markup("")
-        lis = []
-        for n, (flag, where) in enumerate(self.items.items(), start=1):
-            lis.append(
-                tag(
-                    "li",
-                    join([flag, tag("span", f" ({'; '.join(where)})", class_="muted")]),
-                    id=f"{self.prefix}-{n}",
-                )
-            )
-        return tag("ol", join(lis), class_="notes")
+def note_marks(d: ReportData, flags) -> Markup:
+    """Links ``[n]`` to the notes section for ``flags`` (the warnings that concern one number
+    or one curve), numbered once per distinct warning of the page (``ReportData.notes``)."""
+    out = []
+    for message in dict.fromkeys(str(f) for f in flags):
+        note = d.notes.get(message)
+        if note is None:
+            continue
+        n = note["n"]
+        out.append(tag("a", f"[{n}]", class_="flag", href=f"#note-{n}", title=note["title"]))
+    return join(out)
 
 
 def _cell_text(row, q) -> Markup:
@@ -101,7 +86,7 @@ def _cell_text(row, q) -> Markup:
     return tag("span", state, class_="missing")
 
 
-def _quantity_table(d: ReportData, q, notes: _Notes) -> Markup:
+def _quantity_table(d: ReportData, q) -> Markup:
     sub = d.values[d.values["quantity"] == q.column]
     head = [
         [th("molecule"), th("scan")]
@@ -123,7 +108,7 @@ def _quantity_table(d: ReportData, q, notes: _Notes) -> Markup:
                 cells.append(td(tag("span", "not planned", class_="muted"), cls=cls))
                 continue
             row = by_level.loc[lvl]
-            content = [_cell_text(row, q), notes.mark(row["flags"], f"{lvl}, {molecule} {scan}")]
+            content = [_cell_text(row, q), note_marks(d, row["flags"])]
             dev = fmt_dev(row["dev_reference_level"], q.decimals)
             if lvl != d.reference_level and dev:
                 content.append(tag("span", f"Δ {dev}", class_="dev"))
@@ -254,8 +239,13 @@ def _anchor(*parts) -> str:
     return "-".join(str(p) for p in parts).replace("/", "_").replace("(", "").replace(")", "")
 
 
+def _curves_text(n, n_most) -> str:
+    """``"3"``, or ``"3 of 4"`` when some level has more curves than the common ones."""
+    return f"{n} of {n_most}" if n_most > n else str(n)
+
+
 def _verdicts(d: ReportData) -> Markup:
-    best = closest_levels(d.statistics)
+    best = closest_levels(d.ranking)
     if best.empty:
         return tag(
             "p",
@@ -264,87 +254,92 @@ def _verdicts(d: ReportData) -> Markup:
             "of every level are below."
             if not d.reference_level and d.reference_values.empty
             else "Nothing to rank yet: no level has a value to compare with the reference "
-            "(see Missing points).",
+            "on a curve every level has (see Missing points).",
             class_="muted",
         )
     cost = d.cost.set_index("level")
     head = [
         [
             th("quantity"),
-            th("compared with"),
             th("closest level"),
             th("MAD", cls="num"),
-            th("n", cls="num"),
+            th("curves", cls="num"),
             th("max |dev| (curve)", cls="num"),
-            th("core-s per point", cls="num"),
-            th("cost vs reference", cls="num"),
+            th("core-s per point (vs reference)", cls="num"),
         ]
     ]
-    rows, uneven = [], False
-    for _, b in best.iterrows():
-        q = QUANTITY[b["quantity"]]
-        lvl = b["level"]
-        per_point = cost.loc[lvl, "core_s_per_point"] if lvl in cost.index else np.nan
-        ratio = cost.loc[lvl, "cost_vs_reference"] if lvl in cost.index else np.nan
-        against = (
-            "reference values" if b["against"] == "reference values" else f"{b['against']} (level)"
+    rows = []
+    for against, group in best.groupby("against", sort=False):
+        label = (
+            "against the reference values"
+            if against == "reference values"
+            else join(["against ", tag("strong", against), " (reference level)"])
         )
-        star = "" if b["same_n"] else " *"
-        uneven = uneven or not b["same_n"]
-        rows.append(
-            [
-                td(join([Markup(q.html), f" ({q.unit})"]), cls="nowrap"),
-                td(against, cls="nowrap"),
-                td(tag("strong", lvl), cls="nowrap"),
-                td(
-                    fmt_value(b["mean_absolute"], q.decimals),
-                    cls="num",
-                    data_quantity=q.column,
-                    data_against=b["against"],
-                    data_best=lvl,
-                ),
-                td(f"{int(b['n'])}{star}", cls="num"),
-                td(
-                    join(
-                        [
-                            fmt_value(b["max_absolute"], q.decimals),
-                            tag("span", b["max_absolute_at"], class_="dev"),
-                        ]
-                    ),
-                    cls="num",
-                ),
-                td(fmt_seconds(per_point), cls="num"),
-                td(f"{ratio:.2g}x" if np.isfinite(ratio) else "", cls="num"),
+        rows.append([tag("td", label, colspan="6", class_="group")])
+        for _, b in group.iterrows():
+            q = QUANTITY[b["quantity"]]
+            lvl = b["level"]
+            per_point = cost.loc[lvl, "core_s_per_point"] if lvl in cost.index else np.nan
+            ratio = cost.loc[lvl, "cost_vs_reference"] if lvl in cost.index else np.nan
+            ranked = d.ranking[
+                (d.ranking["quantity"] == b["quantity"]) & (d.ranking["against"] == against)
             ]
-        )
+            n_most = int(ranked["n_curves"].max())
+            rows.append(
+                [
+                    td(join([Markup(q.html), f" ({q.unit})"])),
+                    td(tag("strong", lvl)),
+                    td(
+                        fmt_value(b["mean_absolute"], q.decimals),
+                        cls="num",
+                        data_quantity=q.column,
+                        data_against=against,
+                        data_best=lvl,
+                        data_n=str(int(b["n"])),
+                    ),
+                    td(_curves_text(int(b["n"]), n_most), cls="num"),
+                    td(
+                        join(
+                            [
+                                fmt_value(b["max_absolute"], q.decimals),
+                                tag("span", b["max_absolute_at"], class_="dev"),
+                            ]
+                        ),
+                        cls="num",
+                    ),
+                    td(
+                        join(
+                            [
+                                fmt_seconds(per_point),
+                                f" ({fmt_ratio(ratio)})" if np.isfinite(ratio) else "",
+                            ]
+                        ),
+                        cls="num",
+                    ),
+                ]
+            )
     parts = [
         table(head, rows),
         tag(
             "p",
-            "Closest: the smallest mean absolute deviation (MAD) over the molecule set; n "
-            "curves entered. Cost: mean core-seconds of one point at that level"
+            "Closest: the smallest mean absolute deviation (MAD) over the curves that every "
+            'ranked level has a value for (curves; "3 of 4": some level has a value '
+            "on 4 curves, but only 3 are common to all, and only those are compared). Cost: "
+            "mean core-seconds of one point at that level"
             + (", and its ratio to the reference level's." if d.reference_level else "."),
             class_="explain",
         ),
     ]
-    if uneven:
-        parts.append(
-            tag(
-                "p",
-                "* the ranked levels were compared over different numbers of "
-                "curves (some values are missing).",
-                class_="explain",
-            )
-        )
     return join(parts)
 
 
 def _overview_table(d: ReportData) -> Markup:
-    """Quantities down, levels across: MAD from the reference level (n), then the cost."""
+    """Quantities down, levels across: MAD from the reference level over the common curves,
+    then the cost."""
     against = d.reference_level
-    stats = d.statistics[d.statistics["against"] == against]
+    stats = d.ranking[d.ranking["against"] == against]
     head = [
-        [th("")]
+        [th("quantity (MAD)"), th("curves", cls="num")]
         + [
             th(_level_head(lvl, against), cls="num ref" if lvl == against else "num")
             for lvl in d.levels
@@ -356,7 +351,11 @@ def _overview_table(d: ReportData) -> Markup:
         s = stats[stats["quantity"] == column]
         ranked = s[s["n"] > 0]
         best = ranked.loc[ranked["mean_absolute"].idxmin(), "level"] if len(ranked) else None
-        cells = [td(join([Markup(q.html), f" MAD ({q.unit})"]), cls="nowrap")]
+        n = int(ranked["n"].max()) if len(ranked) else 0
+        cells = [
+            td(join([Markup(q.html), f" ({q.unit})"])),
+            td(_curves_text(n, int(s["n_curves"].max())), cls="num"),
+        ]
         for lvl in d.levels:
             r = s[s["level"] == lvl]
             if lvl == against:
@@ -364,20 +363,13 @@ def _overview_table(d: ReportData) -> Markup:
             elif r.empty or int(r["n"].iloc[0]) == 0:
                 cells.append(td(tag("span", "no value", class_="missing"), cls="num"))
             else:
-                text = (
-                    f"{fmt_value(r['mean_absolute'].iloc[0], q.decimals)} (n={int(r['n'].iloc[0])})"
-                )
+                text = fmt_value(r["mean_absolute"].iloc[0], q.decimals)
                 cells.append(td(text, cls="num best" if lvl == best else "num"))
         rows.append(cells)
     cost = d.cost.set_index("level")
     extra = [
         ("core-s per point", lambda c: fmt_seconds(c["core_s_per_point"])),
-        (
-            "cost vs reference",
-            lambda c: (
-                f"{c['cost_vs_reference']:.2g}x" if np.isfinite(c["cost_vs_reference"]) else ""
-            ),
-        ),
+        ("cost vs reference", lambda c: fmt_ratio(c["cost_vs_reference"])),
     ]
     if not d.complete:
         extra += [
@@ -386,7 +378,7 @@ def _overview_table(d: ReportData) -> Markup:
         ]
     for label, get in extra:
         rows.append(
-            [td(label, cls="nowrap")]
+            [td(label), td("")]
             + [
                 td(get(cost.loc[lvl]), cls="num ref" if lvl == against else "num")
                 for lvl in d.levels
@@ -397,7 +389,8 @@ def _overview_table(d: ReportData) -> Markup:
             table(head, rows),
             tag(
                 "p",
-                "Bold: the smallest mean absolute deviation of each quantity.",
+                "Bold: the smallest mean absolute deviation of each quantity, over the curves "
+                "every level has (curves).",
                 class_="explain",
             ),
         ]
@@ -428,7 +421,7 @@ def _banner(d: ReportData) -> Markup:
 def _curve_sections(d: ReportData, figures) -> Markup:
     out = []
     for (molecule, scan), curve in d.curves.groupby(["molecule", "scan"], sort=False):
-        parts = [tag("h3", f"{molecule}: {scan}", id=_anchor("curve", molecule, scan))]
+        parts = []
         coords = curve["coordinates"].iloc[0] if "coordinates" in curve else ""
         for key, caption in (
             (
@@ -458,20 +451,26 @@ def _curve_sections(d: ReportData, figures) -> Markup:
         if len(flags):
             grouped: dict[str, list[str]] = {}
             for _, r in flags.iterrows():
-                grouped.setdefault(r["flag"], []).append(r["level"])
-            parts.append(tag("h4", "Warnings of the analysis"))
-            if len(d.pending[(d.pending["molecule"] == molecule) & (d.pending["scan"] == scan)]):
-                parts.append(tag("p", _PENDING_NOTE, class_="explain"))
-            parts.append(
-                tag(
-                    "ul",
-                    join(
-                        tag("li", join([tag("strong", ", ".join(lvls)), ": ", flag]))
-                        for flag, lvls in grouped.items()
-                    ),
-                    class_="flags",
+                grouped.setdefault(str(r["flag"]), []).append(r["level"])
+            items = []
+            for message, lvls in grouped.items():
+                note = d.notes[message]
+                items.append(
+                    tag(
+                        "li",
+                        join(
+                            [
+                                note_marks(d, [message]),
+                                " ",
+                                note["title"],
+                                ": ",
+                                tag("span", ", ".join(dict.fromkeys(lvls)), class_="muted"),
+                            ]
+                        ),
+                    )
                 )
-            )
+            parts.append(tag("h4", "Notes on this curve"))
+            parts.append(tag("ul", join(items), class_="flags"))
         failed = d.failed[(d.failed["molecule"] == molecule) & (d.failed["scan"] == scan)]
         if len(failed):
             parts.append(tag("h4", f"Failed points ({len(failed)})"))
@@ -496,29 +495,36 @@ def _curve_sections(d: ReportData, figures) -> Markup:
                 items.append(tag("li", join([tag("strong", lvl), f" ({len(sub)}): ", text])))
             parts.append(tag("h4", f"Pending points ({len(pending)}), not computed yet"))
             parts.append(tag("ul", join(items), class_="flags"))
-        out.append(join(parts))
+        out.append(
+            _fold(
+                esc(f"{molecule}: {scan}"),
+                join(parts),
+                anchor=_anchor("curve", molecule, scan),
+                open_=not out,
+            )
+        )
     return join(out)
 
 
 def _convergence_section(d: ReportData, figures) -> Markup:
     if d.convergence.empty:
-        return tag(
-            "p",
-            "No method was computed with two or more basis sets, so there is no "
-            "basis-set convergence to show.",
-            class_="muted",
-        )
-    parts = []
+        return Omitted("each method was computed with one basis set only")
+    out = []
     for column in dict.fromkeys(d.convergence["quantity"]):
         q = QUANTITY[column]
-        parts.append(tag("h3", join([Markup(q.html), f" ({q.unit})"])))
+        parts = []
         fig = figures.get(f"convergence:{column}")
         parts.append(
             figure(
                 fig,
-                f"{q.name} against the number of basis functions of each "
-                "molecule, one line per method; dotted: the reference level; "
-                "dashed: the user's reference value.",
+                join(
+                    [
+                        Markup(q.html),
+                        " against the number of basis functions of each molecule, one line "
+                        "per method; dotted: the reference level; dashed: the user's "
+                        "reference value.",
+                    ]
+                ),
             )
         )
         sub = d.convergence[d.convergence["quantity"] == column]
@@ -554,7 +560,15 @@ def _convergence_section(d: ReportData, figures) -> Markup:
                 ],
             )
         )
-    return join(parts)
+        out.append(
+            _fold(
+                join([Markup(q.html), f" ({q.unit})"]),
+                join(parts),
+                anchor=_anchor("convergence", column),
+                open_=not out,
+            )
+        )
+    return join(out)
 
 
 def _cost_section(d: ReportData) -> Markup:
@@ -587,7 +601,7 @@ def _cost_section(d: ReportData) -> Markup:
                     data_core_s=data_number(c["core_s"]),
                 ),
                 td(fmt_seconds(c["core_s_per_point"]), cls="num"),
-                td(f"{ratio:.2g}x" if np.isfinite(ratio) else "", cls="num"),
+                td(fmt_ratio(ratio), cls="num"),
                 td(str(int(c["points_done"])), cls="num"),
                 td(str(int(c["points_failed"])), cls="num"),
                 td(str(int(c["points_pending"])), cls="num"),
@@ -695,21 +709,33 @@ def _missing_section(d: ReportData) -> Markup:
     return join(parts)
 
 
+def _fold(heading: Markup, body, *, anchor: str, open_: bool) -> Markup:
+    """A section part that folds (``<details>``, no script): ``heading`` is always shown."""
+    return tag(
+        "details",
+        join([tag("summary", tag("h3", heading)), body]),
+        id=anchor,
+        class_="fold",
+        open="open" if open_ else None,
+    )
+
+
 def _quantities_section(d: ReportData, figures, files) -> Markup:
     ref = d.reference_level
     parts = []
-    for q in d.quantities:
-        notes = _Notes(_anchor("note", q.column))
-        values = _quantity_table(d, q, notes)
+    for i, q in enumerate(d.quantities):
         parts.append(
-            join(
-                [
-                    tag("h3", join([Markup(q.html), f" ({q.unit})"]), id=_anchor("q", q.column)),
-                    values,
-                    notes.render(),
-                    _reference_values_table(d, q),
-                    _stats_table(d, q),
-                ]
+            _fold(
+                join([Markup(q.html), f" ({q.unit})"]),
+                join(
+                    [
+                        _quantity_table(d, q),
+                        _reference_values_table(d, q),
+                        _stats_table(d, q),
+                    ]
+                ),
+                anchor=_anchor("q", q.column),
+                open_=i == 0,
             )
         )
     explain_dev = (
@@ -730,13 +756,51 @@ def _quantities_section(d: ReportData, figures, files) -> Markup:
         join(
             [
                 explain_dev,
-                "Bracketed numbers link to the warnings of the analysis that concern the number. ",
+                "Bracketed numbers link to the ",
+                tag("a", "notes", href="#notes"),
+                " (warnings of the analysis) that concern the number. Click a quantity to "
+                "fold or unfold it. ",
                 _PENDING_NOTE if not d.complete else "",
             ]
         ),
         class_="explain",
     )
     return join([explain, join(parts) or tag("p", "No quantities yet.", class_="muted")])
+
+
+def _notes_section(d: ReportData, figures, files) -> Markup:
+    if not d.notes:
+        return Omitted("the analysis raised no warning")
+    items = []
+    for message, note in d.notes.items():
+        where = note["where"]
+        shown = "; ".join(where[:12]) + (f"; and {len(where) - 12} more" if len(where) > 12 else "")
+        items.append(
+            tag(
+                "li",
+                join(
+                    [
+                        tag("strong", f"{note['title']} ({note['severity']}). "),
+                        message,
+                        tag("span", f" Applies to: {shown}.", class_="muted"),
+                    ]
+                ),
+                id=f"note-{note['n']}",
+            )
+        )
+    parts = [
+        tag(
+            "p",
+            "Every warning of the analysis once; the numbers in brackets elsewhere on the page "
+            "point here. A note puts context beside a number, a warning says a number may be "
+            "wrong or missing.",
+            class_="explain",
+        ),
+        tag("ol", join(items), class_="notes"),
+    ]
+    if not d.complete and len(d.pending):
+        parts.append(tag("p", _PENDING_NOTE, class_="explain"))
+    return join(parts)
 
 
 def _overview_section(d: ReportData, figures, files) -> Markup:
@@ -766,7 +830,9 @@ def _missing_points(d: ReportData, figures, files) -> Markup:
 
 
 #: The page's sections in order: (anchor, heading, contents-line text, builder).  A builder
-#: takes ``(data, figures, files)`` and returns the section's markup.
+#: takes ``(data, figures, files)`` and returns the section's markup, or an :class:`Omitted`
+#: reason when it has nothing to show: the section is then left out of the page and its
+#: contents line says why.
 SECTIONS = (
     (
         "overview",
@@ -787,6 +853,7 @@ SECTIONS = (
         "Curves and surfaces",
         lambda d, figures, files: _curve_sections(d, figures),
     ),
+    ("notes", "Notes: warnings of the analysis", "Notes", _notes_section),
     ("cost", "Compute cost per level", "Compute cost", lambda d, f, x: _cost_section(d)),
     ("missing", "Missing points", "Missing points", _missing_points),
     ("files", "Files", "Files", _files_section),
@@ -837,22 +904,15 @@ def render(d: ReportData, figures: dict, files: dict) -> str:
     """The HTML page (a str).  ``figures``: ``{key: object with .png and .alt}``;
     ``files``: ``{label: file name}`` of the report's other outputs."""
     title = f"pesflow report: {d.campaign}"
-    contents = tag(
-        "nav",
-        join(
-            [
-                tag("strong", "Contents"),
-                tag(
-                    "ol",
-                    join(tag("li", tag("a", line, href=f"#{a}")) for a, _, line, _ in SECTIONS),
-                ),
-            ]
-        ),
-    )
-    sections = [
-        tag("section", join([tag("h2", heading, id=anchor), build(d, figures, files)]))
-        for anchor, heading, _, build in SECTIONS
-    ]
+    lines, sections = [], []
+    for anchor, heading, line, build in SECTIONS:
+        content = build(d, figures, files)
+        if isinstance(content, Omitted):
+            lines.append(tag("li", f"{line}: left out, {content}", class_="omitted"))
+            continue
+        lines.append(tag("li", tag("a", line, href=f"#{anchor}")))
+        sections.append(tag("section", join([tag("h2", heading, id=anchor), content])))
+    contents = tag("nav", join([tag("strong", "Contents"), tag("ol", join(lines))]))
     body = join(
         [
             _header(d, title),

@@ -60,7 +60,6 @@ def _cell(row, q) -> str:
 def _quantity(d: ReportData, q) -> list[str]:
     lines = [f"### {q.name} ({q.unit})", ""]
     sub = d.values[d.values["quantity"] == q.column]
-    notes: dict[str, list[str]] = {}
     rows = []
     for (molecule, scan), curve in sub.groupby(["molecule", "scan"], sort=False):
         by_level = curve.set_index("level")
@@ -72,8 +71,7 @@ def _quantity(d: ReportData, q) -> list[str]:
             row = by_level.loc[lvl]
             text = _cell(row, q)
             for flag in dict.fromkeys(str(f) for f in row["flags"]):
-                notes.setdefault(flag, []).append(f"{lvl}, {molecule} {scan}")
-                text += f" [{list(notes).index(flag) + 1}]"
+                text += f" [{d.notes[flag]['n']}]"
             dev = fmt_dev(row["dev_reference_level"], q.decimals)
             if lvl != d.reference_level and dev:
                 text += f" (Δ {dev})"
@@ -83,10 +81,6 @@ def _quantity(d: ReportData, q) -> list[str]:
         md(lvl) + (" (reference)" if lvl == d.reference_level else "") for lvl in d.levels
     ]
     lines += _table(head, rows)
-    for n, (flag, where) in enumerate(notes.items(), start=1):
-        lines.append(f"{n}. {md(flag)} ({md('; '.join(where))})")
-    if notes:
-        lines.append("")
     refs = d.reference_values[d.reference_values["quantity"] == q.column]
     if len(refs):
         lines += ["Deviation from the reference values (level minus value):", ""]
@@ -153,7 +147,7 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
             "",
         ]
     lines += ["## Which level is closest to the reference", ""]
-    best = closest_levels(d.statistics)
+    best = closest_levels(d.ranking)
     cost = d.cost.set_index("level")
     if best.empty:
         lines += ["No deviations to rank yet.", ""]
@@ -162,7 +156,8 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
         per_point = cost.loc[b["level"], "core_s_per_point"] if b["level"] in cost.index else np.nan
         lines.append(
             f"- {q.name} ({md(q.unit)}), closest to {md(b['against'])}: **{md(b['level'])}**, "
-            f"MAD {fmt_value(b['mean_absolute'], q.decimals)} over {int(b['n'])} curve(s), "
+            f"MAD {fmt_value(b['mean_absolute'], q.decimals)} over the {int(b['n'])} curve(s) "
+            "every ranked level has, "
             f"max {fmt_value(b['max_absolute'], q.decimals)} ({md(b['max_absolute_at'])}); "
             f"{fmt_seconds(per_point)} core-s per point."
         )
@@ -173,14 +168,18 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
     if d.reference_level:
         lines += [
             f"Δ: value minus the value at the reference level {md(d.reference_level)} "
-            "(same molecule and scan); [n]: warnings of the analysis below each table.",
+            "(same molecule and scan); [n]: the warnings of the analysis under *Notes*.",
             "",
         ]
     for q in d.quantities:
         lines += _quantity(d, q)
-    lines += ["## Basis-set convergence", ""]
     if d.convergence.empty:
-        lines += ["No method was computed with two or more basis sets.", ""]
+        lines += [
+            "(Basis-set convergence: left out, each method was computed with one basis set.)",
+            "",
+        ]
+    else:
+        lines += ["## Basis-set convergence", ""]
     for column in dict.fromkeys(d.convergence["quantity"]):
         key = f"convergence:{column}"
         if key in figure_files:
@@ -198,10 +197,27 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
         flags = d.curve_flags[
             (d.curve_flags["molecule"] == molecule) & (d.curve_flags["scan"] == scan)
         ]
+        grouped: dict[str, list[str]] = {}
         for _, r in flags.iterrows():
-            lines.append(f"- warning, {md(r['level'])}: {md(r['flag'])}")
+            grouped.setdefault(str(r["flag"]), []).append(r["level"])
+        for message, lvls in grouped.items():
+            note = d.notes[message]
+            lines.append(f"- [{note['n']}] {md(note['title'])}: {md(', '.join(lvls))}")
         if len(flags):
             lines.append("")
+    if d.notes:
+        lines += [
+            "## Notes",
+            "",
+            "Every warning of the analysis once; [n] elsewhere points here.",
+            "",
+        ]
+        for message, note in d.notes.items():
+            lines.append(
+                f"{note['n']}. **{md(note['title'])}** ({note['severity']}): {md(message)} "
+                f"(applies to: {md('; '.join(note['where']))})"
+            )
+        lines.append("")
     lines += ["## Compute cost per level", ""]
     lines += _table(
         ["level", "core-s", "core-s per point", "vs reference", "done", "failed", "pending"],

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import functools
 import io
+import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -38,6 +39,8 @@ LINESTYLES = (
 )
 REFERENCE_STYLE = {"color": "#000000", "marker": "o", "linestyle": "-"}
 DPI = 120
+#: The relative energy on the axes, written as the tables write symbols (mathtext subscript).
+_E_REL = r"E − E$_{\mathregular{min}}$"
 _KCAL_TO_CM1 = HARTREE_TO_CM1 / HARTREE_TO_KCAL_MOL
 _RC = {
     "font.size": 9.5,
@@ -75,6 +78,18 @@ def level_styles(levels, reference_level=None) -> dict[str, LevelStyle]:
         )
         k += 1
     return out
+
+
+def quantity_label(q, prefix="") -> str:
+    """The axis label of a quantity of :mod:`pesflow.analysis.quantities`: its symbol as the
+    tables write it (subscripts from its HTML name, as matplotlib mathtext) and its unit.
+
+    >>> from pesflow.analysis.quantities import QUANTITY
+    >>> print(quantity_label(QUANTITY["omega_e_x_e_cm-1"], "MAD of "))
+    MAD of ω$_{\\mathregular{e}}$x$_{\\mathregular{e}}$ (cm⁻¹)
+    """
+    name = re.sub(r"<sub>(.*?)</sub>", r"$_{\\mathregular{\1}}$", q.html)
+    return f"{prefix}{name} ({q.unit})"
 
 
 def plain(text) -> str:
@@ -154,8 +169,13 @@ def _smooth(q, e, unit, periodic):
     return x, spline(x)
 
 
+def curve_figure(lines, styles, **kwargs) -> bytes:
+    """:func:`curve_plot` as PNG bytes."""
+    return _png(curve_plot(lines, styles, **kwargs))
+
+
 @_styled
-def curve_figure(lines, styles, *, xlabel, unit, title, reference_level=None) -> bytes:
+def curve_plot(lines, styles, *, xlabel, unit, title, reference_level=None) -> Figure:
     """Overlay of one scan's curves at every level (relative energies, kcal/mol and cm-1).
 
     Failed points are drawn as crosses on the bottom axis and pending points as open circles
@@ -284,14 +304,14 @@ def curve_figure(lines, styles, *, xlabel, unit, title, reference_level=None) ->
             label="pending point (top of the plot)",
         )
     ax.set_xlabel(plain(xlabel))
-    ax.set_ylabel("E − E_min (kcal/mol)")
+    ax.set_ylabel(f"{_E_REL} (kcal/mol)")
     sec = ax.secondary_yaxis(
         "right", functions=(lambda x: x * _KCAL_TO_CM1, lambda x: x / _KCAL_TO_CM1)
     )
-    sec.set_ylabel("E − E_min (cm⁻¹)")
+    sec.set_ylabel(f"{_E_REL} (cm⁻¹)")
     ax.set_title(plain(title), loc="left")
     ax.legend(loc="upper center", ncol=3, bbox_to_anchor=(0.5, -0.14))
-    return _png(fig)
+    return fig
 
 
 @dataclass
@@ -342,8 +362,13 @@ def _contour_panel(ax, q1, q2, values, levels, *, cmap, extend, fmt, linewidth, 
     return filled
 
 
+def surface_figure(grids, **kwargs) -> bytes:
+    """:func:`surface_plot` as PNG bytes."""
+    return _png(surface_plot(grids, **kwargs))
+
+
 @_styled
-def surface_figure(grids, *, xlabel, ylabel, title, reference_level=None) -> bytes:
+def surface_plot(grids, *, xlabel, ylabel, title, reference_level=None) -> Figure:
     """Contour maps of a 2-D scan, one panel per level, on one energy scale (kcal/mol).
 
     Grid points: small dots (done), red crosses (failed), open circles (pending); the
@@ -389,9 +414,9 @@ def surface_figure(grids, *, xlabel, ylabel, title, reference_level=None) -> byt
     for ax in list(axes.flat)[len(grids) :]:
         ax.set_visible(False)
     if mappable is not None:
-        fig.colorbar(mappable, ax=axes, label="E − E_min (kcal/mol)", shrink=0.9)
+        fig.colorbar(mappable, ax=axes, label=f"{_E_REL} (kcal/mol)", shrink=0.9)
     fig.suptitle(plain(title), x=0.02, ha="left")
-    return _png(fig)
+    return fig
 
 
 @_styled
@@ -457,9 +482,13 @@ class ConvergencePanel:
 
 @_styled
 def convergence_figure(panels, *, ylabel, title, method_styles) -> bytes:
-    """Quantity against the number of basis functions, one line per method, one panel per curve."""
+    """Quantity against the number of basis functions, one line per method, one panel per curve.
+
+    ``ylabel`` and ``title`` are our own labels (:func:`quantity_label`, mathtext allowed);
+    panel titles and method names are user text."""
     nrows, ncols = _grid_axes(len(panels))
-    fig = _figure(3.5 * ncols + 0.4, 2.9 * nrows + 0.7)
+    # Never narrower than its title (a single panel would clip a long quantity name).
+    fig = _figure(max(3.5 * ncols + 0.4, 6.4), 2.9 * nrows + 0.7)
     axes = fig.subplots(nrows, ncols, squeeze=False)
     for ax, panel in zip(axes.flat, panels):
         ticks = {}
@@ -500,12 +529,12 @@ def convergence_figure(panels, *, ylabel, title, method_styles) -> bytes:
         ax.set_xticks(xs, [plain(f"{ticks[n]}\n{int(n)}") for n in xs])
         ax.minorticks_off()
         ax.set_xlabel("basis set (number of basis functions)")
-        ax.set_ylabel(plain(ylabel))
+        ax.set_ylabel(ylabel)
         ax.set_title(plain(panel.title), loc="left")
         ax.legend(loc="best")
     for ax in list(axes.flat)[len(panels) :]:
         ax.set_visible(False)
-    fig.suptitle(plain(title), x=0.02, ha="left")
+    fig.suptitle(title, x=0.02, ha="left")  # our own mathtext label
     return _png(fig)
 
 
@@ -515,7 +544,8 @@ def accuracy_cost_figure(
 ) -> bytes:
     """Mean absolute deviation from the reference against cost per point, one panel per quantity.
 
-    ``panels`` is a list of ``(ylabel, [(level, core_s_per_point, mad, n)])``.
+    ``panels`` is a list of ``(ylabel, [(level, core_s_per_point, mad, n)])``; ``ylabel`` is
+    our own label (:func:`quantity_label`, mathtext allowed).
     """
     nrows, ncols = _grid_axes(len(panels))
     fig = _figure(3.1 * ncols + 0.4, 2.4 * nrows + 0.9)
@@ -528,13 +558,18 @@ def accuracy_cost_figure(
             shown[level] = ax.plot(
                 [cost], [mad], marker=st.marker, color=st.color, markersize=8, linestyle="none"
             )[0]
+            # Above the marker, on white: clear of the marker and of the reference line.
             ax.annotate(
                 f"n={n}",
                 (cost, mad),
                 textcoords="offset points",
-                xytext=(6, -3),
+                xytext=(0, 7),
+                ha="center",
+                va="bottom",
                 fontsize=7,
-                color="#555555",
+                color="#333333",
+                bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.9},
+                zorder=6,
             )
             top = max(top, mad)
         if np.isfinite(reference_cost) and reference_cost > 0:
@@ -542,10 +577,10 @@ def accuracy_cost_figure(
         ax.set_xscale("log")
         # minor-tick labels of a log axis crowd each other over a short range
         ax.xaxis.set_minor_formatter(NullFormatter())
-        ax.set_ylim(0, 1.25 * top if top > 0 else 1.0)
+        ax.set_ylim(0, 1.35 * top if top > 0 else 1.0)
         ax.margins(x=0.35)
         ax.set_xlabel("core-seconds per point")
-        ax.set_ylabel(plain(ylabel))
+        ax.set_ylabel(ylabel)
     for ax in list(axes.flat)[len(panels) :]:
         ax.set_visible(False)
     handles = list(shown.values())
@@ -591,6 +626,84 @@ def _float(row, key):
         return float("nan")
 
 
+def _scan_levels(data, molecule, scan) -> list[str]:
+    summary = data.curves
+    present = set(
+        summary.loc[(summary["molecule"] == molecule) & (summary["scan"] == scan), "level"]
+    )
+    return [lvl for lvl in data.levels if lvl in present]
+
+
+def _curve_lines(campaign, points, data, molecule, scan) -> list[CurveLine]:
+    from pesflow.report.tables import curve_arrays
+
+    kind = campaign.scans[scan].coordinates[0].kind
+    lines = []
+    # The reference level is drawn first, so that it never hides a level on top of it.
+    levels = _scan_levels(data, molecule, scan)
+    for lvl in sorted(levels, key=lambda lvl: lvl != data.reference_level):
+        q, e, status = curve_arrays(campaign, points, molecule, scan, lvl)
+        row = _summary_row(data.curves, molecule, scan, lvl)
+        lines.append(
+            CurveLine(
+                lvl,
+                q[:, 0],
+                e,
+                status,
+                q_min=_float(row, KINDS[kind].minimum_column),
+                e_min_hartree=_float(row, "e_min_hartree"),
+                periodic=periodic_curve(kind, q[:, 0]),
+            )
+        )
+    return lines
+
+
+def _surface_grids(campaign, points, data, molecule, scan) -> list[SurfaceGrid]:
+    from pesflow.report.tables import surface_grid
+
+    units = [KINDS[c.kind].unit for c in campaign.scans[scan].coordinates]
+    grids = []
+    for lvl in _scan_levels(data, molecule, scan):
+        q1, q2, e, status = surface_grid(campaign, points, molecule, scan, lvl)
+        row = _summary_row(data.curves, molecule, scan, lvl)
+        grids.append(
+            SurfaceGrid(
+                lvl,
+                q1,
+                q2,
+                e,
+                status,
+                q_min=(_float(row, f"q1_e_{units[0]}"), _float(row, f"q2_e_{units[1]}")),
+                e_min_hartree=_float(row, "e_min_hartree"),
+            )
+        )
+    return grids
+
+
+def scan_figure(campaign, points, data, molecule, scan) -> Figure:
+    """The figure of one scan of one molecule at every level, as a matplotlib Figure: the
+    curves of a 1-D scan (:func:`curve_plot`), the contour maps of a 2-D grid
+    (:func:`surface_plot`).  ``data``: the :class:`~pesflow.report.tables.ReportData`."""
+    coords = campaign.scans[scan].coordinates
+    labels = [_axis_label(c.kind, c.label) for c in coords]
+    if len(coords) == 1:
+        return curve_plot(
+            _curve_lines(campaign, points, data, molecule, scan),
+            level_styles(data.levels, data.reference_level),
+            xlabel=labels[0],
+            unit=KINDS[coords[0].kind].unit,
+            title=f"{molecule}, {scan}",
+            reference_level=data.reference_level,
+        )
+    return surface_plot(
+        _surface_grids(campaign, points, data, molecule, scan),
+        xlabel=labels[0],
+        ylabel=labels[1],
+        title=f"{molecule}, {scan}",
+        reference_level=data.reference_level,
+    )
+
+
 def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
     """Every figure of the report, keyed ``curve:<molecule>:<scan>``,
     ``surface:<molecule>:<scan>``, ``difference:<molecule>:<scan>``,
@@ -598,83 +711,30 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
 
     ``data`` is the :class:`~pesflow.report.tables.ReportData` of the same campaign.
     """
-    from pesflow.report.tables import QUANTITY, curve_arrays, surface_grid
+    from pesflow.report.tables import QUANTITY
 
     styles = level_styles(data.levels, data.reference_level)
     figures = {}
-    summary = data.curves
-    for (molecule, scan), _ in summary.groupby(["molecule", "scan"], sort=False):
-        coords = campaign.scans[scan].coordinates
-        kinds = [c.kind for c in coords]
-        levels = [
-            lvl
-            for lvl in data.levels
-            if lvl
-            in set(
-                summary.loc[(summary["molecule"] == molecule) & (summary["scan"] == scan), "level"]
-            )
-        ]
-        if len(coords) == 1:
-            lines = []
-            # The reference level is drawn first, so that it never hides a level on top of it.
-            for lvl in sorted(levels, key=lambda lvl: lvl != data.reference_level):
-                q, e, status = curve_arrays(campaign, points, molecule, scan, lvl)
-                row = _summary_row(summary, molecule, scan, lvl)
-                lines.append(
-                    CurveLine(
-                        lvl,
-                        q[:, 0],
-                        e,
-                        status,
-                        q_min=_float(row, KINDS[kinds[0]].minimum_column),
-                        e_min_hartree=_float(row, "e_min_hartree"),
-                        periodic=periodic_curve(kinds[0], q[:, 0]),
-                    )
-                )
-            name = f"curve-{molecule}-{scan}.png"
+    for (molecule, scan), _ in data.curves.groupby(["molecule", "scan"], sort=False):
+        fig = _png(scan_figure(campaign, points, data, molecule, scan))
+        if len(campaign.scans[scan].coordinates) == 1:
             figures[f"curve:{molecule}:{scan}"] = ReportFigure(
-                name,
-                curve_figure(
-                    lines,
-                    styles,
-                    xlabel=_axis_label(kinds[0], coords[0].label),
-                    unit=KINDS[kinds[0]].unit,
-                    title=f"{molecule}, {scan}",
-                    reference_level=data.reference_level,
-                ),
+                f"curve-{molecule}-{scan}.png",
+                fig,
                 f"energy curves of {molecule} along {scan} at every level",
             )
             continue
-        units = [KINDS[k].unit for k in kinds]
-        grids = []
-        for lvl in levels:
-            q1, q2, e, status = surface_grid(campaign, points, molecule, scan, lvl)
-            row = _summary_row(summary, molecule, scan, lvl)
-            grids.append(
-                SurfaceGrid(
-                    lvl,
-                    q1,
-                    q2,
-                    e,
-                    status,
-                    q_min=(_float(row, f"q1_e_{units[0]}"), _float(row, f"q2_e_{units[1]}")),
-                    e_min_hartree=_float(row, "e_min_hartree"),
-                )
-            )
-        xlabel, ylabel = (_axis_label(k, c.label) for k, c in zip(kinds, coords))
         figures[f"surface:{molecule}:{scan}"] = ReportFigure(
             f"surface-{molecule}-{scan}.png",
-            surface_figure(
-                grids,
-                xlabel=xlabel,
-                ylabel=ylabel,
-                title=f"{molecule}, {scan}",
-                reference_level=data.reference_level,
-            ),
+            fig,
             f"contour maps of {molecule} over {scan} at every level",
         )
+        grids = _surface_grids(campaign, points, data, molecule, scan)
         ref = [g for g in grids if g.level == data.reference_level]
         if ref and len(grids) > 1:
+            xlabel, ylabel = (
+                _axis_label(c.kind, c.label) for c in campaign.scans[scan].coordinates
+            )
             figures[f"difference:{molecule}:{scan}"] = ReportFigure(
                 f"difference-{molecule}-{scan}.png",
                 difference_figure(
@@ -722,8 +782,8 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
             f"convergence-{column}.png",
             convergence_figure(
                 panels,
-                ylabel=q.title,
-                title=f"{q.name}: basis-set convergence",
+                ylabel=quantity_label(q),
+                title=quantity_label(q).rsplit(" (", 1)[0] + ": basis-set convergence",
                 method_styles=method_styles,
             ),
             f"{q.name} against basis-set size",
@@ -747,7 +807,7 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
             ]
             pts = [p for p in pts if np.isfinite(p[1]) and p[1] > 0]
             if pts:
-                panels.append((f"MAD of {q.title}", pts))
+                panels.append((quantity_label(q, "MAD of "), pts))
         if panels:
             figures["accuracy"] = ReportFigure(
                 "accuracy-cost.png",

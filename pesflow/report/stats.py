@@ -132,6 +132,67 @@ def level_statistics(
     return pd.DataFrame(rows, columns=list(STATISTICS_COLUMNS))
 
 
+def common_curve_statistics(
+    deviations: pd.DataFrame,
+    *,
+    against: str,
+    deviation_column: str = "deviation",
+    levels=None,
+    exclude_level: str | None = None,
+) -> pd.DataFrame:
+    """Error statistics per quantity and level over the curves that *every* compared level has.
+
+    A level is compared on a quantity when it has at least one finite deviation of it; the
+    statistics of each compared level are taken over the curves (molecule, scan) where all
+    compared levels have one, so that the levels are ranked on the same curves.  Arguments as
+    for :func:`level_statistics`.  Returns its columns (``n`` is the number of common curves)
+    plus ``n_curves``, the curves the level has a deviation for in all.
+
+    >>> d = pd.DataFrame({"quantity": "x", "level": ["a", "a", "b"], "molecule": ["m1", "m2",
+    ...     "m1"], "scan": "s", "deviation": [0.1, 5.0, -0.2]})
+    >>> common_curve_statistics(d, against="ref")[["level", "n", "mean_absolute", "n_curves"]]
+      level  n  mean_absolute  n_curves
+    0     a  1            0.1         2
+    1     b  1            0.2         1
+    """
+    if levels is None:
+        levels = list(dict.fromkeys(deviations["level"]))
+    frames = []
+    for quantity in dict.fromkeys(deviations["quantity"]):
+        sub = deviations[
+            (deviations["quantity"] == quantity) & (deviations["level"] != exclude_level)
+        ]
+        finite = sub[np.isfinite(pd.to_numeric(sub[deviation_column], errors="coerce"))]
+        curves = {
+            lvl: set(zip(part["molecule"], part["scan"]))
+            for lvl, part in finite.groupby("level", sort=False)
+        }
+        compared = [lvl for lvl in levels if lvl in curves]
+        if not compared:
+            continue
+        common = set.intersection(*(curves[lvl] for lvl in compared))
+        keep = [(m, s) in common for m, s in zip(finite["molecule"], finite["scan"])]
+        stats = level_statistics(
+            finite[keep] if any(keep) else finite.iloc[:0].assign(quantity=quantity),
+            against=against,
+            deviation_column=deviation_column,
+            levels=compared,
+        )
+        if stats.empty:
+            stats = pd.DataFrame(
+                [
+                    {"quantity": quantity, "against": against, "level": lvl, "n": 0}
+                    for lvl in compared
+                ],
+                columns=list(STATISTICS_COLUMNS),
+            )
+        stats["n_curves"] = [len(curves[lvl]) for lvl in stats["level"]]
+        frames.append(stats)
+    if not frames:
+        return pd.DataFrame(columns=[*STATISTICS_COLUMNS, "n_curves"])
+    return pd.concat(frames, ignore_index=True)
+
+
 def closest_levels(statistics: pd.DataFrame) -> pd.DataFrame:
     """Per quantity and reference, the level with the smallest mean absolute deviation.
 

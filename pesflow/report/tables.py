@@ -10,6 +10,7 @@ concern.
 
 from __future__ import annotations
 
+import functools
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -17,11 +18,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from pesflow.analysis.flags import Flag, flags_from_records
+from pesflow.analysis.flags import FLAG_KINDS, Flag, flags_from_records
 from pesflow.analysis.quantities import QUANTITIES as ALL_QUANTITIES
 from pesflow.analysis.quantities import Quantity
 from pesflow.coordinates.kinds import KINDS, UNIT_TEXT, column_names
-from pesflow.report.stats import level_statistics
+from pesflow.report.stats import common_curve_statistics, level_statistics
 from pesflow.tables.points import status_counts
 from pesflow.tables.states import states_as_levels
 
@@ -85,6 +86,9 @@ class ReportData:
         convergence: ``molecule, scan, quantity, method, basis, nbf, cardinal, value`` for
             every method computed with two or more basis sets.
         totals: ``done``, ``failed``, ``pending`` point counts.
+        ranking: :func:`~pesflow.report.stats.common_curve_statistics` rows (against the
+            reference level and the reference values): the statistics the "closest level"
+            verdict ranks on, over the curves every compared level has.
     """
 
     campaign: str
@@ -105,10 +109,42 @@ class ReportData:
     curve_flags: pd.DataFrame
     convergence: pd.DataFrame
     totals: dict = field(default_factory=dict)
+    ranking: pd.DataFrame | None = None
 
     @property
     def complete(self) -> bool:
         return self.totals.get("failed", 0) == 0 and self.totals.get("pending", 0) == 0
+
+    @functools.cached_property
+    def notes(self) -> dict[str, dict]:
+        """Every distinct warning of the page once, numbered in the order the page first
+        shows it: ``{message: {"n", "code", "severity", "title", "where": [...]}}`` (the
+        number starts at 1; ``where``: ``"level, molecule scan"`` it applies to)."""
+        out: dict[str, dict] = {}
+
+        def add(message, code, where):
+            kind = FLAG_KINDS[code]
+            entry = out.setdefault(
+                str(message),
+                {
+                    "n": len(out) + 1,
+                    "code": code,
+                    "severity": kind.severity,
+                    "title": kind.title,
+                    "where": [],
+                },
+            )
+            if where not in entry["where"]:
+                entry["where"].append(where)
+
+        for q in self.quantities:
+            sub = self.values[self.values["quantity"] == q.column]
+            for _, row in sub.iterrows():
+                for flag in row["flags"]:
+                    add(flag, flag.code, f"{row['level']}, {row['molecule']} {row['scan']}")
+        for _, r in self.curve_flags.iterrows():
+            add(r["flag"], r["code"], f"{r['level']}, {r['molecule']} {r['scan']}")
+        return out
 
 
 def _num(row, column) -> float:
@@ -328,6 +364,31 @@ def _ordered_status(points, molecules, levels):
     return status_counts(points, molecules, levels)
 
 
+def _ranking(values, reference_values, levels, reference_level):
+    frames = []
+    if reference_level and len(values):
+        frames.append(
+            common_curve_statistics(
+                values,
+                against=reference_level,
+                deviation_column="dev_reference_level",
+                levels=levels,
+                exclude_level=reference_level,
+            )
+        )
+    if len(reference_values):
+        frames.append(
+            common_curve_statistics(reference_values, against="reference values", levels=levels)
+        )
+    frames = [f for f in frames if len(f)]
+    if not frames:
+        return common_curve_statistics(
+            pd.DataFrame(columns=["quantity", "level", "molecule", "scan", "deviation"]),
+            against="",
+        )
+    return pd.concat(frames, ignore_index=True)
+
+
 def _cost_table(points, levels, reference_level):
     rows = []
     for level in levels:
@@ -501,6 +562,7 @@ def collect(
         ),
         convergence=_convergence(values, campaign, basis_counts),
         totals={s: int(counts.get(s, 0)) for s in ("done", "failed", "pending")},
+        ranking=_ranking(values, reference_values, levels, reference_level),
     )
 
 
@@ -583,12 +645,44 @@ def fmt_dev(value, decimals: int) -> str:
 
 
 def fmt_seconds(value) -> str:
-    """Core-seconds with three significant figures (``""`` for NaN)."""
+    """Core-seconds with three significant figures (``""`` for NaN).
+
+    >>> fmt_seconds(0.84913), fmt_seconds(59.83)
+    ('0.849', '59.8')
+    """
     try:
         v = float(value)
     except (TypeError, ValueError):
         return ""
     return f"{v:.3g}" if np.isfinite(v) else ""
+
+
+def fmt_duration(seconds) -> str:
+    """A duration in the unit that reads best: seconds, minutes or hours (``""`` for NaN).
+
+    >>> fmt_duration(4.356), fmt_duration(0.2), fmt_duration(754), fmt_duration(5 * 3600 + 60)
+    ('4.4 s', '0.2 s', '13 min', '5.0 h')
+    """
+    try:
+        v = float(seconds)
+    except (TypeError, ValueError):
+        return ""
+    if not np.isfinite(v):
+        return ""
+    if v < 60:
+        return f"{v:.2g} s" if v < 10 else f"{v:.0f} s"
+    if v < 3600:
+        return f"{v / 60:.0f} min" if v >= 600 else f"{v / 60:.1f} min"
+    return f"{v / 3600:.1f} h" if v < 36000 else f"{v / 3600:.0f} h"
+
+
+def fmt_ratio(value) -> str:
+    """A cost ratio as shown in the report (``"17x"``; ``""`` for NaN)."""
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return ""
+    return f"{v:.2g}x" if np.isfinite(v) else ""
 
 
 def scan_label(curves: pd.DataFrame, molecule: str, scan: str, column: str) -> str:
