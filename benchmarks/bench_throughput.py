@@ -224,6 +224,7 @@ def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--small", action="store_true", help="a quarter-size variant")
+    parser.add_argument("--small-b", action="store_true", help="(b) only at a quarter size")
     parser.add_argument("--only", choices=("a", "b", "c"), default=None)
     parser.add_argument(
         "--tiny", action="store_true", help="also (c): campaign (a) with smaller molecules"
@@ -239,8 +240,8 @@ def main(argv=None) -> int:
     print(f"work folder: {work}")
     small = SMALL_MOLECULES[:10] if args.small else SMALL_MOLECULES
     n_a = 13 if args.small else 26
-    diatomics = DIATOMICS[:2] if args.small else DIATOMICS
-    n_b = 8 if args.small else 16
+    diatomics = DIATOMICS[:2] if args.small or args.small_b else DIATOMICS
+    n_b = 8 if args.small or args.small_b else 16
     cases = {
         "a": (
             f"(a) {len(small)} small molecules x {n_a} points, hf + mp2 / cc-pvdz",
@@ -282,11 +283,12 @@ def main(argv=None) -> int:
                 f"{res['ratio']:.2f}",
                 f"<= {res['goal']}",
                 verdict,
+                f"{res['pesflow_cpu_s'] / res['script_cpu_s']:.2f}",
             ]
         )
     print_table(
         f"benchmark 4: medians of {args.repeats}, wall seconds",
-        ["campaign", "careful script", "pesflow run", "ratio", "goal", ""],
+        ["campaign", "careful script", "pesflow run", "ratio", "goal", "", "CPU ratio"],
         rows,
     )
     rows = []

@@ -1,10 +1,11 @@
-"""Run the three benchmarks one after the other and print the final table.
+"""Run the benchmarks one after the other and print the final table.
 
-Usage: python benchmarks/run_all.py [--repeats-fresh N] [--repeats N]
+Usage: python benchmarks/run_all.py [--repeats-fresh N] [--repeats N] [--small]
 
 Each benchmark prints its own figures as it goes; the table at the end puts the headline
 figure of each beside its goal, with the peak memory (``ru_maxrss``) of the pesflow
-process tree measured in it.  About 15 minutes on 2 cores, most of it benchmark 1.
+process tree measured in it.  About 30 minutes on 2 cores (``--small``: benchmark 4 at
+a quarter size).
 """
 
 from __future__ import annotations
@@ -25,6 +26,8 @@ def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats-fresh", type=int, default=3, help="benchmark 1 repeats")
     parser.add_argument("--repeats", type=int, default=5, help="benchmarks 2 and 3 repeats")
+    parser.add_argument("--repeats-throughput", type=int, default=3, help="benchmark 4 repeats")
+    parser.add_argument("--small", action="store_true", help="benchmark 4 at a quarter size")
     args = parser.parse_args(argv)
 
     out = Path(tempfile.mkdtemp(prefix="pesflow-bench-all-"))
@@ -43,6 +46,24 @@ def main(argv=None) -> int:
         )
         results.append(json.loads(path.read_text()))
     fresh, cached, plan = results
+    path = out / "bench_throughput.json"
+    print("\n=== bench_throughput.py ===", flush=True)
+    extra = ["--small"] if args.small else []
+    subprocess.run(
+        [PYTHON, str(HERE / "bench_throughput.py"), "--repeats", str(args.repeats_throughput)]
+        + extra
+        + ["--json", str(path)],
+        check=True,
+    )
+    throughput = json.loads(path.read_text())
+    path = out / "bench_cost.json"
+    print("\n=== bench_cost.py ===", flush=True)
+    subprocess.run(
+        [PYTHON, str(HERE / "bench_cost.py"), "--computed", throughput["work"] + "/configs"]
+        + ["--json", str(path)],
+        check=True,
+    )
+    costs = json.loads(path.read_text())
 
     def verdict(ok):
         return "met" if ok else "MISSED"
@@ -70,6 +91,39 @@ def main(argv=None) -> int:
             f"{plan['maxrss_mib']:.0f}",
         ],
     ]
+    for name, res in throughput["campaigns"].items():
+        rows.append(
+            [
+                f"4{name}. {res['title']}: pesflow / careful script",
+                f"{res['ratio']:.2f} ({res['pesflow_s']:.1f} s / {res['script_s']:.1f} s)",
+                f"<= {res['goal']}",
+                verdict(res["ratio"] <= res["goal"]),
+                "-",
+            ]
+        )
+    first = throughput["campaigns"].get("a", {}).get("first_point_s")
+    if first is not None:
+        rows.append(["4. first point stored", f"{first:.2f} s", "< 5 s", verdict(first < 5), "-"])
+    for spec, res in throughput["cached"].items():
+        rows.append(
+            [
+                f"4. cached rerun of configs/{spec}",
+                f"{res['cached_s']:.2f} s",
+                "< 1.5 s",
+                verdict(res["cached_s"] < 1.5),
+                "-",
+            ]
+        )
+    for r in costs["levels"]:
+        rows.append(
+            [
+                f"5. estimate {r['config']} {r['level']}: before / after calibrating",
+                f"{r['ratio_before']:.2f} / {r['ratio_after']:.2f}",
+                "x2 / +-30 %",
+                verdict(0.5 <= r["ratio_before"] <= 2 and abs(r["ratio_after"] - 1) <= 0.3),
+                "-",
+            ]
+        )
     print_table(
         f"pesflow benchmarks, {machine()}",
         ["benchmark", "measured (median)", "goal", "", "4. peak RSS MiB"],

@@ -31,8 +31,10 @@ COMPACT_EVERY_POINTS = 2000
 #: ``pesflow plan``).
 ESTIMATE_SOURCES = {
     "stored timings": "the median time of this molecule's points already computed at this level",
-    "scaling model": "a model of how the method's cost grows with the number of basis "
-    "functions, calibrated on the timings in the store",
+    "scaling model": "a model of how the method's cost grows with the molecule's size "
+    "(basis functions, occupied orbitals, atoms), with default factors",
+    "scaling model, calibrated": "the same model with its factors calibrated on the "
+    "timings already in the store",
 }
 
 
@@ -103,9 +105,12 @@ def _timed_points(plan, store, done, sample_per_curve=20):
     sample = pts[is_done].groupby(["molecule", "level"], sort=False).head(sample_per_curve)
     if sample.empty:
         pts["wall_s"] = np.nan
+        pts["step_wall_s"] = np.nan
         return pts
-    timing = store.load(keys=set(sample["key"]), columns=("wall_s", "converged")).to_pandas()
-    timing = timing.loc[timing["converged"].astype(bool), ["key", "wall_s"]]
+    timing = store.load(
+        keys=set(sample["key"]), columns=("wall_s", "step_wall_s", "converged")
+    ).to_pandas()
+    timing = timing.loc[timing["converged"].astype(bool), ["key", "wall_s", "step_wall_s"]]
     return pts.merge(timing, on="key", how="left")
 
 
@@ -126,6 +131,9 @@ class PlanSummary:
     jobs: int
     walks: int
     store_path: Path
+    #: The whole remaining work in core-seconds, each SCF shared by several levels counted
+    #: once (the per-level estimates each include it).
+    total_core_s: float = float("nan")
 
     @property
     def points(self) -> int:
@@ -146,10 +154,17 @@ def plan_levels(campaign, plan, store, cores: int) -> PlanSummary:
     from pesflow.plan.batches import plan_jobs
 
     done = stored_keys(store)
-    nbf = cost.basis_function_counts(campaign)
-    jobs = plan_jobs(plan, done, cores=cores, size_weight=cost.size_weights(nbf))
+    sizes = cost.molecule_sizes(campaign)
+    grid_level = campaign.engine_settings().dft_grid_level
+    jobs = plan_jobs(
+        plan,
+        done,
+        cores=cores,
+        size_weight=cost.size_weights(sizes),
+        walk_seconds=cost.walk_seconds(plan, sizes),
+    )
     table = _timed_points(plan, store, done)
-    estimate = cost.estimate(table, nbf).set_index("level")
+    estimate = cost.estimate(table, sizes, grid_level=grid_level).set_index("level")
     rows = []
     for level, sub in table.groupby("level", sort=False):
         cached = int((sub["status"] != "pending").sum())
@@ -160,9 +175,7 @@ def plan_levels(campaign, plan, store, cores: int) -> PlanSummary:
                 "points": len(sub),
                 "cached": cached,
                 "to_compute": len(sub) - cached,
-                "estimate_core_s": float("nan")
-                if est is None
-                else float(est["estimate_core_h"]) * 3600.0,
+                "estimate_core_s": float("nan") if est is None else float(est["estimate_s"]),
                 "source": "" if est is None else est["source"],
                 "share": float("nan") if est is None else float(est["share"]),
             }
@@ -171,8 +184,13 @@ def plan_levels(campaign, plan, store, cores: int) -> PlanSummary:
         rows,
         columns=["level", "points", "cached", "to_compute", "estimate_core_s", "source", "share"],
     )
+    total = (
+        cost.total_seconds(estimate.reset_index(), table, sizes, grid_level)
+        if len(estimate)
+        else 0.0
+    )
     return PlanSummary(
-        levels, len(jobs), sum(len(j.batches) for j in jobs), Path(campaign.store_path)
+        levels, len(jobs), sum(len(j.batches) for j in jobs), Path(campaign.store_path), total
     )
 
 
@@ -265,7 +283,7 @@ def run_campaign(
             folder for a cluster; ``threads_per_batch``: PySCF threads of each batch job.
         retry_failed: compute again the points stored as failed.
         on_start: called as ``on_start(to_compute, jobs, cached)`` before Snakemake starts.
-        on_progress: called as ``on_progress(finished, failed, total)`` while it runs.
+        on_progress: called with a :class:`Progress` while it runs.
 
     Raises :class:`~pesflow.errors.RunError` when another run of the campaign is alive.
     Every finished point is in the store whatever happens; the result says what is left.
@@ -286,14 +304,16 @@ def run_campaign(
         target_job_s = options.target_job_s or (
             packing.TARGET_JOB_S_CLUSTER if options.profile else packing.TARGET_JOB_S_LOCAL
         )
-        weights = None
-        if not plan.points["key"].isin(done).all():
-            weights = cost.size_weights(cost.basis_function_counts(campaign))
+        weights = walk_seconds = sizes = None
+        if not plan.points["key"].isin(done).all():  # no PySCF import for a cached run
+            sizes = cost.molecule_sizes(campaign)
+            weights, walk_seconds = cost.size_weights(sizes), cost.walk_seconds(plan, sizes)
         jobs = packing.plan_jobs(
             plan,
             done,
             cores=cores or os.cpu_count() or 1,
             size_weight=weights,
+            walk_seconds=walk_seconds,
             target_job_s=target_job_s,
         )
         pending = set(plan.points["key"]) - done
@@ -305,9 +325,9 @@ def run_campaign(
             config = runner.write_tasks(
                 plan, jobs, campaign.store_path, wd, options, recompute=recompute
             )
-            outcome = runner.run_snakemake(
-                wd, config, options, lock, on_poll=_watcher(store, pending, on_progress)
-            )
+            costs = _point_costs(plan, pending, sizes or {})
+            watch = _watcher(store, pending, on_progress, wd, costs, cores or os.cpu_count() or 1)
+            outcome = runner.run_snakemake(wd, config, options, lock, on_poll=watch)
             result.interrupted, result.stalled = outcome.interrupted, outcome.stalled
             result.returncode, result.log_path = outcome.returncode, outcome.log_path
         if store.exists():
@@ -319,22 +339,79 @@ def run_campaign(
     return result
 
 
-def _watcher(store, pending, on_progress):
-    """The poll function of a run: counts the finished points, compacts now and then."""
-    seen: dict[str, bool] = {}
-    timing = {"next": 0.0, "compacted_at": 0}
+def _point_costs(plan, pending, sizes) -> dict[str, float]:
+    """Model seconds of each pending point (an SCF counted once per geometry), for the ETA."""
+    from pesflow.plan import cost
+
+    pts = plan.points[plan.points["key"].isin(pending)]
+    out = {}
+    for (mol, method, basis), sub in pts.groupby(["molecule", "method", "basis"]):
+        size = sizes.get((mol, basis), cost.Size(50))
+        cls = cost.method_class(method)
+        if cls in cost.FAMILY_COST and cls not in ("hf", "dft"):
+            seconds = cost.step_seconds(cls, size)  # its SCF is the hf point's
+        else:
+            seconds = cost.point_seconds(method, size)
+        out.update(dict.fromkeys(sub["key"], seconds))
+    return out
+
+
+def _job_progress(wd: Path) -> tuple[set[str], list[str]]:
+    """Failed keys and the walks running now, from the jobs' progress files."""
+    import json
+
+    failed, running = set(), []
+    for path in sorted((wd / "progress").glob("*.json")):
+        try:
+            content = json.loads(path.read_text())
+        except (OSError, ValueError):  # being replaced right now; next poll
+            continue
+        failed.update(content.get("failed", ()))
+        walk = content.get("running")
+        if walk:
+            running.append(f"{walk['molecule']} {', '.join(walk['levels'])}")
+    return failed, running
+
+
+@dataclass
+class Progress:
+    """What a run's progress callback gets: points ``finished`` (stored) of ``total``,
+    ``failed`` among them, ``eta_s`` (model seconds left at the rate measured so far; before
+    the first point, the model's seconds over the cores) and the walks ``running`` now."""
+
+    finished: int
+    failed: int
+    total: int
+    eta_s: float
+    running: list[str]
+
+
+def _watcher(store, pending, on_progress, wd, costs, cores):
+    """The poll function of a run: counts the stored points from the store's listing (no
+    record is read), failures and running walks from the jobs' progress files, and compacts
+    now and then."""
+    seen: set[str] = set()
+    total_work = sum(costs.values()) or float(len(pending))
+    start = time.monotonic()
+    timing = {"next": 0.0, "compacted_at": 0, "work": 0.0}
 
     def poll(force=False):
         now = time.monotonic()
         if not force and now < timing["next"]:
             return
         if store.exists():
-            new = (store.keys() & pending) - seen.keys()
-            for key in new:
-                record = store.get(key)
-                seen[key] = bool(record and record.get("converged"))
+            new = (store.keys() & pending) - seen
+            seen.update(new)
+            timing["work"] += sum(costs.get(k, 1.0) for k in new)
+        failed_keys, running = _job_progress(wd)
+        elapsed = now - start
+        left = max(total_work - timing["work"], 0.0)
+        if timing["work"] > 0 and elapsed > 5:
+            eta = left * elapsed / timing["work"]
+        else:
+            eta = left / max(1, cores)
         if on_progress is not None:
-            on_progress(len(seen), sum(1 for ok in seen.values() if not ok), len(pending))
+            on_progress(Progress(len(seen), len(failed_keys & seen), len(pending), eta, running))
         # Keep the fragment folder small during long runs so that listing it stays cheap;
         # compaction is safe while batches write (see pesflow.store.point_store).
         if len(seen) - timing["compacted_at"] >= COMPACT_EVERY_POINTS:

@@ -100,7 +100,11 @@ def cmd_check(args) -> int:
 
 
 #: Short words of the plan's ``from`` column for the sources of an estimate.
-_SOURCE_WORDS = {"stored timings": "stored", "scaling model": "model"}
+_SOURCE_WORDS = {
+    "stored timings": "stored",
+    "scaling model": "model",
+    "scaling model, calibrated": "model (calibrated)",
+}
 
 
 def cmd_plan(args) -> int:
@@ -142,12 +146,17 @@ def cmd_plan(args) -> int:
             + ".",
             markup=False,
         )
-    left = summary.estimate_core_s
+    left = summary.total_core_s
     console.print(
         f"{summary.points} points, {summary.cached} cached, "
         f"{summary.points - summary.cached} to compute in {summary.jobs} jobs "
         f"({summary.walks} walks)"
-        + (f"; about {fmt_duration(left)} of core time left." if left > 0 else "."),
+        + (
+            f"; about {fmt_duration(left)} of core time left (an SCF shared by several "
+            "levels counted once)."
+            if left > 0
+            else "."
+        ),
         markup=False,
     )
     console.print(f"store: {summary.store_path}", markup=False, soft_wrap=True)
@@ -282,6 +291,7 @@ def cmd_status(args) -> int:
 
 def cmd_run(args) -> int:
     from pesflow import api
+    from pesflow.units import format_duration as fmt_duration
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
@@ -293,6 +303,8 @@ def cmd_run(args) -> int:
             "{task.fields[done]} done, {task.fields[failed]} failed, {task.fields[left]} left"
         ),
         TimeElapsedColumn(),
+        TextColumn("ETA {task.fields[eta]}"),
+        TextColumn("{task.fields[running]}"),
         console=console,
         transient=False,
     )
@@ -301,22 +313,32 @@ def cmd_run(args) -> int:
     def on_start(to_compute, jobs, cached):
         console.print(f"{to_compute} points to compute in {jobs} jobs ({cached} cached)")
         console.print(f"store: {campaign.store_path}", markup=False, soft_wrap=True)
-        state["task"] = progress.add_task("run", total=to_compute, done=0, failed=0, left=0)
+        state["task"] = progress.add_task(
+            "run", total=to_compute, done=0, failed=0, left=0, eta="-", running=""
+        )
         progress.start()
 
-    def on_progress(finished, failed, total):
+    def on_progress(p):
+        eta = fmt_duration(p.eta_s) if p.finished < p.total else "-"
+        shown = "; ".join(p.running[:3]) + (
+            f" (+{len(p.running) - 3})" if len(p.running) > 3 else ""
+        )
         progress.update(
             state["task"],
-            completed=finished,
-            done=finished - failed,
-            failed=failed,
-            left=total - finished,
+            completed=p.finished,
+            done=p.finished - p.failed,
+            failed=p.failed,
+            left=p.total - p.finished,
+            eta=eta or "-",
+            running=escape(f"running: {shown}") if shown else "",
         )
         if not console.is_terminal and time.monotonic() - state["printed"] > 30:
             state["printed"] = time.monotonic()
             console.print(
-                f"  {finished}/{total} points, {failed} failed, "
-                f"{time.monotonic() - state['start']:.0f} s"
+                f"  {p.finished}/{p.total} points, {p.failed} failed, "
+                f"{time.monotonic() - state['start']:.0f} s, ETA {eta or '-'}"
+                + (f"; running: {shown}" if shown else ""),
+                markup=False,
             )
 
     try:

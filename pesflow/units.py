@@ -11,6 +11,8 @@ lists the exact mass of the most abundant isotope of each element.
 27.211386
 """
 
+import math
+
 import scipy.constants as _sc
 
 _pc = _sc.physical_constants
@@ -76,3 +78,22 @@ def isotope_mass(symbol):
     if z <= 0:
         raise ValueError(f"no isotope mass for {symbol!r}")
     return float(elements.COMMON_ISOTOPE_MASSES[z])
+
+
+def format_duration(seconds) -> str:
+    """A duration in the unit that reads best: seconds, minutes or hours (``""`` for NaN).
+
+    >>> [format_duration(s) for s in (4.356, 0.2, 754, 5 * 3600 + 60)]
+    ['4.4 s', '0.2 s', '13 min', '5.0 h']
+    """
+    try:
+        v = float(seconds)
+    except (TypeError, ValueError):
+        return ""
+    if not math.isfinite(v):
+        return ""
+    if v < 60:
+        return f"{v:.2g} s" if v < 10 else f"{v:.0f} s"
+    if v < 3600:
+        return f"{v / 60:.0f} min" if v >= 600 else f"{v / 60:.1f} min"
+    return f"{v / 3600:.1f} h" if v < 36000 else f"{v / 3600:.0f} h"

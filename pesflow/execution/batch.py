@@ -383,6 +383,31 @@ def run_batch(
     return marker
 
 
+def _report_progress(path: Path, job, task, walks, status) -> None:
+    """What this job is doing, for the driver's progress display (never fsynced;
+    advisory only: the store is the record of what is done)."""
+    running = None
+    if task is not None:
+        methods = sorted({m for p in task["points"] for m in p["keys"]})
+        running = {
+            "molecule": task.get("molecule"),
+            "scan": task.get("scan"),
+            "levels": [f"{m}/{task['basis']}" for m in methods],
+        }
+    content = {
+        "job_id": job["job_id"],
+        "walks": len(job["walks"]),
+        "walks_done": len(walks),
+        "running": running,
+        "failed": sorted(k for k, v in status.items() if v == "failed"),
+    }
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        atomic_write(path, json.dumps(content), fsync=False)
+    except OSError:  # the display is advisory; never fail a job on it
+        pass
+
+
 def run_job(
     job_path,
     done_path,
@@ -404,7 +429,9 @@ def run_job(
     t0 = time.time()
     counts = {"computed": 0, "skipped": 0, "failed": 0, "improved": 0}
     status, walks = {}, []
+    progress = Path(done_path).parent.parent / "progress" / f"{job['job_id']}.json"
     for task in job["walks"]:
+        _report_progress(progress, job, task, walks, status)
         marker = run_batch(task, None, threads, continuity, max_memory_mb)
         for name in counts:
             counts[name] += marker[name]
@@ -418,6 +445,7 @@ def run_job(
             marker["skipped"],
             marker["wall_s"],
         )
+    _report_progress(progress, job, None, walks, status)
     marker = {
         "batch_id": job["job_id"],
         "wall_s": time.time() - t0,

@@ -164,6 +164,8 @@ def write_tasks(plan, jobs, store_root, wd: Path, options: RunOptions, recompute
     ]
     (wd / "tasks").mkdir(parents=True, exist_ok=True)
     (wd / "done").mkdir(parents=True, exist_ok=True)
+    for stale in (wd / "progress").glob("*.json"):  # the display of an earlier run
+        stale.unlink(missing_ok=True)
     for job in jobs:
         atomic_write(
             wd / "tasks" / f"{job.job_id}.json",
@@ -237,6 +239,9 @@ def snakemake_command(wd: Path, config_path: Path, options: RunOptions) -> list[
         "--scheduler",
         "greedy",
         "--show-failed-logs",
+        # pesflow's run lock already excludes a second run; mtime triggers need no metadata
+        "--nolock",
+        "--drop-metadata",
     ]
     if options.profile:
         cmd += ["--profile", str(Path(options.profile).resolve())]

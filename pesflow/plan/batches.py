@@ -23,8 +23,10 @@ Rules (:func:`plan_jobs`):
   and are never jobs of their own;
 * a walk of a multi-state level (excited states, followed between neighbours) is
   never cut;
-* no piece of a cut walk has fewer than ``min_points`` geometries (the job then takes
-  a little more or less than its share), nor more than ``max_points``.
+* no piece of a cut walk has fewer than ``min_points`` geometries, or fewer than
+  :data:`MIN_PIECE_S` seconds of work when that takes fewer geometries (expensive
+  points are cut singly: the cold SCF at a cut is then negligible), nor more than
+  ``max_points``; a job then takes a little more or less than its share.
 
 >>> # jobs = plan_jobs(plan, done, cores=2, size_weight=cost.size_weights(nbf))
 """
@@ -41,6 +43,9 @@ from pesflow.plan.expand import Batch, _safe, make_batches
 #: Default job length for local runs, seconds of estimated work: long enough that a
 #: job's start-up (~1 s) is a few per cent of it, short enough to balance two cores.
 TARGET_JOB_S_LOCAL = 60.0
+#: A piece of a cut walk holds at least this much estimated work (and at most
+#: ``min_points`` geometries are demanded for it): cutting costs one cold SCF.
+MIN_PIECE_S = 2.0
 #: Default job length on a cluster (a profile), seconds: scheduler latency per job is
 #: tens of seconds there, so jobs are longer.
 TARGET_JOB_S_CLUSTER = 1800.0
@@ -94,7 +99,8 @@ def pack_jobs(plan, walks: list[Batch], n_jobs: int, min_points: int = 4) -> lis
 
     ``walks`` are whole walks (or chunks) in any order; they are ordered by molecule
     and basis first.  A walk is cut where a job's share is full, at the nearest
-    geometry, unless a piece would hold fewer than ``min_points`` geometries.
+    geometry, unless a piece would hold fewer than ``min_points`` geometries (fewer
+    when they hold :data:`MIN_PIECE_S` of work).
     Empty jobs are dropped; the jobs are returned heaviest first.
     """
     if not walks:
@@ -108,25 +114,22 @@ def pack_jobs(plan, walks: list[Batch], n_jobs: int, min_points: int = 4) -> lis
     for walk in walks:
         entries, index = list(walk.entries), 1
         per_point = walk.weight / len(entries)
+        # a cut costs one SCF without a neighbour's density: worth it on costly points
+        least = max(1, min(min_points, math.ceil(MIN_PIECE_S / per_point))) if per_point else 1
         # Excited states are followed from neighbour to neighbour: keep such walks whole.
         whole = any(method_info(m).n_states > 1 for _, methods in entries for m in methods)
         while entries:
             room = len(bins) * share - placed
             take = len(entries) if per_point <= 0 else int(round(room / per_point))
-            if (
-                whole
-                or len(bins) == n_jobs
-                or take >= len(entries)
-                or len(entries) - take < min_points
-            ):
+            if whole or len(bins) == n_jobs or take >= len(entries) or len(entries) - take < least:
                 take = len(entries)  # the last job, or the walk fits, or the rest is tiny
-            elif take < min_points:
+            elif take < least:
                 if bins[-1]:  # too little room for a piece: start the next job
                     bins.append([])
                     loads.append(0.0)
                     continue
-                # points so costly that min_points overfill a job: take min_points anyway
-                take = len(entries) if len(entries) - min_points < min_points else min_points
+                # points so costly that one piece overfills a job: take it anyway
+                take = len(entries) if len(entries) - least < least else least
             piece = walk if take == len(walk.entries) else _piece(walk, entries[:take], index)
             bins[-1].append(piece)
             loads[-1] += piece.weight
@@ -158,6 +161,7 @@ def plan_jobs(
     cores: int = 2,
     *,
     size_weight: dict[tuple[str, str], float] | None = None,
+    walk_seconds=None,
     target_job_s: float = TARGET_JOB_S_LOCAL,
     min_points: int = 4,
     max_points: int = 250,
@@ -167,6 +171,8 @@ def plan_jobs(
     ``size_weight`` (estimated seconds of one SCF point per (molecule, basis), from
     :func:`pesflow.plan.cost.size_weights`) makes the weights seconds; without it they
     are relative and ``target_job_s`` is read in the same relative units.
+    ``walk_seconds`` (a function of a walk, e.g. :func:`pesflow.plan.cost.walk_seconds`)
+    replaces the walks' weights by the cost model's seconds.
     """
     # whole walks (cut only above max_points geometries)
     walks = make_batches(
@@ -180,6 +186,9 @@ def plan_jobs(
     )
     if not walks:
         return []
+    if walk_seconds is not None:
+        for walk in walks:
+            walk.weight = float(walk_seconds(walk))
     total = sum(b.weight for b in walks)
     n_points = sum(len(b.entries) for b in walks)
     n_jobs = jobs_count(total, cores, max(1, n_points // min_points), target_job_s)

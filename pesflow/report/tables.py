@@ -657,25 +657,6 @@ def fmt_seconds(value) -> str:
     return f"{v:.3g}" if np.isfinite(v) else ""
 
 
-def fmt_duration(seconds) -> str:
-    """A duration in the unit that reads best: seconds, minutes or hours (``""`` for NaN).
-
-    >>> fmt_duration(4.356), fmt_duration(0.2), fmt_duration(754), fmt_duration(5 * 3600 + 60)
-    ('4.4 s', '0.2 s', '13 min', '5.0 h')
-    """
-    try:
-        v = float(seconds)
-    except (TypeError, ValueError):
-        return ""
-    if not np.isfinite(v):
-        return ""
-    if v < 60:
-        return f"{v:.2g} s" if v < 10 else f"{v:.0f} s"
-    if v < 3600:
-        return f"{v / 60:.0f} min" if v >= 600 else f"{v / 60:.1f} min"
-    return f"{v / 3600:.1f} h" if v < 36000 else f"{v / 3600:.0f} h"
-
-
 def fmt_ratio(value) -> str:
     """A cost ratio as shown in the report (``"17x"``; ``""`` for NaN)."""
     try:

@@ -76,7 +76,30 @@ def test_expensive_walks_are_cut_and_jobs_come_out_even(tmp_path):
     for j in jobs:
         for b in j.batches:
             walks = [w for w, _ in b.entries]
-            assert walks == sorted(walks) and len(walks) >= 4
+            assert walks == sorted(walks)
+
+
+def test_cheap_points_are_cut_no_finer_than_four_geometries(tmp_path):
+    # 0.3 s x 1.5 a point: four geometries are under MIN_PIECE_S (2 s), so 4 is the floor
+    plan = many_molecules(tmp_path, points=20)
+    weights = {(gs.molecule, b): 0.3 for gs in plan.geometry_sets for b in ("sto-3g", "6-31g")}
+    jobs = plan_jobs(plan, set(), cores=2, size_weight=weights, target_job_s=15.0)
+    assert len(jobs) == 12  # shares of 15 s: 9-s walks must be cut
+    assert sum(len(j.batches) for j in jobs) > 20  # some walks were cut
+    assert min(len(b.entries) for j in jobs for b in j.batches) >= 4
+
+
+def test_costly_points_are_cut_singly_so_two_walks_fill_two_cores(tmp_path):
+    # two walks of 8 points of very different cost (as CO and HF at CCSD(T)/cc-pVTZ):
+    # both cores get the same estimated work, by cutting the costly walk
+    plan = many_molecules(tmp_path, points=8)
+    pending = plan.points[~plan.points["molecule"].isin(["co", "hf"])]
+    done = set(pending["key"]) | set(plan.points.loc[plan.points["basis"] == "6-31g", "key"])
+    weights = {("co", "sto-3g"): 2.0, ("hf", "sto-3g"): 0.4}
+    jobs = plan_jobs(plan, done, cores=2, size_weight=weights)
+    assert len(jobs) == 2
+    loads = sorted(j.weight for j in jobs)
+    assert loads[1] - loads[0] <= 2 * 1.5 * 2.0  # within one costly point either side
 
 
 def test_fragments_join_other_work(tmp_path):

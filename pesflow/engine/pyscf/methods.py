@@ -19,12 +19,14 @@ _ALL_SETTINGS = ("conv_tol", "max_cycle", "reference", "frozen_core", "grid_leve
 
 #: Per wavefunction method: order in its SCF family, cost weight relative to the SCF
 #: (for batching; common practice: correlated steps cost several SCFs on small
-#: molecules), scaling exponent and default prefactor of the cost model (wall s at
+#: molecules), scaling exponent and default prefactor of a whole point (wall s at
 #: 50 basis functions, one thread; measured here on small molecules with PySCF
-#: 2.14, e.g. HF 0.034 s at 28 and 0.19 s at 60 functions for CO, about N^2.3-N^3),
-#: analytic gradients used for relaxed scans, byproducts.
+#: 2.14), analytic gradients used for relaxed scans, byproducts.  HF's law is the
+#: SCF term of the cost model (:data:`pesflow.plan.cost.SCF_COST`: N^2.5, 0.085 s at 50
+#: functions, CPU time of ten g2 molecules at four basis sets); the correlated steps have
+#: finer size terms there (:data:`pesflow.plan.cost.FAMILY_COST`).
 _WAVEFUNCTION = {
-    "hf": (0, 1.0, 3, 0.12, True, ()),
+    "hf": (0, 1.0, 2.5, 0.085, True, ()),
     "mp2": (1, 1.5, 4, 0.15, True, ()),
     "ccsd": (2, 6.0, 6, 1.5, True, ()),
     "ccsd(t)": (3, 9.0, 7, 3.0, False, ("ccsd",)),
