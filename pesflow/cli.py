@@ -109,7 +109,7 @@ _SOURCE_WORDS = {
 
 def cmd_plan(args) -> int:
     from pesflow import api
-    from pesflow.report.tables import fmt_duration
+    from pesflow.units import format_duration as fmt_duration
 
     campaign = _load(args.spec)
     plan = _plan(campaign)
