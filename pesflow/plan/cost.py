@@ -132,7 +132,8 @@ def scf_seconds(size: Size, scale: float = 1.0) -> float:
 
 def step_seconds(cls: str, size: Size, scale: float = 1.0, grid_level: int = 3) -> float:
     """Model seconds a family adds to its SCF at one point."""
-    return scale * sum(_term(c, size, grid_level) for c in FAMILY_COST[cls])
+    # A class without terms here (excited states) adds nothing: its walks are kept whole.
+    return scale * sum(_term(c, size, grid_level) for c in FAMILY_COST.get(cls, ()))
 
 
 def point_seconds(method: str, size: Size, scales=None, grid_level: int = 3) -> float:
