@@ -552,6 +552,15 @@ class Campaign:
             self.campaign, self._expanded(), self.points() if points is None else points
         )
 
+    def stationary(self, points: pd.DataFrame | None = None) -> pd.DataFrame:
+        """Every minimum, maximum and saddle per curve and level; the columns of ``pesflow
+        export --what stationary``.  ``points``: a points table already read."""
+        from pesflow.tables.stationary import stationary_table
+
+        return stationary_table(
+            self.campaign, self._expanded(), self.points() if points is None else points
+        )
+
     def report(self, out_dir=None) -> dict[str, Path]:
         """Write the report (as ``pesflow report``) into ``out_dir`` (default: the
         campaign's results folder / report); returns the paths of the files written."""
@@ -559,7 +568,14 @@ class Campaign:
 
         points = self.points()
         out = Path(out_dir) if out_dir is not None else self.results_path / "report"
-        return build_report(self.campaign, self._expanded(), points, self.summary(points), out)
+        return build_report(
+            self.campaign,
+            self._expanded(),
+            points,
+            self.summary(points),
+            out,
+            stationary=self.stationary(points),
+        )
 
     def plot(self, molecule: str, scan: str):
         """The report's figure of one scan of one molecule at every level, as a

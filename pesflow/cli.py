@@ -92,6 +92,7 @@ def cmd_check(args) -> int:
     for r in api.scans_table(campaign).itertuples(index=False):
         scans.add_row(r.scan, r.coordinates, str(r.points_per_molecule))
     console.print(scans)
+    _print_sets_and_rules(campaign)
     console.print(
         "levels: " + ", ".join(lvl.label for lvl in campaign.levels), markup=False, soft_wrap=True
     )
@@ -105,6 +106,80 @@ _SOURCE_WORDS = {
     "scaling model": "model",
     "scaling model, calibrated": "model (calibrated)",
 }
+
+
+#: How ``pesflow check`` words each kind of note about sets and rules.
+_NOTE_WORDS = {
+    "member": "built",
+    "refused": "refused",
+    "rule": "",
+    "no-match": "",
+    "left-out": "left out",
+}
+
+
+def _print_sets_and_rules(campaign) -> None:
+    """What each set member was built from (or why it was refused), what each rule found
+    in each molecule (or that it found nothing), and which molecules a scan left out."""
+    if not campaign.notes:
+        return
+    out = Table(title="sets and rules", title_justify="left")
+    for col in ("molecule", "scan", "what"):
+        out.add_column(col)
+    for note in campaign.notes:
+        out.add_row(
+            escape(note["molecule"]),
+            escape(note["scan"] or "-"),
+            f"{_NOTE_WORDS[note['what']]}: " * bool(_NOTE_WORDS[note["what"]])
+            + escape(note["text"]),
+        )
+    console.print(out)
+
+
+def _plan_table(plan, store, done, sample_per_curve=20):
+    """Points with their status and, for a sample of the stored ones, their timing.
+
+    Planning must stay cheap on a large store: it reads the timings of at most
+    ``sample_per_curve`` stored points per molecule and level, not every record.
+    """
+    import numpy as np
+
+    pts = plan.points[["key", "molecule", "level", "method", "basis"]].copy()
+    is_done = pts["key"].isin(done)
+    pts["status"] = np.where(is_done, "done", "pending")
+    sample = pts[is_done].groupby(["molecule", "level"], sort=False).head(sample_per_curve)
+    if sample.empty:
+        pts["wall_s"] = np.nan
+        return pts
+    timing = store.load(keys=set(sample["key"]), columns=("wall_s", "converged")).to_pandas()
+    timing = timing.loc[timing["converged"].astype(bool), ["key", "wall_s"]]
+    return pts.merge(timing, on="key", how="left")
+
+
+def _print_rule_scans(campaign, plan, shown=12) -> None:
+    """Per scan chosen by rule: the coordinates it expanded to (by name), its molecules and
+    its points (the first ``shown`` names; the rest counted)."""
+    rule_scans = [s for s in campaign.scans.values() if s.rule]
+    if not rule_scans:
+        return
+    counts = plan.points.groupby("scan").size()
+    out = Table(title="scans chosen by rule", title_justify="left")
+    for col in ("scan", "rule", "coordinates", "molecules", "points"):
+        out.add_column(col, justify="right" if col in ("molecules", "points") else "left")
+    for source in dict.fromkeys(s.source for s in rule_scans):
+        mine = [s for s in rule_scans if s.source == source]
+        names = [s.coordinates[0].name for s in mine]
+        listed = ", ".join(names[:shown]) + (
+            f" and {len(names) - shown} more" * (len(names) > shown)
+        )
+        out.add_row(
+            escape(source),
+            mine[0].rule,
+            f"{len(names)}: {escape(listed)}",
+            str(len({m for s in mine for m in s.molecules})),
+            str(int(sum(counts.get(s.name, 0) for s in mine))),
+        )
+    console.print(out)
 
 
 def cmd_plan(args) -> int:
@@ -139,6 +214,7 @@ def cmd_plan(args) -> int:
             "+".join(words) or "-",
         )
     console.print(out)
+    _print_rule_scans(campaign, plan)
     if sources:
         console.print(
             "estimate: core time of the points still to compute; from: "
@@ -400,6 +476,7 @@ def _stall_grace_s() -> float:
 def cmd_report(args) -> int:
     from pesflow.report import build_report, terminal_summary
     from pesflow.tables.points import points_table
+    from pesflow.tables.stationary import stationary_table
     from pesflow.tables.summary import summary_table
 
     campaign = _load(args.spec)
@@ -408,8 +485,9 @@ def cmd_report(args) -> int:
     points = points_table(plan, store)
     _report_quarantined(store)
     summary = summary_table(campaign, plan, points)
+    stationary = stationary_table(campaign, plan, points)
     out = Path(args.output) if args.output else campaign.results_path / "report"
-    paths = build_report(campaign, plan, points, summary, out)
+    paths = build_report(campaign, plan, points, summary, out, stationary=stationary)
     terminal_summary(campaign, summary, console, paths=paths, points=points)
     return EXIT_OK
 
@@ -437,6 +515,10 @@ def cmd_export(args) -> int:
         from pesflow.tables.summary import summary_table
 
         table = summary_table(campaign, plan, table)
+    elif args.what == "stationary":
+        from pesflow.tables.stationary import stationary_table
+
+        table = stationary_table(campaign, plan, table)
     out.parent.mkdir(parents=True, exist_ok=True)
     with atomic_path(out) as tmp:
         if fmt == "extxyz":
@@ -514,9 +596,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("-o", "--output", required=True, help="output file (.parquet or .csv)")
     p.add_argument(
         "--what",
-        choices=("points", "summary", "geometries"),
+        choices=("points", "summary", "stationary", "geometries"),
         default="points",
-        help="points table, per-curve summary, or every point's geometry",
+        help="points table, per-curve summary, every stationary point of every curve, or "
+        "every point's geometry",
     )
     p.add_argument(
         "--format",

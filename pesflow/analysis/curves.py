@@ -577,6 +577,7 @@ def analyze_curve(
     position_tol=None,
     energy_tol_hartree=DEFAULT_ENERGY_TOL_HARTREE,
     noise_floor_hartree=DEFAULT_NOISE_FLOOR_HARTREE,
+    checks=True,
 ):
     """Stationary points of a scanned curve, with grid checks.
 
@@ -590,6 +591,8 @@ def analyze_curve(
         curvature_rtol, position_tol, energy_tol_hartree: coarse-grid tolerances
             (:func:`grid_quality`).
         noise_floor_hartree: noise threshold (:func:`noisy_points`), default 1e-7 hartree.
+        checks: run the coarse-grid and noise checks (default True; the uncertainty
+            estimate re-analyses perturbed curves without them).
 
     Returns:
         A :class:`CurveAnalysis`.  Its ``flags`` carry: failed points, an unbracketed minimum
@@ -630,7 +633,7 @@ def analyze_curve(
             )
     if minimum is None and curve.periodic:
         flags.append(Flag("no-minimum", "no minimum found on the periodic curve"))
-    checked = [p for p in (*minima, *maxima)]
+    checked = [p for p in (*minima, *maxima)] if checks else []
     flags.extend(
         grid_quality(
             curve,
@@ -641,7 +644,9 @@ def analyze_curve(
             energy_tol_hartree=energy_tol_hartree,
         )
     )
-    bad, res = noisy_points(curve, order=min(order, 5), noise_floor_hartree=noise_floor_hartree)
+    bad, res = [], None
+    if checks:
+        bad, res = noisy_points(curve, order=min(order, 5), noise_floor_hartree=noise_floor_hartree)
     if bad:
         where = ", ".join(_fmt(q[i]) for i in bad)
         flags.append(

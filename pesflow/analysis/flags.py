@@ -59,8 +59,13 @@ FLAG_KINDS: dict[str, FlagKind] = {
         FlagKind("no-minimum", "warning", "no minimum found"),
         FlagKind("grid-coarse", "note", "grid too coarse"),
         FlagKind("noisy-points", "warning", "noisy energies"),
-        FlagKind("spin-contamination-onset", "note", "spin-contamination onset"),
+        FlagKind("spin-contamination-onset", "note", "spin-contamination onset",
+                 ("omega_e_x_e_cm-1", "morse_d_e_ev", "nu_01_cm-1", "zpe_cm-1", *_D)),
         FlagKind("scf-solution-change", "warning", "change of SCF solution"),
+        FlagKind("active-space-change", "warning", "change of active space"),
+        FlagKind("dissociation-reference", "note", "what D_e is measured against", _D),
+        FlagKind("inconsistent-active-space", "warning", "fragments' active spaces differ",
+                 _D),
         FlagKind("dft-grid-noise", "warning", "DFT integration-grid noise"),
         FlagKind("morse-fit-failed", "note", "Morse fit did not converge",
                  ("omega_e_x_e_cm-1", "morse_d_e_ev")),
@@ -82,6 +87,9 @@ FLAG_KINDS: dict[str, FlagKind] = {
         FlagKind("avoided-crossing", "note", "avoided crossing of electronic states"),
         FlagKind("state-following-gap", "warning", "states not followed across a step",
                  _STATE),
+        # Names the quantities in its message; attached to no single value.
+        FlagKind("deviation-within-uncertainty", "note",
+                 "deviation from the reference level within the uncertainty", ()),
     )
 }  # fmt: skip
 

@@ -43,6 +43,8 @@ class Quantity:
         shown: the report shows it at all (False for fit parameters and bookkeeping).
         position_of: the coordinate kind it is a position of (``"dihedral"`` for
             ``dihedral_e_degree``), else None.
+        uncertain: the summary carries its standard uncertainty, ``u_<column>`` in the same
+            unit (:mod:`pesflow.analysis.uncertainty`); False for counts.
     """
 
     column: str
@@ -56,6 +58,7 @@ class Quantity:
     headline: bool = True
     shown: bool = True
     position_of: str | None = None
+    uncertain: bool = True
 
     @property
     def title(self) -> str:
@@ -114,6 +117,14 @@ QUANTITIES: tuple[Quantity, ...] = (
     Quantity("t_v_ev", "T_v (vertical)", "T<sub>v</sub> (vertical)", "eV", 3),
     Quantity("t_e_ev", "T_e", "T<sub>e</sub>", "eV", 3),
     Quantity("t_e_cm-1", "T_e", "T<sub>e</sub>", "cm⁻¹", 0, headline=False),
+    # counterpoise scans (pesflow.analysis.interaction): the interaction curve
+    Quantity("r_min_cp_angstrom", "R_min (CP)", "R<sub>min</sub> (CP)", "Å", 4),
+    Quantity("well_depth_cp_kcal_mol", "well depth (CP)", "well depth (CP)", "kcal/mol", 3),
+    Quantity("well_depth_cp_cm-1", "well depth (CP)", "well depth (CP)", "cm⁻¹", 1,
+             headline=False),
+    Quantity("well_depth_kcal_mol", "well depth (no CP)", "well depth (no CP)", "kcal/mol", 3,
+             headline=False),
+    Quantity("bsse_at_min_kcal_mol", "BSSE at R_min", "BSSE at R<sub>min</sub>", "kcal/mol", 3),
     Quantity("zpe_cm-1", "ZPE", "ZPE", "cm⁻¹", 1, headline=False),
     Quantity("b_e_cm-1", "B_e", "B<sub>e</sub>", "cm⁻¹", 3, headline=False),
     Quantity("k_mdyn_angstrom-1", "k (stretch)", "k<sub>stretch</sub>", "mdyn/Å", 3,
@@ -141,7 +152,7 @@ QUANTITIES: tuple[Quantity, ...] = (
     Quantity("morse_rms_cm-1", "Morse fit rms", "Morse fit rms", "cm⁻¹", 1, compared=False,
              shown=False),
     Quantity("n_levels_trusted", "trusted levels", "trusted levels", "", 0, compared=False,
-             shown=False),
+             shown=False, uncertain=False),
 )  # fmt: skip
 
 #: The registry by column.
@@ -153,6 +164,19 @@ COMPARED: tuple[str, ...] = tuple(q.column for q in QUANTITIES if q.compared)
 #: Columns of a curve's summary row that the analysis fills.
 CURVE_COLUMNS: tuple[str, ...] = tuple(q.column for q in QUANTITIES if q.curve)
 
+#: Columns that carry a standard uncertainty ``u_<column>`` (same unit).
+UNCERTAIN: tuple[str, ...] = tuple(q.column for q in QUANTITIES if q.uncertain)
+
+
+def uncertainty_column(column: str) -> str:
+    """Name of the standard-uncertainty column of a quantity column (same unit).
+
+    >>> uncertainty_column("omega_e_cm-1")
+    'u_omega_e_cm-1'
+    """
+    return f"u_{column}"
+
+
 #: The barrier columns with the energy unit of :mod:`pesflow.units` each is converted to.
 BARRIER_UNITS: dict[str, str] = {
     "barrier_kcal_mol": "kcal_mol",
@@ -160,6 +184,25 @@ BARRIER_UNITS: dict[str, str] = {
     "barrier_cm-1": "cm-1",
     "barrier_ev": "ev",
 }
+
+
+def deviation(column: str, value: float, reference: float, symmetry=None) -> float:
+    """``value - reference`` of a quantity; a position of a periodic coordinate kind is
+    compared with the equivalent of ``reference`` nearest to it under ``symmetry`` (a
+    :class:`pesflow.analysis.symmetry.Symmetry` both curves have; None: only the period).
+
+    >>> from pesflow.analysis.symmetry import Symmetry
+    >>> round(deviation("dihedral_e_degree", 123.9, 240.2, Symmetry(mirror=True)), 6)
+    4.1
+    >>> deviation("r_e_angstrom", 1.5, 1.0)
+    0.5
+    """
+    from pesflow.analysis.symmetry import NONE, position_deviation
+
+    q = QUANTITY.get(column)
+    if q is None or q.position_of is None:
+        return float(value) - float(reference)
+    return position_deviation(q.position_of, float(value), float(reference), symmetry or NONE)
 
 
 def position_column(kind: str) -> str:

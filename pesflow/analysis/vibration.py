@@ -409,19 +409,16 @@ def analyze_stretch(
         level_tol_cm1=level_tol_cm1,
     )
     if levels.n_trusted < 2:
-        v = levels.n_trusted
-        # The end with the lower energy traps the levels first: extend the scan there.
-        low_start = curve.energy_hartree[0] < curve.energy_hartree[-1]
-        where = f"below {curve.q[0]:.4g} A" if low_start else f"above {curve.q[-1]:.4g} A"
-        flags.append(
-            Flag(
-                "few-vibrational-levels",
-                f"only {v} vibrational level(s) converged within the scanned range "
-                f"({curve.q[0]:.4g}-{curve.q[-1]:.4g} A, whose ends trap the levels): "
-                f"extend the scan {where} for nu_01, ZPE and anharmonicity from levels",
-                (curve.q[0] if low_start else curve.q[-1],),
-            )
-        )
+        lo, hi = curve.q[0], curve.q[-1]
+        need = range_for_levels(morse, reduced_mass_amu) if morse is not None else None
+        if need is not None and (need[0] < lo or need[1] > hi):
+            lo, hi = min(lo, need[0]), max(hi, need[1])
+        elif curve.energy_hartree[0] < curve.energy_hartree[-1]:
+            # No estimate: the end with the lower energy traps the levels first.
+            lo = curve.q[0] - 0.1 * (curve.q[-1] - curve.q[0])
+        else:
+            hi = curve.q[-1] + 0.1 * (curve.q[-1] - curve.q[0])
+        flags.append(few_levels_flag(levels.n_trusted, curve.q[0], curve.q[-1], lo, hi))
     _, wexe = levels.anharmonic_constants_cm1()
     source = "levels"
     if not np.isfinite(wexe) and levels.n_trusted == 2:
@@ -446,6 +443,69 @@ def analyze_stretch(
         omega_e_x_e_cm1=float(wexe),
         omega_e_x_e_source=source if np.isfinite(wexe) else "",
         flags=tuple(flags),
+    )
+
+
+def range_for_levels(morse, reduced_mass_amu, *, n_levels=2, level_tol_cm1=DEFAULT_LEVEL_TOL_CM1):
+    """The scan range, about, that traps ``n_levels`` trusted levels: ``(r_min, r_max)`` in A.
+
+    Estimated on the Morse fit ``morse`` (a :class:`MorseFit`): the range between its two
+    turning points at the lowest energy (found by bisection, up to 0.95 D_e) at which
+    :func:`vibrational_levels` trusts ``n_levels`` levels, plus 5 % (at most 0.95 D_e).
+    None when even 0.95 D_e does not.
+    """
+    d, a, r_e = morse.d_e_hartree, morse.a_per_angstrom, morse.r_e_angstrom
+
+    def ends(fraction):
+        root = np.sqrt(fraction)
+        return r_e - np.log1p(root) / a, r_e - np.log1p(-root) / a
+
+    def enough(fraction):
+        lo, hi = ends(fraction)
+        # A steep wall makes exp(2 kappa delta) overflow: its wall error is then zero.
+        with np.errstate(over="ignore"):
+            levels = vibrational_levels(
+                morse,
+                lo,
+                hi,
+                morse.e_min_hartree,
+                reduced_mass_amu,
+                level_tol_cm1=level_tol_cm1,
+                max_levels=n_levels + 2,
+                n_grid=256,  # enough for the few lowest levels of an estimate
+            )
+        return levels.n_trusted >= n_levels
+
+    low, high = 1e-4, 0.95
+    if not (d > 0 and a > 0) or not enough(high):
+        return None
+    for _ in range(30):
+        mid = np.sqrt(low * high)
+        low, high = (low, mid) if enough(mid) else (mid, high)
+        if high / low < 1.02:
+            break
+    # A margin of 5 % in energy: the fit is not the curve.
+    lo, hi = ends(min(1.05 * high, 0.95))
+    return float(lo), float(hi)
+
+
+def few_levels_flag(n_trusted, q_start, q_end, r_min, r_max):
+    """The ``few-vibrational-levels`` flag: the scan (``q_start``-``q_end`` A) traps only
+    ``n_trusted`` levels; extend it to ``r_min`` below and ``r_max`` above (A; an end not
+    beyond the scan needs no extension).  Its positions are ``(r_min, r_max, q_start,
+    q_end)``."""
+    parts = []
+    if r_min < q_start - 1e-9:
+        parts.append(f"below {q_start:.4g} A by about {q_start - r_min:.2g} A (to {r_min:.3g} A)")
+    if r_max > q_end + 1e-9:
+        parts.append(f"above {q_end:.4g} A by about {r_max - q_end:.2g} A (to {r_max:.3g} A)")
+    where = " and ".join(parts) or "at both ends"
+    return Flag(
+        "few-vibrational-levels",
+        f"only {n_trusted} vibrational level(s) converged within the scanned range "
+        f"({q_start:.4g}-{q_end:.4g} A, whose ends trap the levels): extend the scan {where} "
+        "for nu_01, ZPE and anharmonicity from levels",
+        (r_min, r_max, q_start, q_end),
     )
 
 

@@ -322,3 +322,186 @@ def masses_with_isotopes(atoms, overrides=None):
                 f"isotope of atom {number}: expected a mass in dalton or a label, got {value!r}"
             )
     return masses
+
+
+# ---------------------------------------------------------------------------
+# molecule sets: SMILES files, SDF files, folders or globs of XYZ files
+# ---------------------------------------------------------------------------
+
+#: Random seed of the distance-geometry embedding when the spec gives none: a fixed seed
+#: makes a SMILES-built geometry, and so every point key, the same on every run.
+DEFAULT_EMBED_SEED = 20261202
+
+
+def member_name(text):
+    """A member's name as the spec allows names: lower case, runs of other characters
+    turned into ``-`` (``"Acetic acid"`` -> ``"acetic-acid"``); ``""`` if nothing is left.
+
+    >>> member_name("Acetic acid (1)"), member_name("n_butane")
+    ('acetic-acid-1', 'n_butane')
+    """
+    return re.sub(r"[^a-z0-9_]+", "-", str(text).strip().lower()).strip("-_")
+
+
+def read_smiles_file(path):
+    """Entries of a SMILES file: ``[(line, name, smiles), ...]``.
+
+    One molecule a line: the SMILES, then (after white space) its name; blank lines and
+    lines starting with ``#`` are skipped, and a first line whose first word is
+    ``smiles`` (any case) is a header.  A line without a name is named ``line<N>``.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise ValueError(f"{path}: no such file")
+    entries = []
+    for number, line in enumerate(path.read_text(encoding="utf-8").splitlines(), start=1):
+        fields = line.split(maxsplit=1)
+        if not fields or fields[0].startswith("#"):
+            continue
+        if not entries and fields[0].lower() == "smiles":
+            continue
+        name = fields[1].strip() if len(fields) > 1 else f"line{number}"
+        entries.append((number, name, fields[0]))
+    if not entries:
+        raise ValueError(f"{path}: no SMILES in the file (one 'SMILES name' a line)")
+    return entries
+
+
+def read_sdf(path):
+    """Records of an SDF file: ``[(record, name, rdkit_mol_or_None, reason), ...]``.
+
+    ``record`` counts from 1; ``name`` is the record's title line (``record<N>`` when
+    blank); a record RDKit cannot read gives ``None`` and RDKit's reason.  Hydrogens
+    and 3-D coordinates are kept as written.
+    """
+    from rdkit import Chem, RDLogger
+
+    path = Path(path)
+    if not path.is_file():
+        raise ValueError(f"{path}: no such file")
+    RDLogger.DisableLog("rdApp.*")
+    try:
+        supplier = Chem.SDMolSupplier(str(path), removeHs=False, sanitize=True)
+        records = []
+        for index, rdmol in enumerate(supplier, start=1):
+            if rdmol is None:
+                records.append((index, f"record{index}", None, "RDKit cannot read this record"))
+                continue
+            title = rdmol.GetProp("_Name").strip() if rdmol.HasProp("_Name") else ""
+            records.append((index, title or f"record{index}", rdmol, None))
+    finally:
+        RDLogger.EnableLog("rdApp.*")
+    if not records:
+        raise ValueError(f"{path}: no molecules in the SDF file")
+    return records
+
+
+def xyz_paths(pattern, base):
+    """The XYZ/extended-XYZ files of a folder (``*.xyz`` and ``*.extxyz`` in it) or of a
+    glob pattern, relative to ``base``, sorted by name."""
+    root = Path(pattern)
+    if not root.is_absolute():
+        root = Path(base) / root
+    if root.is_dir():
+        paths = [p for p in root.iterdir() if p.suffix.lower() in (".xyz", ".extxyz")]
+    else:
+        paths = [
+            p
+            for p in Path(root.anchor or ".").glob(str(root.relative_to(root.anchor or ".")))
+            if p.is_file()
+        ]
+    if not paths:
+        raise ValueError(f"{pattern}: no .xyz or .extxyz files there")
+    return sorted(paths)
+
+
+def embed_smiles(smiles, *, seed=DEFAULT_EMBED_SEED, conformers=1, force_field="mmff"):
+    """A 3-D structure from a SMILES: ``(rdkit_mol_with_hydrogens, [positions, ...])``.
+
+    RDKit's distance-geometry embedding (ETKDG version 3) with random seed ``seed`` on one
+    thread, then a force-field clean-up of every conformer (``"mmff"``: MMFF94, or
+    ``"uff"``; MMFF falls back to UFF for elements it lacks).  ``conformers`` (default 1)
+    asks for that many starting conformers; fewer may come back when the embedding finds
+    fewer.  Positions in angstrom, atoms in the SMILES order followed by the added
+    hydrogens.  The same SMILES, seed and RDKit version give the same positions.
+
+    >>> rdmol, (xyz,) = embed_smiles("O")
+    >>> [a.GetSymbol() for a in rdmol.GetAtoms()], xyz.shape
+    (['O', 'H', 'H'], (3, 3))
+    """
+    from rdkit import Chem, RDLogger
+    from rdkit.Chem import AllChem, rdDistGeom
+
+    RDLogger.DisableLog("rdApp.*")
+    try:
+        base = Chem.MolFromSmiles(smiles)
+        if base is None:
+            raise ValueError(f"RDKit cannot read the SMILES {smiles!r}")
+        rdmol = Chem.AddHs(base)
+        params = rdDistGeom.ETKDGv3()
+        params.randomSeed = int(seed)
+        params.numThreads = 1
+        ids = list(rdDistGeom.EmbedMultipleConfs(rdmol, int(conformers), params))
+        if not ids:
+            raise ValueError(f"the embedding of {smiles!r} found no 3-D structure")
+        use_mmff = force_field == "mmff" and AllChem.MMFFHasAllMoleculeParams(rdmol)
+        if use_mmff:
+            AllChem.MMFFOptimizeMoleculeConfs(rdmol, numThreads=1, maxIters=2000)
+        elif AllChem.UFFHasAllMoleculeParams(rdmol):
+            AllChem.UFFOptimizeMoleculeConfs(rdmol, numThreads=1, maxIters=2000)
+        positions = [np.array(rdmol.GetConformer(i).GetPositions(), dtype=float) for i in ids]
+    finally:
+        RDLogger.EnableLog("rdApp.*")
+    return rdmol, positions
+
+
+def structure_charge_multiplicity(rdmol):
+    """Charge and multiplicity written in a structure: the sum of the formal charges, and
+    one more than the number of radical electrons (unpaired electrons taken parallel).
+
+    >>> from rdkit import Chem
+    >>> structure_charge_multiplicity(Chem.MolFromSmiles("[CH3]")), \\
+    ...     structure_charge_multiplicity(Chem.MolFromSmiles("C[NH3+]"))
+    ((0, 2), (1, 1))
+    """
+    charge = sum(a.GetFormalCharge() for a in rdmol.GetAtoms())
+    radicals = sum(a.GetNumRadicalElectrons() for a in rdmol.GetAtoms())
+    return int(charge), int(radicals) + 1
+
+
+def atoms_from_rdkit(rdmol, positions=None):
+    """An :class:`ase.Atoms` of ``rdmol``'s elements at ``positions`` (angstrom; default
+    its first conformer)."""
+    if positions is None:
+        positions = rdmol.GetConformer().GetPositions()
+    return Atoms(
+        symbols=[a.GetSymbol() for a in rdmol.GetAtoms()],
+        positions=np.asarray(positions, dtype=float),
+    )
+
+
+def perceive_bonds(atoms, charge=0):
+    """An RDKit molecule with bonds and bond orders perceived from a geometry
+    (:func:`rdkit.Chem.rdDetermineBonds.DetermineBonds`: connectivity from covalent
+    radii, bond orders by the xyz2mol method); ``ValueError`` when no bond orders fit
+    the total ``charge``."""
+    from rdkit import Chem, RDLogger
+    from rdkit.Chem import rdDetermineBonds
+
+    block = f"{len(atoms)}\n\n" + "\n".join(
+        f"{s} {x:.10f} {y:.10f} {z:.10f}"
+        for s, (x, y, z) in zip(atoms.get_chemical_symbols(), atoms.positions)
+    )
+    RDLogger.DisableLog("rdApp.*")
+    try:
+        rdmol = Chem.MolFromXYZBlock(block)
+        try:
+            rdDetermineBonds.DetermineBonds(rdmol, charge=int(charge))
+        except Exception as exc:  # RDKit raises ValueError or RuntimeError here
+            raise ValueError(
+                f"cannot perceive bond orders from the geometry with charge {int(charge)} "
+                f"({' '.join(str(exc).split()) or type(exc).__name__})"
+            ) from None
+    finally:
+        RDLogger.EnableLog("rdApp.*")
+    return rdmol

@@ -16,10 +16,15 @@ from pesflow.coordinates.kinds import KINDS
 
 @dataclass(frozen=True)
 class Level:
-    """A level of theory; ``basis`` is ``""`` for a level with a built-in basis."""
+    """A level of theory; ``basis`` is ``""`` for a level with a built-in basis.
+
+    A derived level (complete-basis-set extrapolation) has ``members``: the computed
+    levels its energies are made from (``basis`` is then e.g. ``cbs(cc-pv[tq]z)``); the
+    plan computes no point of its own for it (README "CBS levels")."""
 
     method: str
     basis: str
+    members: tuple[Level, ...] = ()
 
     @property
     def label(self) -> str:
@@ -37,6 +42,22 @@ class Molecule:
     multiplicity: int
     masses_amu: np.ndarray
     fragments: list[dict] = field(default_factory=list)
+    #: the set (molecule entry) this molecule belongs to, "" for a single molecule
+    set_name: str = ""
+    #: the member's name without its conformer (``<set>/<name>``); the name by default
+    member: str = ""
+    #: conformer number (1-based) when the member has several, else 0
+    conformer: int = 0
+    #: what was built, for ``pesflow check`` (source, embedding, force field)
+    built: str = ""
+    #: RDKit molecule with explicit hydrogens and bond orders (rules), when known
+    rdkit: Any = None
+    #: a member of a set that may be left out (with the reason) instead of stopping
+    lenient: bool = False
+
+    def __post_init__(self):
+        if not self.member:
+            self.member = self.name
 
     @property
     def symbols(self) -> tuple[str, ...]:
@@ -50,6 +71,8 @@ class Coordinate:
     kind: str
     atoms: tuple[int, ...]
     values: np.ndarray
+    #: readable name of a coordinate chosen by rule (``C1-C2-C3-C4``), else ""
+    name: str = ""
 
     @property
     def unit(self) -> str:
@@ -57,7 +80,8 @@ class Coordinate:
 
     @property
     def label(self) -> str:
-        return f"{KINDS[self.kind].stem}({'-'.join(str(i + 1) for i in self.atoms)})"
+        atoms = self.name or "-".join(str(i + 1) for i in self.atoms)
+        return f"{KINDS[self.kind].stem}({atoms})"
 
 
 @dataclass
@@ -73,6 +97,16 @@ class Scan:
     levels: list[Level] = field(default_factory=list)
     #: optimise every other degree of freedom at each scan value
     relax: bool = False
+    #: the spec's scan this one comes from (a rule scan expands into one per coordinate)
+    source: str = ""
+    #: the rule that chose the coordinate, "" for atoms given by number
+    rule: str = ""
+    #: each fragment also computed in the complex's full basis (ghost atoms) at each point
+    counterpoise: bool = False
+
+    def __post_init__(self):
+        if not self.source:
+            self.source = self.name
 
     def grid(self) -> np.ndarray:
         """All scan points in walk order, shape (m, k): a serpentine walk for grids,
@@ -107,6 +141,12 @@ class Campaign:
     molecules: dict[str, Molecule]
     scans: dict[str, Scan]
     levels: list[Level]
+    #: molecule entry -> the molecules it resolved to (a set's members and conformers)
+    groups: dict[str, list[str]] = field(default_factory=dict)
+    #: what ``pesflow check`` reports about sets and rules: dicts with ``what``
+    #: (``member``, ``refused``, ``rule``, ``no-match``, ``left-out``), ``entry``,
+    #: ``molecule``, ``scan`` and ``text``
+    notes: list[dict] = field(default_factory=list)
 
     @property
     def name(self) -> str:
@@ -125,6 +165,8 @@ class Campaign:
         from pesflow.engine import EngineSettings
 
         e = self.spec.engine
+        if scan is not None and scan not in self.spec.scans and scan in self.scans:
+            scan = self.scans[scan].source
         if scan is not None and self.spec.scans[scan].engine is not None:
             own = self.spec.scans[scan].engine
             e = e.model_copy(update={k: getattr(own, k) for k in own.model_fields_set})

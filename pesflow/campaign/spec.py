@@ -35,6 +35,7 @@ from pydantic import (
 )
 from pydantic_core import PydanticCustomError
 
+from pesflow.campaign.rules import NEEDS_SMARTS, RULES, check_smarts
 from pesflow.coordinates.kinds import KINDS
 
 NAME_PATTERN = r"^[a-z0-9][a-z0-9_-]*$"
@@ -104,40 +105,139 @@ class FragmentSpec(_Strict):
     multiplicity: int | None = Field(default=None, ge=1)
 
 
+#: Molecule sources that stand for a set of molecules (members named ``<entry>/<name>``).
+SET_SOURCES = ("smiles_file", "sdf", "xyz_files")
+#: Every molecule source; a molecule entry gives exactly one.
+SOURCES = ("builtin", "file", "xyz", "smiles", *SET_SOURCES)
+
+
 class MoleculeSpec(_Strict):
-    """One molecule: exactly one of ``builtin``, ``file`` or ``xyz``."""
+    """One molecule, or a set of molecules: exactly one source."""
 
     builtin: str | None = None
     file: str | None = None
     xyz: str | None = None
-    charge: int = 0
+    #: a SMILES, built in 3-D with RDKit (ETKDG embedding, force-field clean-up)
+    smiles: str | None = None
+    #: a set: a SMILES file, one 'SMILES name' a line
+    smiles_file: str | None = None
+    #: a set: an SDF file, one member per record (named by its title line)
+    sdf: str | None = None
+    #: a set: a folder of .xyz/.extxyz files, or a glob pattern (named by file stem)
+    xyz_files: str | None = None
+    #: total charge; from a structure's formal charges when not given (else 0)
+    charge: int | None = None
+    #: 2S + 1; from a structure's radical electrons when not given (else the lowest)
     multiplicity: int | None = Field(default=None, ge=1)
     isotopes: dict[int, float | str] | None = None
     fragments: list[FragmentSpec] | None = None
+    #: starting conformers per molecule built from SMILES (RDKit), each scanned
+    conformers: int = Field(default=1, ge=1, le=50)
+    #: random seed of the embedding (a fixed seed keeps geometries and keys the same)
+    seed: int | None = Field(default=None, ge=0, lt=2**31)
+    #: force-field clean-up after the embedding
+    force_field: Literal["mmff", "uff"] = "mmff"
+    #: a set: stop at the first member that cannot be built or scanned
+    strict: bool = False
 
     @model_validator(mode="after")
     def _one_source(self):
-        given = [k for k in ("builtin", "file", "xyz") if getattr(self, k) is not None]
+        given = [k for k in SOURCES if getattr(self, k) is not None]
         if len(given) != 1:
             raise PydanticCustomError(
                 "molecule_source",
-                "give exactly one of builtin, file or xyz (got {given})",
-                {"given": ", ".join(given) or "none"},
+                "give exactly one of {allowed} (got {given})",
+                {
+                    "allowed": ", ".join(SOURCES[:-1]) + " or " + SOURCES[-1],
+                    "given": ", ".join(given) or "none",
+                },
+            )
+        if given[0] in SET_SOURCES and (self.isotopes or self.fragments):
+            raise PydanticCustomError(
+                "molecule_source",
+                "isotopes and fragments name atoms of one molecule; give them on a single "
+                "molecule, not on a set ({source})",
+                {"source": given[0]},
+            )
+        built = ("smiles", "smiles_file")
+        if given[0] not in built:
+            for key, default in (("conformers", 1), ("seed", None), ("force_field", "mmff")):
+                if getattr(self, key) != default:
+                    raise PydanticCustomError(
+                        "molecule_source",
+                        "{key} applies to molecules built from SMILES (smiles, smiles_file), "
+                        "not to {source}",
+                        {"key": key, "source": given[0]},
+                    )
+        if self.strict and given[0] not in SET_SOURCES:
+            raise PydanticCustomError(
+                "molecule_source",
+                "strict applies to sets ({sets}), not to {source}",
+                {"sets": ", ".join(SET_SOURCES), "source": given[0]},
             )
         return self
+
+    @property
+    def source(self) -> str:
+        return next(k for k in SOURCES if getattr(self, k) is not None)
 
 
 class CoordinateSpec(_Strict):
     """One scan coordinate: ``from``/``to`` with ``points`` or ``step``, or ``values``."""
 
     type: Literal[tuple(KINDS)]  # type: ignore[valid-type]  # the coordinate-kind registry
-    atoms: list[int]
+    atoms: list[int] | None = None
     from_: FiniteFloat | None = Field(default=None, alias="from")
     to: FiniteFloat | None = None
     points: int | None = None
     step: FiniteFloat | None = None
     values: list[FiniteFloat] | None = None
     move: list[int] | None = None
+    #: choose the atoms by rule in each molecule instead (pesflow.campaign.rules)
+    rule: Literal[tuple(RULES)] | None = None  # type: ignore[valid-type]
+    #: the SMARTS pattern of the rules smarts and angles-at
+    smarts: str | None = None
+    #: rotatable-torsions: also turn symmetric tops (CH3, CF3, NH3+)
+    methyl_rotors: bool = False
+
+    @model_validator(mode="after")
+    def _atoms_or_rule(self):
+        if (self.atoms is None) == (self.rule is None):
+            raise PydanticCustomError(
+                "range", "give either atoms (numbered from 1) or a rule, not both", {}
+            )
+        if self.rule is None:
+            for key in ("smarts", "methyl_rotors"):
+                if getattr(self, key) not in (None, False):
+                    raise PydanticCustomError(
+                        "range", "{key} goes with a rule, not with atoms", {"key": key}
+                    )
+            return self
+        if self.type not in RULES[self.rule]:
+            raise PydanticCustomError(
+                "range",
+                "rule {rule} makes {kinds} coordinates, not {type}",
+                {"rule": self.rule, "kinds": " or ".join(RULES[self.rule]), "type": self.type},
+            )
+        if (self.smarts is not None) != (self.rule in NEEDS_SMARTS):
+            raise PydanticCustomError(
+                "range",
+                "give smarts with the rules {needs}, and only with them",
+                {"needs": ", ".join(NEEDS_SMARTS)},
+            )
+        if self.methyl_rotors and self.rule != "rotatable-torsions":
+            raise PydanticCustomError(
+                "range", "methyl_rotors goes with the rule rotatable-torsions", {}
+            )
+        if self.smarts is not None:
+            problem = check_smarts(self.rule, self.type, self.smarts)
+            if problem:
+                raise PydanticCustomError("range", "{problem}", {"problem": problem})
+        if self.move is not None:
+            raise PydanticCustomError(
+                "range", "move names atoms of one molecule; it cannot go with a rule", {}
+            )
+        return self
 
     @field_validator("points", mode="before")
     @classmethod
@@ -221,6 +321,26 @@ class ScanSpec(_Strict):
     relax: bool = False
     #: engine settings of this scan only (over the campaign's), e.g. broken_symmetry
     engine: EngineSpec | None = None
+    #: counterpoise-corrected interaction curve of a complex of two fragments (README
+    #: "Counterpoise"): each fragment is also computed in the complex's basis
+    counterpoise: bool = False
+
+    @model_validator(mode="after")
+    def _rule_alone(self):
+        if len(self.coordinates) > 1 and any(c.rule for c in self.coordinates):
+            raise PydanticCustomError(
+                "range",
+                "a coordinate chosen by rule is scanned alone (one coordinate per scan); "
+                "give the 2-D grid's atoms by number",
+                {},
+            )
+        return self
+
+
+class ActiveLabelsSpec(_Strict):
+    """An active space chosen by PySCF's AVAS from atomic-orbital labels."""
+
+    ao_labels: list[str] = Field(min_length=1)
 
 
 class LevelSpec(_Strict):
@@ -228,24 +348,53 @@ class LevelSpec(_Strict):
     level (``gfn2-xtb``, ``gfn1-xtb``) has its own basis and is given without one.
 
     Level options (:data:`pesflow.engine.LEVEL_OPTIONS`) apply to every method listed
-    that takes them and become part of its name (``tda-b3lyp(singlets=4)``); a method
-    that takes none refuses them."""
+    that takes them and become part of its name (``casscf(6,6)``,
+    ``tda-b3lyp(singlets=4)``); a method that takes none refuses them.  ``states`` means
+    the roots averaged in the CASSCF for casscf/nevpt2, and the excited states above the
+    ground state for the excited-state methods."""
 
     method: str | list[str]
     basis: str | list[str] | None = None
-    #: excited-state methods: excited states computed above the ground state (default 3)
+    #: active space of casscf/nevpt2: [electrons, orbitals] or {ao_labels: [...]}
+    active: list[int] | ActiveLabelsSpec | None = None
+    #: casscf/nevpt2: roots averaged in the CASSCF (state averaging); excited-state
+    #: methods: excited states computed above the ground state (default 3)
     states: int | None = Field(default=None, ge=1)
+    #: casscf/nevpt2: weights of the averaged roots (default equal)
+    weights: list[FiniteFloat] | None = None
     #: excited-state methods: spin of the excited states (closed-shell reference)
     spin: Literal["singlet", "triplet"] | None = None
     #: excited-state methods: number states by energy at each point, or follow each
     #: state's character along the walk
     follow: Literal["energy", "character"] | None = None
 
+    @field_validator("active", mode="before")
+    @classmethod
+    def _active_labels(cls, value):
+        # A mapping is the AO-label form: name its unknown keys (not "not a list").
+        if isinstance(value, dict):
+            for key in value:
+                if key != "ao_labels":
+                    raise PydanticCustomError(
+                        "unknown_key",
+                        "unknown key '{key}'{hint}; allowed: ao_labels",
+                        {"key": str(key), "hint": did_you_mean(key, ["ao_labels"])},
+                    )
+        return value
+
     def options(self) -> dict:
-        """The level options given, by name (as :func:`pesflow.engine.level_method`
-        takes them)."""
-        names = ("states", "spin", "follow")
-        return {n: getattr(self, n) for n in names if getattr(self, n) is not None}
+        """The level options given, by name (as :func:`pesflow.engine.level_method` takes
+        them)."""
+        out = {}
+        for name in ("active", "states", "weights", "spin", "follow"):
+            value = getattr(self, name)
+            if value is not None:
+                out[name] = value.model_dump() if isinstance(value, BaseModel) else value
+        return out
+
+    #: ``cbs``: one derived level per method, extrapolated to the complete basis set from
+    #: the two or three correlation-consistent basis sets listed (README "CBS levels")
+    extrapolate: Literal["cbs"] | None = None
 
     def pairs(self) -> list[tuple[str, str | None]]:
         methods = [self.method] if isinstance(self.method, str) else list(self.method)

@@ -60,10 +60,16 @@ WAVEFUNCTION_METHODS = ("hf", "mp2", "ccsd", "ccsd(t)")
 #: electronic states per point, one record each (:func:`state_record`).
 EXCITED_METHODS = ("tda-<functional>", "tddft-<functional>", "cis", "tdhf", "eom-ccsd")
 
+#: Multireference methods (PySCF); each needs an active space as a level option.
+MULTIREFERENCE_METHODS = ("casscf", "nevpt2")
+
 #: Level options: spec keys of a level beside method and basis.  An engine folds the
 #: ones a method takes (:attr:`MethodInfo.options`) into its canonical name
 #: (:func:`level_method`), so that the name keys and labels the level everywhere.
-LEVEL_OPTIONS = ("states", "spin", "follow")
+#: ``states`` means two things by method: the number of averaged roots of a
+#: multireference level (casscf/nevpt2, with ``weights``) and the number of excited
+#: states above the ground state of an excited-state level (with ``spin``, ``follow``).
+LEVEL_OPTIONS = ("active", "states", "weights", "spin", "follow")
 
 #: Joins a multi-state method's name and a state index in the name of that state's
 #: record (``tda-b3lyp(singlets=3)#2``); state 0 is the ground state.
@@ -102,7 +108,8 @@ _METHOD_HINT = (
     f"use one of {', '.join(WAVEFUNCTION_METHODS)} "
     "or a DFT functional known to PySCF's libxc (e.g. b3lyp, pbe0), "
     f"or a tight-binding level ({', '.join(TIGHT_BINDING_METHODS)}), "
-    f"or an excited-state method ({', '.join(EXCITED_METHODS)})"
+    f"or an excited-state method ({', '.join(EXCITED_METHODS)}), "
+    f"or a multireference level ({', '.join(MULTIREFERENCE_METHODS)}, with an active space)"
 )
 
 
@@ -115,6 +122,9 @@ class Geometry:
         positions_angstrom: ``(n, 3)`` Cartesian coordinates in angstrom.
         charge: total charge in units of e; default 0.
         multiplicity: 2S+1; default 1 (singlet).
+        ghosts: 0-based atoms that are ghosts: their basis functions stay, their nuclei
+            and electrons do not (counterpoise correction, Boys & Bernardi, Mol. Phys.
+            19, 553 (1970)); charge and multiplicity are those of the real atoms.
 
     >>> g = Geometry(("H", "H"), [[0, 0, 0], [0, 0, 0.74]])
     >>> g.positions_angstrom.shape, g.spin
@@ -125,9 +135,17 @@ class Geometry:
     positions_angstrom: np.ndarray
     charge: int = 0
     multiplicity: int = 1
+    ghosts: tuple[int, ...] = ()
 
     def __post_init__(self):
         symbols = tuple(str(s) for s in self.symbols)
+        ghosts = tuple(sorted({int(a) for a in self.ghosts}))
+        in_range = not ghosts or (ghosts[0] >= 0 and ghosts[-1] < len(symbols))
+        if not in_range or len(ghosts) >= len(symbols) > 0:
+            raise EngineSetupError(
+                f"ghosts {list(ghosts)} must be atoms 0-{len(symbols) - 1}, not all of them"
+            )
+        object.__setattr__(self, "ghosts", ghosts)
         positions = np.array(self.positions_angstrom, dtype=float)
         if positions.shape != (len(symbols), 3):
             raise EngineSetupError(
@@ -424,10 +442,13 @@ def level_method(method: str, options: dict | None = None) -> str:
 
     ``options`` maps names of :data:`LEVEL_OPTIONS` to the spec's values (absent ones
     left out).  The method's engine makes the name; raises EngineSetupError (one line)
-    for an unknown method, options it does not take, or wrong values.
+    for an unknown method, options it does not take, wrong values, or a method that
+    needs options and got none.
 
     >>> level_method("TDA-B3LYP", {"states": 4}), level_method("hf")
     ('tda-b3lyp(singlets=4)', 'hf')
+    >>> level_method("CASSCF", {"active": [6, 6]})
+    'casscf(6,6)'
     """
     info = method_info(method)
     options = {k: v for k, v in (options or {}).items() if v is not None}

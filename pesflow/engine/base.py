@@ -53,10 +53,16 @@ class MethodInfo:
             method stores one record per state (the ground state and ``n_states - 1``
             excited states), named by :func:`pesflow.engine.state_record`.
         options: the level options the method takes (spec keys beside method and
-            basis, e.g. ``states``, ``spin``); the engine folds them into the
-            canonical name (:meth:`Engine.method_with_options`).
+            basis: ``active``, ``states``, ``weights`` for casscf/nevpt2, where
+            ``states`` is the averaged roots; ``states``, ``spin``, ``follow`` for the
+            excited-state methods, where ``states`` is the excited states); the engine
+            folds them into the canonical name (:meth:`Engine.method_with_options`).
         follow_states: a multi-state method whose states are numbered by character
             along a walk (followed by overlaps between neighbours), not by energy.
+        fragments: how the dissociation energy of its curves is referenced:
+            ``separate`` (each fragment computed on its own at this level) or
+            ``asymptote`` (no fragment has a consistent counterpart of this level, e.g.
+            an active space given by counts: D_e from the curve's last point).
     """
 
     name: str
@@ -74,6 +80,7 @@ class MethodInfo:
     n_states: int = 1
     options: tuple[str, ...] = ()
     follow_states: bool = False
+    fragments: str = "separate"
 
 
 class Engine:
@@ -102,7 +109,8 @@ class Engine:
 
     def method_with_options(self, method: str, options: dict) -> str:
         """The canonical name of ``method`` (canonical already) with level options folded
-        in (e.g. ``tda-b3lyp(singlets=4)``); this name is what plan, keys and walks use.
+        in (e.g. ``casscf(6,6)``, ``tda-b3lyp(singlets=4)``); this name is what plan, keys
+        and walks use.
         Raises EngineSetupError for options the method does not take or wrong values.
         By default a method takes none."""
         if options:

@@ -11,8 +11,9 @@ only the point in flight; the rerun computes only what is missing.  A point
 that fails is recorded with its error text; the batch goes on.
 
 Continuity: after the forward walk, points whose energy jumps against their
-neighbours (or whose <S^2> changes abruptly) are computed again walking the
-other way, each from its right-hand neighbour's density, and the lower of the
+neighbours (or whose <S^2> changes abruptly, or whose active space changed
+character, as the engine says in ``extra["character_change"]``) are computed again
+walking the other way, each from its right-hand neighbour's density, and the lower of the
 two solutions is kept (the record's ``attempts`` says so).
 
 The done marker written at the end lists the batch's points and their status;
@@ -140,12 +141,15 @@ class _Walk:
             positions_angstrom=np.asarray(point["positions"], dtype=float),
             charge=self.task["charge"],
             multiplicity=self.task["multiplicity"],
+            ghosts=tuple(self.task.get("ghosts", ())),
         )
 
     def settings_key(self, method):
         key = self.settings.key_dict(method)
         if self.relax:
             key = {**key, "relax": self.relax["key"]}
+        if self.task.get("ghosts"):
+            key = {**key, "ghosts": list(self.task["ghosts"])}
         return key
 
     def relax_point(self, point, method):
@@ -231,7 +235,11 @@ def _backward_sweep(walk: _Walk, run: list[_Computed], points, status) -> int:
     leads = [c.lead() for c in run]
     energies = np.array([r.energy_hartree if r is not None else np.nan for r in leads])
     s2 = np.array([r.s2 if r is not None else np.nan for r in leads])
-    span = segment(suspect_points(energies, s2), len(run))
+    # The engine's own judgement of a change of character (a multireference walk's
+    # active space), measured against the point before in walk order.
+    changes = [bool(r is not None and r.extra.get("character_change")) for r in leads]
+    changes[0] = False  # measured against a point outside this run
+    span = segment(suspect_points(energies, s2, changes=changes), len(run))
     if span is None:
         return 0
     lo, hi = span

@@ -115,6 +115,7 @@ def task_dict(plan, batch, store_root, recompute=()) -> dict:
         "symbols": list(gs.symbols),
         "charge": gs.charge,
         "multiplicity": gs.multiplicity,
+        "ghosts": list(gs.ghosts),
         "recompute": sorted(keys & set(recompute)),
         "relax": None
         if not gs.relax

@@ -104,6 +104,11 @@ def method_class(method: str) -> str:
     return method_info(method).cost_class
 
 
+def _has_own_law(cls: str) -> bool:
+    """Whether a cost class has no :data:`FAMILY_COST` terms and uses its engine's law."""
+    return cls not in FAMILY_COST and cls != "dft"
+
+
 def _engine_seconds(method: str, size: Size, scale: float = 1.0) -> float:
     """The engine's own cost law for a class without :data:`FAMILY_COST` terms:
     ``a * (n / 50)^p`` (:attr:`~pesflow.engine.MethodInfo.cost_prefactor_s`,
@@ -143,7 +148,7 @@ def point_seconds(method: str, size: Size, scales=None, grid_level: int = 3) -> 
     """
     scales = scales or {}
     cls = method_class(method)
-    if cls not in FAMILY_COST and cls != "dft":
+    if _has_own_law(cls):
         return _engine_seconds(method, size, scales.get(cls, 1.0))
     return scf_seconds(size, scales.get("scf", 1.0)) + step_seconds(
         cls, size, scales.get(cls, 1.0), grid_level
@@ -161,7 +166,7 @@ def used_pairs(campaign) -> list[tuple[str, str]]:
     for scan in campaign.scans.values():
         for molecule in scan.molecules:
             for level in scan.levels:
-                if (molecule, level.basis) not in pairs:
+                if not level.members and (molecule, level.basis) not in pairs:
                     pairs.append((molecule, level.basis))
     return pairs
 
@@ -246,7 +251,7 @@ def calibrate(timed: pd.DataFrame) -> dict:
     ratios: dict = {}
     for i, c in enumerate(cls):
         basis = timed["basis"].iat[i]
-        if c not in FAMILY_COST and c != "dft":
+        if _has_own_law(c):
             method = timed["method"].iat[i]
             value = wall[i] - OVERHEAD_S
             model, group = _engine_seconds(method, sizes[i]) - OVERHEAD_S, c
@@ -364,9 +369,14 @@ def walk_seconds(plan, sizes, scales=None):
         grid = int(gs.settings_key.get("grid_level", 3)) if gs.settings_key else 3
         total = 0.0
         for _, methods in batch.entries:
-            classes = {method_class(m) for m in methods}
-            s = scf_seconds(size, scales.get("scf", 1.0))
-            s += sum(step_seconds(c, size, scales.get(c, 1.0), grid) for c in classes)
+            # Methods of another backend's cost law (tight binding) cost a point each; the
+            # PySCF ones share one SCF plus each family's step.
+            own = [m for m in methods if _has_own_law(method_class(m))]
+            s = sum(_engine_seconds(m, size, scales.get(method_class(m), 1.0)) for m in own)
+            classes = {method_class(m) for m in methods if m not in own}
+            if classes:
+                s += scf_seconds(size, scales.get("scf", 1.0))
+                s += sum(step_seconds(c, size, scales.get(c, 1.0), grid) for c in classes)
             if gs.relax:
                 s *= RELAX_WEIGHT * len(methods)
             total += s

@@ -72,6 +72,10 @@ class GeometrySet:
     #: keys of the methods computed for free beside a level (ccsd beside ccsd(t)) when
     #: they are not levels themselves: (basis, method) -> one key per walk point
     byproduct_keys: dict[tuple[str, str], list[str]] = field(repr=False, default_factory=dict)
+    #: 0-based ghost atoms (counterpoise: a fragment in the complex's basis), part of the key
+    ghosts: tuple[int, ...] = ()
+    #: the scan a role-"counterpoise" set belongs to (its own ``scan`` names the fragment)
+    of_scan: str = ""
 
 
 @dataclass
@@ -158,6 +162,41 @@ def _scan_sets(campaign, start_id):
     return sets
 
 
+def _counterpoise_sets(campaign, scan_sets, start_id):
+    """Per counterpoise scan and fragment: the complex's walk with the other fragment's
+    atoms as ghosts, at the fragment's charge and multiplicity (role ``counterpoise``,
+    scan ``<scan>-cp-fragment-<n>``)."""
+    sets = []
+    for gs in scan_sets:
+        scan = campaign.scans[gs.scan]
+        if not scan.counterpoise:
+            continue
+        mol = campaign.molecules[gs.molecule]
+        for f, frag in enumerate(mol.fragments):
+            ghosts = tuple(a for a in range(len(gs.symbols)) if a not in frag["atoms"])
+            sets.append(
+                GeometrySet(
+                    set_id=start_id + len(sets),
+                    molecule=gs.molecule,
+                    scan=f"{gs.scan}-cp-fragment-{f + 1}",
+                    role="counterpoise",
+                    symbols=gs.symbols,
+                    charge=frag["charge"],
+                    multiplicity=frag["multiplicity"],
+                    coordinate_kinds=gs.coordinate_kinds,
+                    coordinate_atoms=gs.coordinate_atoms,
+                    values=gs.values,
+                    grid_indices=gs.grid_indices,
+                    positions=gs.positions,
+                    levels=gs.levels,
+                    moving=gs.moving,
+                    ghosts=ghosts,
+                    of_scan=gs.scan,
+                )
+            )
+    return sets
+
+
 def _fragment_sets(campaign, start_id):
     sets = []
     for mol in campaign.molecules.values():
@@ -166,8 +205,15 @@ def _fragment_sets(campaign, start_id):
         for scan in campaign.scans.values():
             if mol.name in scan.molecules:
                 levels += [lvl for lvl in scan.levels if lvl not in levels]
-        # Excited states of isolated fragments are no dissociation limit of a curve's states.
-        levels = tuple(lvl for lvl in levels if method_info(lvl.method).n_states == 1)
+        # Excited states of isolated fragments are no dissociation limit of a curve's
+        # states; a level whose fragments have no consistent counterpart (an active
+        # space by counts) takes D_e from its curve's end instead.
+        levels = tuple(
+            lvl
+            for lvl in levels
+            if method_info(lvl.method).n_states == 1
+            and method_info(lvl.method).fragments == "separate"
+        )
         for f, frag in enumerate(mol.fragments):
             atoms = list(frag["atoms"])
             sets.append(
@@ -207,6 +253,8 @@ def point_settings_key(settings, method, gs) -> dict:
     relax = relax_key(gs)
     if relax is not None:
         key = {**key, "relax": relax}
+    if gs.ghosts:
+        key = {**key, "ghosts": list(gs.ghosts)}
     return key
 
 
@@ -222,15 +270,18 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
     versions = {engine: version or engine_version(engine)}
     settings_key = campaign.engine_settings().key_dict()
     sets = _scan_sets(campaign, 0)
+    sets += _counterpoise_sets(campaign, list(sets), len(sets))
     sets += _fragment_sets(campaign, len(sets))
     columns = {k: [] for k in ("set_id", "walk", "method", "basis", "state", "key")}
     family_engine = {}
     for gs in sets:
-        settings = campaign.engine_settings(gs.scan if gs.role == "scan" else None)
+        settings = campaign.engine_settings(gs.scan if gs.role == "scan" else gs.of_scan or None)
         gs.settings_key = settings.key_dict()
         gs.digests = keys.geometry_digests(gs.symbols, gs.positions)
         walks = np.arange(len(gs.digests))
         levels = {(level.method, level.basis) for level in gs.levels}
+        # A derived (CBS) level has no points of its own: its members are levels too, and
+        # the points table makes its rows from theirs (pesflow.tables.derived).
 
         def point_keys(method, basis, gs=gs, settings=settings):
             info = method_info(method)
@@ -248,7 +299,7 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
             )
             return [keys.combine(prefix, d) for d in gs.digests]
 
-        for level in gs.levels:
+        for level in (lvl for lvl in gs.levels if not lvl.members):
             # A multi-state method has one row (and key) per electronic state.
             for state in level_states(level.method):
                 record = state_record(level.method, state)

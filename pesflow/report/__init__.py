@@ -10,7 +10,8 @@ computed), into one folder:
   summary's deviation from the reference level), ``reference_values.csv``, ``statistics.csv``
   (mean signed / mean absolute / maximum absolute deviation and n per level), ``cost.csv``,
   ``status.csv`` (done / failed / pending per molecule and level), ``failed.csv``,
-  ``pending.csv``, ``convergence.csv`` and ``summary.csv`` (the summary table as given).
+  ``pending.csv``, ``convergence.csv``, ``summary.csv`` (the summary table as given) and
+  ``stationary.csv`` (every minimum, maximum and saddle per curve and level).
 
 :func:`terminal_summary` prints the verdicts to a :class:`rich.console.Console`.
 
@@ -60,6 +61,8 @@ _CSV = (
     ("pending_csv", "pending.csv", "pending"),
     ("convergence_csv", "convergence.csv", "convergence"),
     ("summary_csv", "summary.csv", "curves"),
+    ("sets_csv", "sets.csv", "sets"),
+    ("stationary_csv", "stationary.csv", "stationary"),
 )
 _LABELS = {
     "quantities.csv": "derived quantities per curve and level, with deviations",
@@ -71,6 +74,8 @@ _LABELS = {
     "pending.csv": "points not computed yet",
     "convergence.csv": "quantities against basis-set size",
     "summary.csv": "the summary table the report was built from",
+    "sets.csv": "statistics per molecule set, rule, level and quantity",
+    "stationary.csv": "every minimum, maximum and saddle per curve and level",
     "report.md": "this report as Markdown",
     "figures/": "the figures as PNG files",
 }
@@ -95,7 +100,7 @@ def _csv_text(frame: pd.DataFrame) -> str:
 
 
 def build_report(
-    campaign, plan, points: pd.DataFrame, summary: pd.DataFrame, out_dir
+    campaign, plan, points: pd.DataFrame, summary: pd.DataFrame, out_dir, *, stationary=None
 ) -> dict[str, Path]:
     """Write the comparison report of ``campaign`` into ``out_dir`` (created if needed).
 
@@ -105,15 +110,18 @@ def build_report(
         points: :func:`pesflow.tables.points.points_table` of the campaign, all columns.
         summary: :func:`pesflow.tables.summary.summary_table` of the same points.
         out_dir: output folder; ``pesflow report`` uses ``campaign.results_path / "report"``.
+        stationary: :func:`pesflow.tables.stationary.stationary_table` of the same points
+            (default: none; the section then says so).
 
     Returns:
         ``{"html": .../report.html, "markdown": .../report.md, "figures": .../figures,
         "quantities_csv": ..., "reference_values_csv": ..., "statistics_csv": ...,
         "cost_csv": ..., "status_csv": ..., "failed_csv": ..., "pending_csv": ...,
-        "convergence_csv": ..., "summary_csv": ...}``.  Each file is written atomically
-        (temporary file, then rename); figures of an earlier report that are no longer
-        produced are removed.  Reads nothing but the arguments (and PySCF's basis-function
-        counts when some method was run with two or more basis sets); computes no energies.
+        "convergence_csv": ..., "summary_csv": ..., "sets_csv": ..., "stationary_csv": ...}``.
+        Each file is written atomically (temporary file, then rename); figures of an earlier
+        report that are no longer produced are removed.  Reads nothing but the arguments (and
+        PySCF's basis-function counts when some method was run with two or more basis sets);
+        computes no energies.
     """
     from pesflow.report import html as html_page
     from pesflow.report import markdown
@@ -122,7 +130,7 @@ def build_report(
     out = Path(out_dir)
     fig_dir = out / "figures"
     fig_dir.mkdir(parents=True, exist_ok=True)
-    data = collect(campaign, plan, points, summary)
+    data = collect(campaign, plan, points, summary, stationary=stationary)
     points = states_as_levels(points, summary)[0]  # each excited state a level, as in data
     figures = make_figures(campaign, points, data)
     paths: dict[str, Path] = {}

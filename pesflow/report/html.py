@@ -28,12 +28,15 @@ from pesflow.report.markup import (
 from pesflow.report.stats import closest_levels
 from pesflow.report.tables import (
     QUANTITY,
+    STATIONARY_EXPLAIN,
     ReportData,
     fmt_dev,
     fmt_ratio,
     fmt_seconds,
     fmt_value,
+    fmt_value_u,
     scan_label,
+    stationary_tables,
 )
 
 #: Longest lists of points written out in the page (the CSV files always list all of them).
@@ -80,7 +83,7 @@ def note_marks(d: ReportData, flags) -> Markup:
 def _cell_text(row, q) -> Markup:
     state = row["state"]
     if state == "value":
-        return esc(fmt_value(row["value"], q.decimals))
+        return esc(fmt_value_u(row["value"], row.get("uncertainty"), q.decimals))
     if state == "not determined" and row["n_pending"]:
         return tag("span", f"not determined ({row['n_pending']} pending)", class_="missing")
     return tag("span", state, class_="missing")
@@ -825,14 +828,79 @@ def _files_section(d: ReportData, figures, files) -> Markup:
     )
 
 
+def _stationary_section(d: ReportData, figures, files) -> Markup:
+    tables = stationary_tables(d)
+    if not tables:
+        return tag("p", "No stationary points (no curve analysed yet).", class_="muted")
+    parts = [tag("p", STATIONARY_EXPLAIN, class_="explain")]
+    for molecule, scan, header, rows in tables:
+        parts.append(tag("h3", f"{molecule}: {scan}", id=_anchor("stationary", molecule, scan)))
+        head = [[th(h, cls=None if i < 2 else "num") for i, h in enumerate(header)]]
+        body = [[td(c, cls=None if i < 2 else "num") for i, c in enumerate(r)] for r in rows]
+        parts.append(table(head, body))
+    return join(parts)
+
+
 def _missing_points(d: ReportData, figures, files) -> Markup:
     return join([_banner(d), _missing_section(d)])
+
+
+def _sets_section(d: ReportData, figures, files) -> Markup:
+    """Per set, rule and level: statistics over the members first, then each member's
+    numbers folded away (``<details>``), so that a campaign of hundreds stays readable."""
+    if d.sets.empty:
+        return tag("p", "This campaign has no molecule sets.")
+    parts = [
+        tag(
+            "p",
+            "Statistics over each set's molecules, per rule and level (a member with several "
+            "conformers counts once, through its lower envelope); each member's numbers "
+            "are folded below.",
+        )
+    ]
+    head = [
+        [th(h) for h in ("set", "rule", "level", "quantity", "molecules", "complete curves")]
+        + [th(h, cls="num") for h in ("median", "minimum", "maximum")]
+    ]
+    rows = []
+    for r in d.sets.itertuples(index=False):
+        q = QUANTITY[r.quantity]
+        rows.append(
+            [
+                td(r.set), td(r.rule), td(r.level), td(q.title), td(str(r.n_molecules)),
+                td(f"{r.n_complete} of {r.n_curves}"),
+                *(td(fmt_value(v, q.decimals), cls="num")
+                  for v in (r.median, r.minimum, r.maximum)),
+            ]
+        )  # fmt: skip
+    parts.append(table(head, rows))
+    for (set_name, rule), sub in d.set_members.groupby(["set", "rule"], sort=False):
+        mine = (d.sets["set"] == set_name) & (d.sets["rule"] == rule)
+        columns = list(dict.fromkeys(d.sets.loc[mine, "quantity"]))
+        head = [[th(h) for h in ("molecule", "scan", "level", "conformer")]]
+        head[0] += [th(QUANTITY[c].title, cls="num") for c in columns]
+        body = [
+            [td(r["molecule"]), td(r["scan"]), td(r["level"]), td(r.get("conformer") or "")]
+            + [td(fmt_value(r.get(c), QUANTITY[c].decimals), cls="num") for c in columns]
+            for _, r in sub.iterrows()
+        ]
+        summary = f"{set_name}, {rule}: {sub['molecule'].nunique()} molecules, {len(sub)} curves"
+        parts.append(tag("details", join([tag("summary", summary), table(head, body)])))
+    return join(parts)
 
 
 #: The page's sections in order: (anchor, heading, contents-line text, builder).  A builder
 #: takes ``(data, figures, files)`` and returns the section's markup, or an :class:`Omitted`
 #: reason when it has nothing to show: the section is then left out of the page and its
 #: contents line says why.
+def _counterpoise_section(d, figures, files):
+    from pesflow.report.interaction import counterpoise_section
+
+    if not any(k.startswith("interaction:") for k in figures):
+        return Omitted("the campaign has no counterpoise scan")
+    return counterpoise_section(d, figures, files)
+
+
 SECTIONS = (
     (
         "overview",
@@ -841,6 +909,7 @@ SECTIONS = (
         _overview_section,
     ),
     ("quantities", "Derived quantities", "Derived quantities", _quantities_section),
+    ("sets", "Molecule sets and rules", "Sets and rules", _sets_section),
     (
         "convergence",
         "Basis-set convergence",
@@ -853,6 +922,13 @@ SECTIONS = (
         "Curves and surfaces",
         lambda d, figures, files: _curve_sections(d, figures),
     ),
+    (
+        "counterpoise",
+        "Counterpoise-corrected interaction curves",
+        "Interaction curves",
+        lambda d, figures, files: _counterpoise_section(d, figures, files),
+    ),
+    ("stationary", "Every stationary point", "Stationary points", _stationary_section),
     ("notes", "Notes: warnings of the analysis", "Notes", _notes_section),
     ("cost", "Compute cost per level", "Compute cost", lambda d, f, x: _cost_section(d)),
     ("missing", "Missing points", "Missing points", _missing_points),

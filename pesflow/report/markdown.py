@@ -17,11 +17,14 @@ import numpy as np
 from pesflow.report.stats import closest_levels
 from pesflow.report.tables import (
     QUANTITY,
+    STATIONARY_EXPLAIN,
     ReportData,
     fmt_dev,
     fmt_seconds,
     fmt_value,
+    fmt_value_u,
     scan_label,
+    stationary_tables,
 )
 
 #: Characters Markdown would read as markup in user text: a backslash before ASCII punctuation,
@@ -49,7 +52,7 @@ def _table(head, rows) -> list[str]:
 
 def _cell(row, q) -> str:
     if row["state"] == "value":
-        text = fmt_value(row["value"], q.decimals)
+        text = fmt_value_u(row["value"], row.get("uncertainty"), q.decimals)
     elif row["state"] == "not determined" and row["n_pending"]:
         text = f"*not determined ({row['n_pending']} pending)*"
     else:
@@ -125,6 +128,18 @@ def _quantity(d: ReportData, q) -> list[str]:
     return lines
 
 
+def _stationary(d: ReportData) -> list[str]:
+    lines = ["## Every stationary point", ""]
+    tables = stationary_tables(d)
+    if not tables:
+        return lines + ["*No stationary points (no curve analysed yet).*", ""]
+    lines += [STATIONARY_EXPLAIN, ""]
+    for molecule, scan, header, rows in tables:
+        lines += [f"### {md(molecule)}: {md(scan)}", ""]
+        lines += _table([md(h) for h in header], [[md(c) for c in r] for r in rows])
+    return lines
+
+
 def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -> str:
     """The Markdown summary.  ``figure_files``: ``{figure key: relative PNG path}``."""
     t = d.totals
@@ -173,6 +188,18 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
         ]
     for q in d.quantities:
         lines += _quantity(d, q)
+    if not d.sets.empty:
+        lines += ["## Molecule sets and rules", ""]
+        lines += _table(
+            ["set", "rule", "level", "quantity", "molecules", "complete", "median", "min", "max"],
+            [
+                [md(r.set), md(r.rule), md(r.level), md(QUANTITY[r.quantity].title),
+                 str(r.n_molecules), f"{r.n_complete} of {r.n_curves}",
+                 *(fmt_value(v, QUANTITY[r.quantity].decimals)
+                   for v in (r.median, r.minimum, r.maximum))]
+                for r in d.sets.itertuples(index=False)
+            ],
+        )  # fmt: skip
     if d.convergence.empty:
         lines += [
             "(Basis-set convergence: left out, each method was computed with one basis set.)",
@@ -205,6 +232,7 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
             lines.append(f"- [{note['n']}] {md(note['title'])}: {md(', '.join(lvls))}")
         if len(flags):
             lines.append("")
+    lines += _stationary(d)
     if d.notes:
         lines += [
             "## Notes",

@@ -704,6 +704,11 @@ def scan_figure(campaign, points, data, molecule, scan) -> Figure:
     )
 
 
+def _file_name(kind, molecule, scan) -> str:
+    """A figure's file name; set members and rule scans carry ``/`` in their names."""
+    return f"{kind}-{molecule}-{scan}.png".replace("/", "_")
+
+
 def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
     """Every figure of the report, keyed ``curve:<molecule>:<scan>``,
     ``surface:<molecule>:<scan>``, ``difference:<molecule>:<scan>``,
@@ -719,13 +724,13 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
         fig = _png(scan_figure(campaign, points, data, molecule, scan))
         if len(campaign.scans[scan].coordinates) == 1:
             figures[f"curve:{molecule}:{scan}"] = ReportFigure(
-                f"curve-{molecule}-{scan}.png",
+                _file_name("curve", molecule, scan),
                 fig,
                 f"energy curves of {molecule} along {scan} at every level",
             )
             continue
         figures[f"surface:{molecule}:{scan}"] = ReportFigure(
-            f"surface-{molecule}-{scan}.png",
+            _file_name("surface", molecule, scan),
             fig,
             f"contour maps of {molecule} over {scan} at every level",
         )
@@ -736,7 +741,7 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
                 _axis_label(c.kind, c.label) for c in campaign.scans[scan].coordinates
             )
             figures[f"difference:{molecule}:{scan}"] = ReportFigure(
-                f"difference-{molecule}-{scan}.png",
+                _file_name("difference", molecule, scan),
                 difference_figure(
                     grids,
                     ref[0],
@@ -788,6 +793,9 @@ def make_figures(campaign, points, data) -> dict[str, ReportFigure]:
             ),
             f"{q.name} against basis-set size",
         )
+    from pesflow.report.interaction import interaction_figures
+
+    figures.update(interaction_figures(campaign, points, data, styles))
     if data.reference_level:
         stats = data.statistics[
             (data.statistics["against"] == data.reference_level) & (data.statistics["n"] > 0)

@@ -20,11 +20,13 @@ import pandas as pd
 
 from pesflow.analysis.flags import FLAG_KINDS, Flag, flags_from_records
 from pesflow.analysis.quantities import QUANTITIES as ALL_QUANTITIES
-from pesflow.analysis.quantities import Quantity
+from pesflow.analysis.quantities import Quantity, deviation, uncertainty_column
+from pesflow.analysis.symmetry import Symmetry
 from pesflow.coordinates.kinds import KINDS, UNIT_TEXT, column_names
 from pesflow.report.stats import common_curve_statistics, level_statistics
 from pesflow.tables.points import status_counts
 from pesflow.tables.states import states_as_levels
+from pesflow.tables.summary import ENVELOPE
 
 #: The quantities the report can show, in the order it shows them (from the registry).
 QUANTITIES = tuple(q for q in ALL_QUANTITIES if q.shown)
@@ -68,10 +70,11 @@ class ReportData:
         level_method, level_basis: method and basis of each level.
         quantities: the quantities shown, in order.
         values: one row per curve x level x quantity: ``molecule, scan, kind, level, method,
-            basis, quantity, value, dev_reference_level, state, n_done, n_failed,
-            n_pending, flags`` (``state``: ``value`` / ``pending`` / ``failed`` /
-            ``not determined``; ``flags``: the warnings that concern this number, joined by
-            ``" | "``).
+            basis, quantity, value, uncertainty, dev_reference_level, state, n_done,
+            n_failed, n_pending, flags`` (``uncertainty``: the summary's standard
+            uncertainty ``u_<column>``, NaN when not known; ``state``: ``value`` /
+            ``pending`` / ``failed`` / ``not determined``; ``flags``: the warnings that
+            concern this number, joined by ``" | "``).
         reference_values: one row per user reference value x level: ``molecule, scan,
             quantity, source, reference_value, level, value, deviation``.
         statistics: :func:`~pesflow.report.stats.level_statistics` rows against the
@@ -89,6 +92,8 @@ class ReportData:
         ranking: :func:`~pesflow.report.stats.common_curve_statistics` rows (against the
             reference level and the reference values): the statistics the "closest level"
             verdict ranks on, over the curves every compared level has.
+        stationary: the stationary-point table (:mod:`pesflow.tables.stationary`), one row
+            per minimum, maximum and saddle per curve and level; empty when not given.
     """
 
     campaign: str
@@ -110,6 +115,12 @@ class ReportData:
     convergence: pd.DataFrame
     totals: dict = field(default_factory=dict)
     ranking: pd.DataFrame | None = None
+    #: per set, rule, level and quantity: statistics over the set's molecules
+    #: (:func:`set_statistics`); empty when the campaign has no molecule sets
+    sets: pd.DataFrame = field(default_factory=pd.DataFrame)
+    #: the set members' summary rows behind :attr:`sets` (per-molecule detail)
+    set_members: pd.DataFrame = field(default_factory=pd.DataFrame)
+    stationary: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @property
     def complete(self) -> bool:
@@ -229,6 +240,7 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
                     "basis": row["basis"],
                     "quantity": q.column,
                     "value": value,
+                    "uncertainty": _num(row, uncertainty_column(q.column)),
                     "dev_reference_level": dev,
                     "reference_level": reference_level or "",
                     "state": _state(value, row),
@@ -247,6 +259,7 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
         "basis",
         "quantity",
         "value",
+        "uncertainty",
         "dev_reference_level",
         "reference_level",
         "state",
@@ -258,7 +271,11 @@ def _values_table(summary, quantities, per_curve, kinds, reference_level):
     return pd.DataFrame(rows, columns=columns)
 
 
-def _reference_values_table(values, reference_specs, levels):
+def _reference_values_table(values, reference_specs, levels, summary):
+    # A position is compared through its nearest equivalent under the curve's own symmetry.
+    symmetry = {
+        (r["molecule"], r["scan"], r["level"]): Symmetry.of_row(r) for _, r in summary.iterrows()
+    }
     rows = []
     for ref in reference_specs:
         sub = values[
@@ -277,7 +294,12 @@ def _reference_values_table(values, reference_specs, levels):
                     "reference_value": float(ref.value),
                     "level": level,
                     "value": v,
-                    "deviation": v - float(ref.value),
+                    "deviation": deviation(
+                        ref.quantity,
+                        v,
+                        float(ref.value),
+                        symmetry.get((ref.molecule, ref.scan, level)),
+                    ),
                 }
             )
     columns = [
@@ -447,6 +469,8 @@ def _convergence(values, campaign, basis_counts):
     """Quantity against basis-set size for every method computed with two or more bases."""
     columns = ["molecule", "scan", "quantity", "method", "basis", "nbf", "cardinal", "value"]
     finite = values[values["state"] == "value"]
+    # a CBS level has no basis-set size; it is a level of its own in every other table
+    finite = finite[~finite["basis"].astype(str).str.startswith("cbs(")]
     bases_per_method = finite.groupby(["molecule", "scan", "quantity", "method"])["basis"].nunique()
     wanted = bases_per_method[bases_per_method >= 2]
     if wanted.empty:
@@ -480,7 +504,13 @@ def _convergence(values, campaign, basis_counts):
 
 
 def collect(
-    campaign, plan, points: pd.DataFrame, summary: pd.DataFrame, *, basis_counts=None
+    campaign,
+    plan,
+    points: pd.DataFrame,
+    summary: pd.DataFrame,
+    *,
+    basis_counts=None,
+    stationary: pd.DataFrame | None = None,
 ) -> ReportData:
     """Assemble :class:`ReportData` from the points table and the summary table.
 
@@ -492,6 +522,7 @@ def collect(
         basis_counts: optional ``{(molecule, basis): n_basis_functions}``; default: computed
             with :func:`pesflow.plan.cost.basis_function_counts`, and only when some method was
             run with two or more basis sets.
+        stationary: :func:`pesflow.tables.stationary.stationary_table` of the campaign.
 
     Nothing is computed except table arithmetic; every deviation from the reference level is
     the summary's own ``dev_<column>`` value.
@@ -521,9 +552,12 @@ def collect(
                 "flags",
             ]
         )
+    sets, set_members = set_statistics(summary)
+    if "conformer" in summary:  # a lower envelope is a derived curve: sets only
+        summary = summary[summary["conformer"] != ENVELOPE].reset_index(drop=True)
     quantities, per_curve = _applicable(summary, kinds, refs)
     values = _values_table(summary, quantities, per_curve, kinds, reference_level)
-    reference_values = _reference_values_table(values, refs, levels)
+    reference_values = _reference_values_table(values, refs, levels, summary)
     statistics = _statistics(values, reference_values, levels, reference_level)
     failed, pending = _point_lists(points)
     flag_rows = [
@@ -563,7 +597,141 @@ def collect(
         convergence=_convergence(values, campaign, basis_counts),
         totals={s: int(counts.get(s, 0)) for s in ("done", "failed", "pending")},
         ranking=_ranking(values, reference_values, levels, reference_level),
+        sets=sets,
+        set_members=set_members,
+        stationary=stationary if stationary is not None else pd.DataFrame(),
     )
+
+
+#: Columns of :func:`set_statistics`'s statistics table.
+SET_COLUMNS = (
+    "set", "rule", "level", "quantity", "n_molecules", "n_curves", "n_complete",
+    "median", "minimum", "maximum",
+)  # fmt: skip
+
+
+def set_statistics(summary: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Statistics of each molecule set, rule and level over its members, and the member rows.
+
+    Only rows of molecules from a set count; a member with several conformers counts once,
+    through its lower envelope.  For every shown curve quantity that some member has, the
+    median, minimum and maximum over the set's curves (NaN-free values only); ``n_curves``
+    counts every curve of the set and rule at that level, ``n_complete`` those with every
+    point done.  A torsion's minimum position has no statistics (its zero is a convention of
+    each molecule's four atoms).  ``rule`` is ``"atoms by number"`` for a scan that names its atoms.
+
+    Returns ``(statistics, members)``: the statistics (columns :data:`SET_COLUMNS`) and the
+    summary rows they come from, sorted by set, rule, molecule and scan.
+    """
+    empty = pd.DataFrame(columns=list(SET_COLUMNS))
+    if summary is None or summary.empty or "set" not in summary:
+        return empty, pd.DataFrame()
+    rows = summary[summary["set"].fillna("") != ""]
+    if "conformer" in rows:
+        conformer = rows["conformer"].astype(str)
+        envelope = rows[conformer == ENVELOPE]
+        covered = set(zip(envelope["molecule"], envelope["scan"], envelope["level"]))
+        member = rows["molecule"].str.replace(r"/c\d+$", "", regex=True)
+        is_conformer = conformer.str.match(r"^c\d+$")
+        replaced = [
+            c and (m, sc, lv) in covered
+            for c, m, sc, lv in zip(is_conformer, member, rows["scan"], rows["level"])
+        ]
+        rows = rows[~np.asarray(replaced, dtype=bool)]
+    if rows.empty:
+        return empty, pd.DataFrame()
+    rows = rows.assign(rule=rows["rule"].fillna("").replace("", "atoms by number"))
+    # The position of a periodic coordinate's minimum (a torsion's) differs from molecule to
+    # molecule by convention alone (which four atoms, which end of 0..360), so it has no
+    # statistics across a set.
+    quantities = [
+        q
+        for q in ALL_QUANTITIES
+        if q.curve and q.shown and q.headline and q.column in rows
+        and not (q.position_of and KINDS[q.position_of].period)
+    ]  # fmt: skip
+    out = []
+    for (set_name, rule, level), sub in rows.groupby(["set", "rule", "level"], sort=False):
+        complete = int(((sub["n_failed"] == 0) & (sub["n_pending"] == 0)).sum())
+        for q in quantities:
+            values = pd.to_numeric(sub[q.column], errors="coerce").dropna()
+            if values.empty:
+                continue
+            out.append(
+                {
+                    "set": set_name, "rule": rule, "level": level, "quantity": q.column,
+                    "n_molecules": int(sub.loc[values.index, "molecule"].nunique()),
+                    "n_curves": len(sub), "n_complete": complete,
+                    "median": float(values.median()), "minimum": float(values.min()),
+                    "maximum": float(values.max()),
+                }
+            )  # fmt: skip
+    members = rows.sort_values(["set", "rule", "molecule", "scan"], kind="stable")
+    return pd.DataFrame(out, columns=list(SET_COLUMNS)), members.reset_index(drop=True)
+
+
+#: What the stationary-point tables show, said once above them (HTML and Markdown).
+STATIONARY_EXPLAIN = (
+    "Every minimum and maximum of each curve (minima, saddles and maxima of a surface) at "
+    "each level, with its energy above the curve's global minimum. Positions are in the "
+    "canonical form of the curve's symmetry, found from the energies: a full-circle torsion "
+    "with E(φ) = E(360 − φ) is given in [0, 180] degree, an n-fold rotor in [0, 360/n) "
+    "([0, 180/n] with the mirror), a symmetric 2-D grid with q1 ≤ q2. Points equivalent by "
+    "that symmetry are one point (copies: how many the curve has). Δ: this level minus the "
+    "reference level's point of the same kind at the nearest equivalent position. "
+    "stationary.csv has every row, copies included."
+)
+#: Headers of the report's stationary-point tables (after level, kind and the position).
+STATIONARY_ENERGY_HEAD = ("E − E_min (kcal/mol)", "(kJ/mol)", "(cm⁻¹)", "(eV)")
+
+
+def stationary_tables(d: ReportData) -> list[tuple[str, str, list[str], list[list[str]]]]:
+    """The stationary points as the report shows them: per curve ``(molecule, scan, header,
+    rows)`` of text cells, one row per stationary point and level (equivalent copies folded
+    into their canonical point, counted under "copies")."""
+    st = d.stationary
+    if st is None or st.empty:
+        return []
+    out = []
+    units = ("kcal_mol", "kj_mol", "cm-1", "ev")
+    decimals = (2, 2, 1, 4)
+    for (molecule, scan), sub in st.groupby(["molecule", "scan"], sort=False):
+        position = [c for c in sub.columns if c.endswith(("_angstrom", "_degree"))]
+        position = [
+            c for c in position if not c.startswith(("found_", "dev_")) and sub[c].notna().any()
+        ]
+        header = ["level", "kind"] + [_position_head(c) for c in position]
+        header += list(STATIONARY_ENERGY_HEAD) + ["copies"]
+        ref = "reference_level" in sub and d.reference_level
+        if ref:
+            header += [f"Δ {_position_head(c)}" for c in position] + ["Δ E (kcal/mol)"]
+        rows = []
+        order = {lvl: i for i, lvl in enumerate(d.levels)}
+        sub = sub[~sub["equivalent_copy"].astype(bool)]
+        kind_order = {k: i for i, k in enumerate(("minimum", "saddle", "maximum"))}
+        sub = sub.assign(_o=sub["level"].map(order), _k=sub["kind"].map(kind_order))
+        sub = sub.sort_values(["_o", "_k", *position], kind="stable")
+        for _, r in sub.iterrows():
+            cells = [str(r["level"]), str(r["kind"])]
+            cells += [fmt_value(r[c], _decimals(c)) for c in position]
+            cells += [fmt_value(r[f"relative_{u}"], k) for u, k in zip(units, decimals)]
+            n = int(r.get("n_equivalent", 1))
+            cells.append(str(n) if n > 1 else "")
+            if ref:
+                cells += [fmt_dev(r.get(f"dev_{c}"), _decimals(c)) for c in position]
+                cells.append(fmt_dev(r.get("dev_relative_kcal_mol"), 2))
+            rows.append(cells)
+        out.append((molecule, scan, header, rows))
+    return out
+
+
+def _position_head(column: str) -> str:
+    name, unit = column.rsplit("_", 1)
+    return f"{name} ({UNIT_TEXT.get(unit, unit)})"
+
+
+def _decimals(column: str) -> int:
+    return max((k.decimals for k in KINDS.values() if column.endswith(k.unit)), default=4)
 
 
 def curve_arrays(campaign, points: pd.DataFrame, molecule: str, scan: str, level: str):
@@ -629,6 +797,33 @@ def fmt_value(value, decimals: int) -> str:
     except (TypeError, ValueError):
         return ""
     return f"{v:.{decimals}f}" if np.isfinite(v) else ""
+
+
+def fmt_value_u(value, uncertainty, decimals: int) -> str:
+    """A value with its standard uncertainty, compact: ``"4138.3 ± 0.4"``.
+
+    The uncertainty gets one significant figure (two when it starts with 1 or 2) and the
+    value as many decimals, at most ``decimals``; an uncertainty below the last shown decimal
+    is written with one significant figure.  Without a (finite) uncertainty: the value alone.
+
+    >>> fmt_value_u(4138.3421, 0.43, 1), fmt_value_u(4138.3421, 12.4, 1)
+    ('4138.3 ± 0.4', '4138 ± 12')
+    >>> fmt_value_u(0.916812, 3e-9, 4), fmt_value_u(1.5, float("nan"), 2)
+    ('0.9168 ± 3e-09', '1.50')
+    """
+    text = fmt_value(value, decimals)
+    try:
+        u = float(uncertainty)
+    except (TypeError, ValueError):
+        return text
+    if not text or not np.isfinite(u) or u < 0:
+        return text
+    if u < 0.5 * 10.0 ** (-decimals):
+        return f"{text} ± {u:.1g}"
+    exponent = int(np.floor(np.log10(u)))
+    digits = 2 if f"{u:.1e}"[0] in "12" else 1
+    places = min(decimals, max(0, digits - 1 - exponent))
+    return f"{float(value):.{places}f} ± {u:.{places}f}"
 
 
 def fmt_dev(value, decimals: int) -> str:

@@ -6,10 +6,18 @@ Pure table work on what the store returns; used by ``status``, ``export``,
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 
 from pesflow.plan.expand import Plan, points_frame
+from pesflow.tables.derived import (
+    NEEDED_COLUMNS,
+    add_derived_rows,
+    add_interaction_columns,
+    derived_levels,
+)
 from pesflow.tables.states import add_state_columns
 
 #: Columns of the exported points table, in order (coordinate columns follow ``scan``).
@@ -51,8 +59,11 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
     """
     frame = points_frame(plan)
     wanted = None
+    derived = derived_levels(plan)
     if columns is not None:
-        wanted = sorted(set(columns) | {"key", "converged"})
+        wanted = sorted(
+            set(columns) | {"key", "converged"} | set(NEEDED_COLUMNS if derived else ())
+        )
     records = store.load(keys=set(frame["key"]), columns=wanted) if store.exists() else None
     if records is not None and records.num_rows:
         rec = records.to_pandas()
@@ -65,8 +76,16 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
     for col in wanted if wanted is not None else [c for c in TRAILING if c != "status"]:
         if col not in frame.columns:
             frame[col] = np.nan
+    if derived:  # CBS levels: rows made from their members' stored energies
+        frame = add_derived_rows(plan, frame)
     frame["status"] = _status_of(frame["converged"])
     frame = add_state_columns(frame, plan)
+    if "extra_json" in frame.columns:
+        occupations = natural_occupations(frame["extra_json"])
+        if occupations.notna().any():
+            frame["natural_occupations"] = occupations
+    if "energy_hartree" in frame.columns:  # counterpoise scans: interaction energies per point
+        frame = add_interaction_columns(plan, frame)
     frame.insert(0, "campaign", plan.campaign)
     coord = [
         c
@@ -77,6 +96,20 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
     order += [c for c in TRAILING if c in frame.columns]
     order += [c for c in frame.columns if c not in order and c not in ("set_id", "family")]
     return frame[order]
+
+
+def natural_occupations(extra_json: pd.Series) -> pd.Series:
+    """The natural occupations of each point's active orbitals (multireference levels),
+    as text, largest first, separated by spaces (``"1.991 1.964 0.035"``); None for
+    points without an active space."""
+
+    def one(text):
+        if not isinstance(text, str) or "natural_occupations" not in text:
+            return None
+        occ = json.loads(text).get("active_space", {}).get("natural_occupations")
+        return None if occ is None else " ".join(f"{n:.6f}" for n in occ)
+
+    return extra_json.map(one)
 
 
 def status_counts(table: pd.DataFrame, molecules=None, levels=None) -> pd.DataFrame:

@@ -65,7 +65,7 @@ def test_wavefunction_methods_are_their_own_canonical_names():
     assert all(canonical_method(m) == m for m in WAVEFUNCTION_METHODS)
 
 
-@pytest.mark.parametrize("name", ["mp3", "b3lyp**", "", ",", "dft", "casscf"])
+@pytest.mark.parametrize("name", ["mp3", "b3lyp**", "", ",", "dft", "mrci"])
 def test_unknown_method_is_a_one_line_setup_error(name):
     with pytest.raises(EngineSetupError) as info:
         canonical_method(name)

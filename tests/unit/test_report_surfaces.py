@@ -86,7 +86,7 @@ def test_figure_labels_use_the_symbols_and_units_of_the_tables():
 
 
 def test_durations_read_as_seconds_minutes_or_hours():
-    from pesflow.report.tables import fmt_duration
+    from pesflow.units import format_duration as fmt_duration
 
     assert fmt_duration(4.356) == "4.4 s"
     assert fmt_duration(0.00121 * 3600) == "4.4 s"  # the "0.00121 core-hours" of the issue

@@ -257,7 +257,7 @@ def test_two_molecule_sources(capsys):
         GOOD.replace("{builtin: HF}", "{builtin: HF, xyz: 'H 0 0 0'}"),
         capsys,
         "molecules.hf_molecule",
-        "exactly one of builtin, file or xyz",
+        "exactly one of builtin, file, xyz, smiles, smiles_file, sdf or xyz_files",
     )
 
 

@@ -134,7 +134,8 @@ def _check(text: str) -> tuple[int, str]:
     """Write the spec into a fresh folder, run ``pesflow check``, assert nothing was written."""
     with tempfile.TemporaryDirectory() as folder:
         folder = Path(folder)
-        shutil.copytree(CONFIGS / "geometries", folder / "geometries")
+        for files in ("geometries", "molecule-sets"):  # what the shipped specs name
+            shutil.copytree(CONFIGS / files, folder / files)
         spec = folder / "campaign.yaml"
         spec.write_text(text, encoding="utf-8")
         before = sorted(p.relative_to(folder) for p in folder.rglob("*"))

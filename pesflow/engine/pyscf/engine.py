@@ -17,6 +17,7 @@ import time
 import numpy as np
 
 from pesflow.engine import (
+    MULTIREFERENCE_METHODS,
     EngineSettings,
     Geometry,
     PointResult,
@@ -78,6 +79,13 @@ class PySCFEngine(Engine):
         unknown method, methods of different scf families, a method of another
         engine, or settings that are not :class:`~pesflow.engine.EngineSettings`.
         """
+        # casscf/nevpt2 levels walk by neighbour orbitals; excited-state methods (which
+        # also take level options) are followed by PySCFWalk itself.
+        first = method_info(methods[0]) if not isinstance(methods, str) and methods else None
+        if first is not None and first.cost_class in MULTIREFERENCE_METHODS:
+            from pesflow.engine.pyscf.multireference import MultireferenceWalk
+
+            return MultireferenceWalk(settings, basis, methods)
         return PySCFWalk(settings, basis, methods)
 
 

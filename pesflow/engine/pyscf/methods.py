@@ -48,15 +48,31 @@ _EXCITED = {
     "tdhf": (1, 3.0, 4, 0.4),
     "eom-ccsd": (4, 20.0, 6, 5.0),
 }
+#: Multireference methods: order in their CASSCF family, cost weight relative to an
+#: SCF, cost exponent and default prefactor (wall s at 50 basis functions, one thread;
+#: measured here with PySCF 2.14 on N2 CAS(6,6)/6-31G, 18 functions: CASSCF about
+#: 0.4 s a point from the neighbour's orbitals, NEVPT2 0.4 s more).  For small
+#: molecules the active space (the CI) sets the cost more than the basis, hence the
+#: low exponents; the CI grows factorially with the active space.  The settings that
+#: change their numbers: the SCF's (its solution is the first point's start) and the
+#: CASSCF's tolerance; the reference is always restricted (RHF, ROHF).
+_MULTIREFERENCE = {
+    "casscf": (0, 8.0, 2, 3.0),
+    "nevpt2": (1, 15.0, 3, 8.0),
+}
+_MULTIREFERENCE_SETTINGS = ("conv_tol", "max_cycle", "scf_ladder")
 
 
 def method_info(name: str) -> MethodInfo | None:
     """The :class:`~pesflow.engine.MethodInfo` of a PySCF method, or None when PySCF
     cannot compute ``name``.  Raises EngineSetupError for a functional whose
-    dispersion correction needs the missing ``pyscf-dispersion`` package, and for an
-    excited-state method on something that is not a functional."""
+    dispersion correction needs the missing ``pyscf-dispersion`` package, for an
+    excited-state method on something that is not a functional, and for a malformed
+    multireference name (``casscf(6,6)``, see :mod:`pesflow.engine.pyscf.multireference`)."""
     lowered = name.strip().lower()
     compact = "".join(lowered.split())
+    if lowered.split("(")[0].strip() in _MULTIREFERENCE:
+        return _multireference_info(lowered)
     excited = _excited_info(compact, name)
     if excited is not None:
         return excited
@@ -106,10 +122,39 @@ def _excited_info(compact: str, given: str) -> MethodInfo | None:
     )  # fmt: skip
 
 
+def _multireference_info(lowered: str) -> MethodInfo:
+    from pesflow.engine.pyscf import multireference
+
+    if lowered in _MULTIREFERENCE:  # the bare name: known, but needs its level options
+        level, name, family, byproducts = None, lowered, lowered, ()
+    else:
+        level = multireference.parse(lowered)
+        if level is None:
+            raise EngineSetupError(
+                f"malformed multireference method {lowered!r}; e.g. casscf(6,6), nevpt2(avas:n 2p)"
+            )
+        name, family = level.name, level.casscf_name
+        byproducts = (family,) if level.method == "nevpt2" else ()
+    method = lowered.split("(")[0].strip()
+    order, weight, exponent, prefactor = _MULTIREFERENCE[method]
+    return MethodInfo(
+        name=name, engine="pyscf", family=family, order=order, weight=weight,
+        cost_class=method, cost_exponent=exponent, cost_prefactor_s=prefactor,
+        needs_basis=True, has_gradients=False, byproducts=byproducts,
+        settings=_MULTIREFERENCE_SETTINGS, options=multireference.LEVEL_OPTIONS,
+        fragments="separate" if level is None or level.ao_labels else "asymptote",
+    )  # fmt: skip
+
+
 def method_with_options(method: str, options: dict) -> str:
-    """The canonical name of a PySCF method with level options (``tda-b3lyp`` with
-    ``{"states": 4}`` -> ``tda-b3lyp(singlets=4)``); EngineSetupError when the method
-    takes none or an option is wrong."""
+    """The canonical name of a PySCF method with level options: a multireference one
+    (``casscf`` with ``{"active": [6, 6]}`` -> ``casscf(6,6)``) or an excited-state one
+    (``tda-b3lyp`` with ``{"states": 4}`` -> ``tda-b3lyp(singlets=4)``); EngineSetupError
+    when the method takes none or an option is wrong."""
+    if method in _MULTIREFERENCE:
+        from pesflow.engine.pyscf import multireference
+
+        return multireference.level_name(method, options)
     from pesflow.engine.pyscf import excited
 
     level = excited.parse(method)

@@ -100,11 +100,11 @@ def count_electrons(geometry: Geometry) -> int:
     from pyscf.data import elements
 
     total = 0
-    for symbol in geometry.symbols:
+    for i, symbol in enumerate(geometry.symbols):
         z = elements.charge(symbol)
         if z <= 0:
             raise EngineSetupError(f"unknown element symbol {symbol!r}")
-        total += z
+        total += 0 if i in geometry.ghosts else z
     n_electrons = total - geometry.charge
     spin = geometry.spin
     if n_electrons <= 0 or spin > n_electrons or (n_electrons - spin) % 2:
@@ -127,7 +127,9 @@ def build_mole(geometry: Geometry, basis: str, settings: EngineSettings):
 
     mol = gto.Mole()
     positions = geometry.positions_angstrom
-    mol.atom = [(s, tuple(xyz)) for s, xyz in zip(geometry.symbols, positions, strict=True)]
+    # a ghost atom (counterpoise) is PySCF's "ghost-X": basis functions, no nucleus
+    symbols = [f"ghost-{s}" if i in geometry.ghosts else s for i, s in enumerate(geometry.symbols)]
+    mol.atom = [(s, tuple(xyz)) for s, xyz in zip(symbols, positions, strict=True)]
     mol.unit = "Angstrom"
     mol.basis = basis
     mol.charge = geometry.charge
