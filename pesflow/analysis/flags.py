@@ -26,6 +26,7 @@ from dataclasses import dataclass
 SEVERITIES = ("note", "warning")
 
 _D = ("d_e_ev", "d_0_ev")
+_STATE = ("t_v_ev", "t_e_ev", "t_e_cm-1")
 _BARRIER = ("barrier_kcal_mol", "barrier_kj_mol", "barrier_cm-1", "barrier_ev")
 
 
@@ -82,6 +83,10 @@ FLAG_KINDS: dict[str, FlagKind] = {
         FlagKind("path-not-converged", "warning", "minimum-energy path did not converge",
                  _BARRIER),
         FlagKind("incomplete-curve", "note", "value from an incomplete curve"),
+        FlagKind("state-crossing", "note", "electronic states cross"),
+        FlagKind("avoided-crossing", "note", "avoided crossing of electronic states"),
+        FlagKind("state-following-gap", "warning", "states not followed across a step",
+                 _STATE),
         # Names the quantities in its message; attached to no single value.
         FlagKind("deviation-within-uncertainty", "note",
                  "deviation from the reference level within the uncertainty", ()),

@@ -113,6 +113,10 @@ QUANTITIES: tuple[Quantity, ...] = (
     Quantity("d_e_ev", "D_e", "D<sub>e</sub>", "eV", 3),
     Quantity("d_0_ev", "D_0", "D<sub>0</sub>", "eV", 3),
     _barrier("barrier_kcal_mol", "kcal/mol", 2, True),
+    # Excited states (a multi-state level's rows of states 1, 2, ...).
+    Quantity("t_v_ev", "T_v (vertical)", "T<sub>v</sub> (vertical)", "eV", 3),
+    Quantity("t_e_ev", "T_e", "T<sub>e</sub>", "eV", 3),
+    Quantity("t_e_cm-1", "T_e", "T<sub>e</sub>", "cm⁻¹", 0, headline=False),
     # counterpoise scans (pesflow.analysis.interaction): the interaction curve
     Quantity("r_min_cp_angstrom", "R_min (CP)", "R<sub>min</sub> (CP)", "Å", 4),
     Quantity("well_depth_cp_kcal_mol", "well depth (CP)", "well depth (CP)", "kcal/mol", 3),

@@ -348,17 +348,25 @@ class LevelSpec(_Strict):
     level (``gfn2-xtb``, ``gfn1-xtb``) has its own basis and is given without one.
 
     Level options (:data:`pesflow.engine.LEVEL_OPTIONS`) apply to every method listed
-    that takes them and become part of its name (``casscf(6,6)``); a method that takes
-    none refuses them."""
+    that takes them and become part of its name (``casscf(6,6)``,
+    ``tda-b3lyp(singlets=4)``); a method that takes none refuses them.  ``states`` means
+    the roots averaged in the CASSCF for casscf/nevpt2, and the excited states above the
+    ground state for the excited-state methods."""
 
     method: str | list[str]
     basis: str | list[str] | None = None
     #: active space of casscf/nevpt2: [electrons, orbitals] or {ao_labels: [...]}
     active: list[int] | ActiveLabelsSpec | None = None
-    #: casscf/nevpt2: roots averaged in the CASSCF (state averaging)
+    #: casscf/nevpt2: roots averaged in the CASSCF (state averaging); excited-state
+    #: methods: excited states computed above the ground state (default 3)
     states: int | None = Field(default=None, ge=1)
     #: casscf/nevpt2: weights of the averaged roots (default equal)
     weights: list[FiniteFloat] | None = None
+    #: excited-state methods: spin of the excited states (closed-shell reference)
+    spin: Literal["singlet", "triplet"] | None = None
+    #: excited-state methods: number states by energy at each point, or follow each
+    #: state's character along the walk
+    follow: Literal["energy", "character"] | None = None
 
     @field_validator("active", mode="before")
     @classmethod
@@ -378,7 +386,7 @@ class LevelSpec(_Strict):
         """The level options given, by name (as :func:`pesflow.engine.level_method` takes
         them)."""
         out = {}
-        for name in ("active", "states", "weights"):
+        for name in ("active", "states", "weights", "spin", "follow"):
             value = getattr(self, name)
             if value is not None:
                 out[name] = value.model_dump() if isinstance(value, BaseModel) else value

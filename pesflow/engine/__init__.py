@@ -45,6 +45,8 @@ __all__ = [
     "canonical_method",
     "check_basis",
     "level_method",
+    "split_state",
+    "state_record",
     "get_engine",
     "method_info",
     "scf_family",
@@ -53,13 +55,25 @@ __all__ = [
 #: Methods built on a Hartree-Fock reference; they all share one SCF at one basis.
 WAVEFUNCTION_METHODS = ("hf", "mp2", "ccsd", "ccsd(t)")
 
+#: Excited-state methods (PySCF): prefixes of a DFT functional (``tda-b3lyp``,
+#: ``tddft-pbe0``), and CIS/TDHF on HF and EOM-EE-CCSD on CCSD.  Each computes several
+#: electronic states per point, one record each (:func:`state_record`).
+EXCITED_METHODS = ("tda-<functional>", "tddft-<functional>", "cis", "tdhf", "eom-ccsd")
+
 #: Multireference methods (PySCF); each needs an active space as a level option.
 MULTIREFERENCE_METHODS = ("casscf", "nevpt2")
 
 #: Level options: spec keys of a level beside method and basis.  An engine folds the
 #: ones a method takes (:attr:`MethodInfo.options`) into its canonical name
 #: (:func:`level_method`), so that the name keys and labels the level everywhere.
-LEVEL_OPTIONS = ("active", "states", "weights")
+#: ``states`` means two things by method: the number of averaged roots of a
+#: multireference level (casscf/nevpt2, with ``weights``) and the number of excited
+#: states above the ground state of an excited-state level (with ``spin``, ``follow``).
+LEVEL_OPTIONS = ("active", "states", "weights", "spin", "follow")
+
+#: Joins a multi-state method's name and a state index in the name of that state's
+#: record (``tda-b3lyp(singlets=3)#2``); state 0 is the ground state.
+STATE_SEPARATOR = "#"
 
 #: Tight-binding levels (tblite); each has its own built-in basis, so no basis set.
 TIGHT_BINDING_METHODS = ("gfn2-xtb", "gfn1-xtb")
@@ -94,6 +108,7 @@ _METHOD_HINT = (
     f"use one of {', '.join(WAVEFUNCTION_METHODS)} "
     "or a DFT functional known to PySCF's libxc (e.g. b3lyp, pbe0), "
     f"or a tight-binding level ({', '.join(TIGHT_BINDING_METHODS)}), "
+    f"or an excited-state method ({', '.join(EXCITED_METHODS)}), "
     f"or a multireference level ({', '.join(MULTIREFERENCE_METHODS)}, with an active space)"
 )
 
@@ -370,7 +385,29 @@ def method_info(method: str) -> MethodInfo:
     """
     if not isinstance(method, str):
         raise EngineSetupError(f"method must be a string, got {method!r}; {_METHOD_HINT}")
-    return _method_info(method)
+    return _method_info(split_state(method)[0])
+
+
+def state_record(method: str, state: int | None) -> str:
+    """The record name of one electronic state of a multi-state method (``method#k``,
+    k = 0 the ground state), or ``method`` itself for a single-state level (None).
+
+    >>> state_record("tda-b3lyp(singlets=3)", 2), state_record("hf", None)
+    ('tda-b3lyp(singlets=3)#2', 'hf')
+    """
+    return method if state is None else f"{method}{STATE_SEPARATOR}{int(state)}"
+
+
+def split_state(name: str) -> tuple[str, int | None]:
+    """The method and state index of a record name (:func:`state_record`'s inverse).
+
+    >>> split_state("cis(singlets=2)#1"), split_state("b3lyp")
+    (('cis(singlets=2)', 1), ('b3lyp', None))
+    """
+    head, sep, tail = name.rpartition(STATE_SEPARATOR)
+    if sep and tail.isdigit():
+        return head, int(tail)
+    return name, None
 
 
 @functools.lru_cache(maxsize=512)
@@ -408,8 +445,10 @@ def level_method(method: str, options: dict | None = None) -> str:
     for an unknown method, options it does not take, wrong values, or a method that
     needs options and got none.
 
-    >>> level_method("CASSCF", {"active": [6, 6]}), level_method("hf")
-    ('casscf(6,6)', 'hf')
+    >>> level_method("TDA-B3LYP", {"states": 4}), level_method("hf")
+    ('tda-b3lyp(singlets=4)', 'hf')
+    >>> level_method("CASSCF", {"active": [6, 6]})
+    'casscf(6,6)'
     """
     info = method_info(method)
     options = {k: v for k, v in (options or {}).items() if v is not None}

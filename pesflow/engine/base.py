@@ -49,10 +49,16 @@ class MethodInfo:
         byproducts: methods computed for free on the way (``ccsd`` for ``ccsd(t)``).
         settings: the names (as in :meth:`EngineSettings.key_dict`) of the settings
             that can change this method's number; only these enter its points' keys.
-        n_states: electronic states per point (1: the ground state).
+        n_states: electronic states per point (1: the ground state); a multi-state
+            method stores one record per state (the ground state and ``n_states - 1``
+            excited states), named by :func:`pesflow.engine.state_record`.
         options: the level options the method takes (spec keys beside method and
-            basis, e.g. ``active``, ``states``, ``weights`` for casscf); the engine
+            basis: ``active``, ``states``, ``weights`` for casscf/nevpt2, where
+            ``states`` is the averaged roots; ``states``, ``spin``, ``follow`` for the
+            excited-state methods, where ``states`` is the excited states); the engine
             folds them into the canonical name (:meth:`Engine.method_with_options`).
+        follow_states: a multi-state method whose states are numbered by character
+            along a walk (followed by overlaps between neighbours), not by energy.
         fragments: how the dissociation energy of its curves is referenced:
             ``separate`` (each fragment computed on its own at this level) or
             ``asymptote`` (no fragment has a consistent counterpart of this level, e.g.
@@ -73,6 +79,7 @@ class MethodInfo:
     settings: tuple[str, ...] = ()
     n_states: int = 1
     options: tuple[str, ...] = ()
+    follow_states: bool = False
     fragments: str = "separate"
 
 
@@ -102,9 +109,10 @@ class Engine:
 
     def method_with_options(self, method: str, options: dict) -> str:
         """The canonical name of ``method`` (canonical already) with level options folded
-        in (e.g. ``casscf(6,6)``); this name is what plan, keys and walks use.  Raises
-        EngineSetupError for options the method does not take or wrong values.  By
-        default a method takes none."""
+        in (e.g. ``casscf(6,6)``, ``tda-b3lyp(singlets=4)``); this name is what plan, keys
+        and walks use.
+        Raises EngineSetupError for options the method does not take or wrong values.
+        By default a method takes none."""
         if options:
             raise EngineSetupError(f"{method} takes no level options (got {', '.join(options)})")
         return method

@@ -305,6 +305,20 @@ def _relax_point(walk, point, methods, counts, status):
             )
 
 
+def _seed_states(walk, points, index):
+    """Excited states are followed by their overlaps with the previous point's: when that
+    point is stored already (a resumed walk), compute it again, unstored, so that this
+    point's overlaps are not lost."""
+    from pesflow.engine import method_info
+
+    point = points[index]
+    if walk.relax or index == 0 or abs(points[index - 1]["walk"] - point["walk"]) != 1:
+        return
+    multi = [m for m in point["keys"] if method_info(m).n_states > 1]
+    if multi:
+        walk.compute(points[index - 1], multi)
+
+
 def run_batch(
     task_path,
     done_path,
@@ -342,6 +356,7 @@ def run_batch(
             continue
         if previous_walk is None or abs(point["walk"] - previous_walk) > 1:
             walk.restart()  # a neighbour's solution is a good guess; a distant one is not
+            _seed_states(walk, points, index)
         if walk.relax:
             _relax_point(walk, point, missing, counts, status)
             previous_walk = point["walk"]

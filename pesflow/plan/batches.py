@@ -21,6 +21,8 @@ Rules (:func:`plan_jobs`):
   among them;
 * fragments (isolated atoms for D_e) thereby ride along with their molecule's scans
   and are never jobs of their own;
+* a walk of a multi-state level (excited states, followed between neighbours) is
+  never cut;
 * no piece of a cut walk has fewer than ``min_points`` geometries, or fewer than
   :data:`MIN_PIECE_S` seconds of work when that takes fewer geometries (expensive
   points are cut singly: the cold SCF at a cut is then negligible), nor more than
@@ -35,6 +37,7 @@ import hashlib
 import math
 from dataclasses import dataclass, field
 
+from pesflow.engine import method_info
 from pesflow.plan.expand import Batch, _safe, make_batches
 
 #: Default job length for local runs, seconds of estimated work: long enough that a
@@ -113,10 +116,12 @@ def pack_jobs(plan, walks: list[Batch], n_jobs: int, min_points: int = 4) -> lis
         per_point = walk.weight / len(entries)
         # a cut costs one SCF without a neighbour's density: worth it on costly points
         least = max(1, min(min_points, math.ceil(MIN_PIECE_S / per_point))) if per_point else 1
+        # Excited states are followed from neighbour to neighbour: keep such walks whole.
+        whole = any(method_info(m).n_states > 1 for _, methods in entries for m in methods)
         while entries:
             room = len(bins) * share - placed
             take = len(entries) if per_point <= 0 else int(round(room / per_point))
-            if len(bins) == n_jobs or take >= len(entries) or len(entries) - take < least:
+            if whole or len(bins) == n_jobs or take >= len(entries) or len(entries) - take < least:
                 take = len(entries)  # the last job, or the walk fits, or the rest is tiny
             elif take < least:
                 if bins[-1]:  # too little room for a piece: start the next job

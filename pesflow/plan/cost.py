@@ -137,6 +137,7 @@ def scf_seconds(size: Size, scale: float = 1.0) -> float:
 
 def step_seconds(cls: str, size: Size, scale: float = 1.0, grid_level: int = 3) -> float:
     """Model seconds a family adds to its SCF at one point."""
+    # A class without terms here (excited states) adds nothing: its walks are kept whole.
     return scale * sum(_term(c, size, grid_level) for c in FAMILY_COST.get(cls, ()))
 
 
@@ -301,6 +302,8 @@ def estimate(points: pd.DataFrame, sizes, grid_level: int = 3) -> pd.DataFrame:
     scales = calibrate(timed)
     medians = timed.groupby(["molecule", "level"])["wall_s"].median().to_dict()
     pending = pts[pts["status"] == "pending"]
+    if "state" in pending:  # the states of a multi-state level come from one calculation
+        pending = pending[pending["state"] == 0]
     rows = []
     for level, sub in pending.groupby("level", sort=False):
         seconds, sources = 0.0, set()

@@ -23,7 +23,7 @@ import pandas as pd
 
 from pesflow.coordinates import geometry as coordinates
 from pesflow.coordinates.kinds import column_names
-from pesflow.engine import method_info
+from pesflow.engine import method_info, state_record
 from pesflow.plan import keys
 
 # A method's order within its family's computation and its cost weight relative to
@@ -205,10 +205,15 @@ def _fragment_sets(campaign, start_id):
         for scan in campaign.scans.values():
             if mol.name in scan.molecules:
                 levels += [lvl for lvl in scan.levels if lvl not in levels]
-        # A level whose fragments have no consistent counterpart (an active space by
-        # counts) takes D_e from its curve's end instead.
-        levels = [lvl for lvl in levels if method_info(lvl.method).fragments == "separate"]
-        levels = tuple(levels)
+        # Excited states of isolated fragments are no dissociation limit of a curve's
+        # states; a level whose fragments have no consistent counterpart (an active
+        # space by counts) takes D_e from its curve's end instead.
+        levels = tuple(
+            lvl
+            for lvl in levels
+            if method_info(lvl.method).n_states == 1
+            and method_info(lvl.method).fragments == "separate"
+        )
         for f, frag in enumerate(mol.fragments):
             atoms = list(frag["atoms"])
             sets.append(
@@ -267,7 +272,7 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
     sets = _scan_sets(campaign, 0)
     sets += _counterpoise_sets(campaign, list(sets), len(sets))
     sets += _fragment_sets(campaign, len(sets))
-    columns = {k: [] for k in ("set_id", "walk", "method", "basis", "key")}
+    columns = {k: [] for k in ("set_id", "walk", "method", "basis", "state", "key")}
     family_engine = {}
     for gs in sets:
         settings = campaign.engine_settings(gs.scan if gs.role == "scan" else gs.of_scan or None)
@@ -295,11 +300,15 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
             return [keys.combine(prefix, d) for d in gs.digests]
 
         for level in (lvl for lvl in gs.levels if not lvl.members):
-            columns["key"].extend(point_keys(level.method, level.basis))
-            columns["set_id"].append(np.full(len(walks), gs.set_id))
-            columns["walk"].append(walks)
-            columns["method"].extend([level.method] * len(walks))
-            columns["basis"].extend([level.basis] * len(walks))
+            # A multi-state method has one row (and key) per electronic state.
+            for state in level_states(level.method):
+                record = state_record(level.method, state)
+                columns["key"].extend(point_keys(record, level.basis))
+                columns["set_id"].append(np.full(len(walks), gs.set_id))
+                columns["walk"].append(walks)
+                columns["method"].extend([level.method] * len(walks))
+                columns["basis"].extend([level.basis] * len(walks))
+                columns["state"].extend([state or 0] * len(walks))
             for extra in method_info(level.method).byproducts:
                 if (extra, level.basis) not in levels:
                     gs.byproduct_keys[(level.basis, extra)] = point_keys(extra, level.basis)
@@ -310,6 +319,7 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
             "walk": np.concatenate(columns["walk"]) if columns["walk"] else np.zeros(0, int),
             "method": columns["method"],
             "basis": columns["basis"],
+            "state": np.asarray(columns["state"], dtype=int),
             "key": columns["key"],
         }
     )
@@ -337,6 +347,19 @@ def expand(campaign, engine: str = "pyscf", version: str | None = None) -> Plan:
         family_engine=family_engine,
         engine_versions=versions,
     )
+
+
+def level_states(method: str) -> list[int | None]:
+    """The electronic states a level's points are stored for: ``[None]`` for a
+    single-state method (its record is named by the method alone), ``[0, 1, ..., n]``
+    for a multi-state one (one record each, :func:`pesflow.engine.state_record`)."""
+    n_states = method_info(method).n_states
+    return [None] if n_states == 1 else list(range(n_states))
+
+
+def record_name(method: str, state: int) -> str:
+    """The record name (the key of a batch's ``{record: key}``) of a plan row."""
+    return state_record(method, int(state) if method_info(method).n_states > 1 else None)
 
 
 def points_frame(plan: Plan) -> pd.DataFrame:
@@ -392,8 +415,10 @@ def make_batches(
     groups = []
     for (set_id, basis, family), sub in pending.groupby(["set_id", "basis", "family"], sort=True):
         entries = {}
-        for walk, method, key in zip(sub["walk"].to_numpy(), sub["method"], sub["key"]):
-            entries.setdefault(int(walk), {})[method] = key
+        for walk, method, state, key in zip(
+            sub["walk"].to_numpy(), sub["method"], sub["state"], sub["key"]
+        ):
+            entries.setdefault(int(walk), {})[record_name(method, state)] = key
         ordered = []
         for walk in sorted(entries):
             methods = dict(sorted(entries[walk].items(), key=lambda mk: method_info(mk[0]).order))

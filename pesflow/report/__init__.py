@@ -36,6 +36,7 @@ from pesflow.report.stats import (
     level_statistics,
 )
 from pesflow.report.tables import QUANTITIES, QUANTITY, ReportData, collect
+from pesflow.tables.states import states_as_levels
 
 __all__ = [
     "QUANTITIES",
@@ -130,6 +131,7 @@ def build_report(
     fig_dir = out / "figures"
     fig_dir.mkdir(parents=True, exist_ok=True)
     data = collect(campaign, plan, points, summary, stationary=stationary)
+    points = states_as_levels(points, summary)[0]  # each excited state a level, as in data
     figures = make_figures(campaign, points, data)
     paths: dict[str, Path] = {}
     for key, name, attr in _CSV:
@@ -183,6 +185,7 @@ def terminal_summary(campaign, summary: pd.DataFrame, console, *, paths=None, po
             {"molecule": [], "scan": [], "level": [], "status": [], "role": [], "method": []}
         )
     data = collect(campaign, None, points, summary, basis_counts={})
+    summary = states_as_levels(None, summary)[1]
     ref = data.reference_level
     console.print(
         Text(

@@ -25,6 +25,7 @@ from pesflow.analysis.symmetry import Symmetry
 from pesflow.coordinates.kinds import KINDS, UNIT_TEXT, column_names
 from pesflow.report.stats import common_curve_statistics, level_statistics
 from pesflow.tables.points import status_counts
+from pesflow.tables.states import states_as_levels
 from pesflow.tables.summary import ENVELOPE
 
 #: The quantities the report can show, in the order it shows them (from the registry).
@@ -528,9 +529,13 @@ def collect(
     """
     ref_raw = campaign.spec.compare.reference_level
     reference_level = ref_raw.strip().lower() if ref_raw else None
-    levels = [lvl.label for lvl in campaign.levels]
-    level_method = {lvl.label: lvl.method for lvl in campaign.levels}
-    level_basis = {lvl.label: lvl.basis for lvl in campaign.levels}
+    # Each excited state of a multi-state level is compared as a level of its own.
+    points, summary, state_levels = states_as_levels(points, summary)
+    levels = [s for lvl in campaign.levels for s in [lvl.label, *state_levels.get(lvl.label, [])]]
+    level_method = {s: lvl.method for lvl in campaign.levels
+                    for s in [lvl.label, *state_levels.get(lvl.label, [])]}  # fmt: skip
+    level_basis = {s: lvl.basis for lvl in campaign.levels
+                   for s in [lvl.label, *state_levels.get(lvl.label, [])]}  # fmt: skip
     kinds = _curve_kinds(campaign)
     refs = list(campaign.spec.compare.reference_values)
     if summary is None or summary.empty:

@@ -18,9 +18,10 @@ from pesflow.tables.derived import (
     add_interaction_columns,
     derived_levels,
 )
+from pesflow.tables.states import add_state_columns
 
 #: Columns of the exported points table, in order (coordinate columns follow ``scan``).
-LEADING = ["campaign", "molecule", "scan", "role", "level", "method", "basis", "walk"]
+LEADING = ["campaign", "molecule", "scan", "role", "level", "method", "basis", "state", "walk"]
 TRAILING = [
     "status",
     "energy_hartree",
@@ -78,6 +79,7 @@ def points_table(plan: Plan, store, columns=None) -> pd.DataFrame:
     if derived:  # CBS levels: rows made from their members' stored energies
         frame = add_derived_rows(plan, frame)
     frame["status"] = _status_of(frame["converged"])
+    frame = add_state_columns(frame, plan)
     if "extra_json" in frame.columns:
         occupations = natural_occupations(frame["extra_json"])
         if occupations.notna().any():

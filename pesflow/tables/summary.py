@@ -27,6 +27,7 @@ from pesflow.analysis.symmetry import Symmetry, pair_deviation
 from pesflow.analysis.vibration import few_levels_flag
 from pesflow.coordinates.kinds import KINDS, column_names
 from pesflow.engine import method_info
+from pesflow.tables.states import add_state_quantities
 
 _RESTRICTED = {"RHF", "RKS"}
 
@@ -300,7 +301,9 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
     rows = []
     scans = table[table["role"] == "scan"]
     scans = scans.assign(set_id=_set_ids(plan, scans))
-    for (set_id, level), sub in scans.groupby(["set_id", "level"], sort=False):
+    if "state" not in scans:
+        scans = scans.assign(state=0)
+    for (set_id, level, state), sub in scans.groupby(["set_id", "level", "state"], sort=False):
         gs = plan.geometry_sets[int(set_id)]
         if len(gs.coordinate_kinds) == 1:
             row = _curve_row(campaign, gs, sub, table)
@@ -319,6 +322,7 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
             "level": level,
             "method": sub["method"].iloc[0],
             "basis": sub["basis"].iloc[0],
+            "state": int(state),
             "coordinates": ", ".join(c.label for c in campaign.scans[gs.scan].coordinates),
             "n_done": int((sub["status"] == "done").sum()),
             "n_failed": int((sub["status"] == "failed").sum()),
@@ -331,6 +335,7 @@ def summary_table(campaign, plan, table: pd.DataFrame) -> pd.DataFrame:
     summary = pd.DataFrame(rows)
     if summary.empty:
         return summary
+    summary = add_state_quantities(summary, plan, scans)
     summary = _harmonise_level_advice(summary)
     return add_deviations(summary, campaign.spec.compare.reference_level)
 
@@ -421,14 +426,16 @@ def add_deviations(summary: pd.DataFrame, reference_level: str | None) -> pd.Dat
     reference_level = reference_level.strip().lower()
     cols = [c for c in COMPARED if c in summary.columns]
     ucols = [uncertainty_column(c) for c in cols if uncertainty_column(c) in summary.columns]
+    # A multi-state level's states are compared state by state with the reference's.
+    by_state = "state" in summary.columns
     refs = {
-        (r["molecule"], r["scan"]): r
+        _reference_key(r, by_state): r
         for _, r in summary[summary["level"] == reference_level].iterrows()
     }
     devs = {c: np.full(len(summary), np.nan) for c in cols}
     u_refs = {u: np.full(len(summary), np.nan) for u in ucols}
     for i, (_, row) in enumerate(summary.iterrows()):
-        ref = refs.get((row["molecule"], row["scan"]))
+        ref = refs.get(_reference_key(row, by_state))
         if ref is None:
             continue
         symmetry = Symmetry.of_row(row).common(Symmetry.of_row(ref))
@@ -485,3 +492,11 @@ def _float(value) -> float:
         return float(value)
     except (TypeError, ValueError):
         return float("nan")
+
+
+def _reference_key(row, by_state: bool) -> tuple:
+    """The (molecule, scan[, state]) a summary row is compared with the reference on."""
+    if not by_state:
+        return (row["molecule"], row["scan"])
+    state = _float(row.get("state"))
+    return (row["molecule"], row["scan"], int(state) if np.isfinite(state) else 0)

@@ -16,10 +16,18 @@ import time
 
 import numpy as np
 
-from pesflow.engine import EngineSettings, Geometry, PointResult, method_info
+from pesflow.engine import (
+    MULTIREFERENCE_METHODS,
+    EngineSettings,
+    Geometry,
+    PointResult,
+    method_info,
+    split_state,
+    state_record,
+)
 from pesflow.engine import relax as relaxation
 from pesflow.engine.base import Engine, EngineWalk, error_line
-from pesflow.engine.pyscf import correlated, methods
+from pesflow.engine.pyscf import correlated, excited, methods
 from pesflow.engine.pyscf.scf import (
     SCF_LABELS,
     build_mole,
@@ -29,7 +37,8 @@ from pesflow.engine.pyscf.scf import (
     family_kind,
     resolve_reference,
 )
-from pesflow.errors import EngineSetupError
+from pesflow.errors import ConvergenceError, EngineSetupError
+from pesflow.units import HARTREE_TO_EV
 
 
 class PySCFEngine(Engine):
@@ -70,7 +79,10 @@ class PySCFEngine(Engine):
         unknown method, methods of different scf families, a method of another
         engine, or settings that are not :class:`~pesflow.engine.EngineSettings`.
         """
-        if not isinstance(methods, str) and methods and method_info(methods[0]).options:
+        # casscf/nevpt2 levels walk by neighbour orbitals; excited-state methods (which
+        # also take level options) are followed by PySCFWalk itself.
+        first = method_info(methods[0]) if not isinstance(methods, str) and methods else None
+        if first is not None and first.cost_class in MULTIREFERENCE_METHODS:
             from pesflow.engine.pyscf.multireference import MultireferenceWalk
 
             return MultireferenceWalk(settings, basis, methods)
@@ -97,6 +109,11 @@ class PySCFWalk(EngineWalk):
         self.basis = basis
         self.methods, self.family = _split_methods(methods)
         self.requested = list(dict.fromkeys(method_info(m).name for m in methods))
+        self.excited = {}  # excited-state method -> the previous point's StateSet
+
+    def restart(self, state=None):
+        super().restart(state)
+        self.excited = {}
 
     def compute(self, geometry, methods=None):
         """Compute one point for the walk's methods (or ``methods``, of the same family).
@@ -134,7 +151,10 @@ class PySCFWalk(EngineWalk):
             ladder = converge_scf(geometry, self.basis, family, kind, settings, guess)
         except Exception as exc:
             wall_s = time.perf_counter() - start
-            return {m: PointResult.failed(m, error_line(exc), label, wall_s=wall_s) for m in wanted}
+            return {
+                m: PointResult.failed(m, error_line(exc), label, wall_s=wall_s)
+                for m in _record_names(wanted)
+            }
 
         if not ladder.converged:
             reason = "SCF did not converge after rungs: " + ", ".join(settings.scf_ladder)
@@ -144,7 +164,7 @@ class PySCFWalk(EngineWalk):
                 m: PointResult.failed(
                     m, reason, label, ladder.attempts, ladder.cycles, ladder.wall_s
                 )
-                for m in wanted
+                for m in _record_names(wanted)
             }
 
         mf = ladder.mf
@@ -167,10 +187,14 @@ class PySCFWalk(EngineWalk):
             )
 
         records = {}
+        ccsd = {}  # the one CCSD of this point, shared by ccsd, ccsd(t) and eom-ccsd
         for method in wanted:
             if method in records:
                 continue
-            if method == family:
+            level = excited.parse(method)
+            if level is not None:
+                records.update(self._excited_records(mf, level, record, ccsd, frozen, geometry))
+            elif method == family:
                 records[method] = record(method, mf.e_tot, ladder.wall_s)
             elif method == "mp2":
                 step_start = time.perf_counter()
@@ -180,12 +204,7 @@ class PySCFWalk(EngineWalk):
                     energy, error = math.nan, error_line(exc)
                 records[method] = record(method, energy, time.perf_counter() - step_start, error)
             else:  # ccsd and ccsd(t), from one CCSD
-                step_start = time.perf_counter()
-                try:
-                    mycc, error = correlated.run_ccsd(mf, frozen, settings), None
-                except Exception as exc:
-                    mycc, error = None, error_line(exc)
-                ccsd_wall_s = time.perf_counter() - step_start
+                mycc, error, ccsd_wall_s = self._ccsd(mf, frozen, ccsd)
                 for name in ("ccsd", "ccsd(t)"):
                     if name in wanted and error:
                         records[name] = record(name, math.nan, ccsd_wall_s, error)
@@ -203,7 +222,88 @@ class PySCFWalk(EngineWalk):
                         "ccsd(t)", energy, ccsd_wall_s + triples_wall_s, error
                     )
         self.state = np.array(mf.make_rdm1(), dtype=float)
-        return {m: records[m] for m in wanted}
+        # A multi-state method gives one record per state (method#k).
+        return {
+            name: result
+            for m in wanted
+            for name, result in records.items()
+            if name == m or split_state(name)[0] == m
+        }
+
+    def _ccsd(self, mf, frozen, shared):
+        """The point's CCSD (computed once): (object or None, error or None, wall s)."""
+        if not shared:
+            step_start = time.perf_counter()
+            try:
+                mycc, error = correlated.run_ccsd(mf, frozen, self.settings), None
+            except Exception as exc:
+                mycc, error = None, error_line(exc)
+            shared.update(mycc=mycc, error=error, wall_s=time.perf_counter() - step_start)
+        return shared["mycc"], shared["error"], shared["wall_s"]
+
+    def _plain_scf(self, mf):
+        """A plain SCF object holding ``mf``'s converged solution: the ladder's last may
+        be a second-order wrapper, whose response functions the excited states must not
+        use."""
+        kind = resolve_reference(
+            self.settings.reference, mf.mol.spin + 1, self.settings.broken_symmetry
+        )
+        plain = build_scf(mf.mol, self.family, kind, self.settings)
+        for name in ("mo_coeff", "mo_occ", "mo_energy", "e_tot", "converged"):
+            setattr(plain, name, getattr(mf, name))
+        if self.family != "hf":
+            plain.grids.build()
+        return plain
+
+    def _excited_records(self, mf, level, record, ccsd, frozen, geometry):
+        """One record per state of an excited-state level (see
+        :mod:`pesflow.engine.pyscf.excited`); the states become the walk's
+        ``excited`` state for the next point's overlaps."""
+        method = level.name
+        names = [state_record(method, k) for k in range(level.states + 1)]
+        previous = self.excited.pop(method, None)
+        wall_s = 0.0
+        try:
+            if level.kind == "eom":
+                mycc, error, wall_s = self._ccsd(mf, frozen, ccsd)
+                if error:
+                    raise ConvergenceError(f"CCSD under EOM-CCSD: {error}")
+                step_start = time.perf_counter()
+                states = excited.run_eom(mycc, level)
+            else:
+                step_start = time.perf_counter()
+                states = excited.run_td(self._plain_scf(mf), level)
+        except Exception as exc:
+            wall_s += time.perf_counter() - step_start if "step_start" in locals() else 0.0
+            return {n: record(n, math.nan, wall_s, error_line(exc)) for n in names}
+        wall_s += time.perf_counter() - step_start
+        overlaps = None
+        if previous is not None and previous.mol.nelectron == states.mol.nelectron:
+            overlaps = excited.state_overlaps(previous, states)
+        self.excited[method] = states
+        closed = mf.mol.spin == 0 and np.asarray(mf.mo_occ).ndim == 1
+        out = {}
+        for k, name in enumerate(names):
+            ok = bool(states.converged[k])
+            error = None if ok else f"excited state {k} did not converge"
+            out[name] = record(name, states.energies_hartree[k], wall_s, error)
+            info = {
+                "index": k,
+                "label": level.label(k, closed),
+                "spin": ("singlet" if k == 0 else level.spin) if closed else "",
+                "excitation_energy_ev": float(
+                    (states.energies_hartree[k] - states.energies_hartree[0]) * HARTREE_TO_EV
+                ),
+                "oscillator_strength": 0.0 if k == 0 else
+                float(states.oscillator_strengths[k - 1]),
+            }  # fmt: skip
+            if k > 0 and overlaps is not None:
+                info["neighbour_overlaps"] = [float(v) for v in overlaps[:, k - 1]]
+                info["neighbour_positions_angstrom"] = (
+                    previous.mol.atom_coords(unit="Angstrom").ravel().tolist()
+                )
+            out[name].extra = {"state": info}
+        return out
 
     def relax_from(self, start_geometry, constraints):
         """Relax one point from ``start_geometry``: see
@@ -303,6 +403,15 @@ class PySCFWalk(EngineWalk):
         elif record.error:
             info["error"] = record.error
         return record
+
+
+def _record_names(methods):
+    # The record names of methods: one per state for a multi-state method (method#k).
+    names = []
+    for m in methods:
+        n_states = method_info(m).n_states
+        names += [m] if n_states == 1 else [state_record(m, k) for k in range(n_states)]
+    return names
 
 
 def _check_inputs(geometry, basis):

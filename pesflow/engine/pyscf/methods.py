@@ -36,6 +36,18 @@ _WAVEFUNCTION = {
 _DFT = (0, 1.0, 3, 0.4, True, ())
 
 
+#: Excited-state methods (see :mod:`pesflow.engine.pyscf.excited`): order in their SCF
+#: family (after the ground-state methods), cost weight relative to the SCF, cost
+#: exponent and default prefactor (wall s at 50 basis functions, one thread; measured
+#: here with PySCF 2.14 on LiH/6-31G and H2O/cc-pVDZ, 3 states: TDA about 1-2 SCFs,
+#: EOM-CCSD about 3 CCSDs).
+_EXCITED = {
+    "tda": (1, 2.0, 4, 0.8),
+    "tddft": (1, 3.0, 4, 1.2),
+    "cis": (1, 2.0, 4, 0.3),
+    "tdhf": (1, 3.0, 4, 0.4),
+    "eom-ccsd": (4, 20.0, 6, 5.0),
+}
 #: Multireference methods: order in their CASSCF family, cost weight relative to an
 #: SCF, cost exponent and default prefactor (wall s at 50 basis functions, one thread;
 #: measured here with PySCF 2.14 on N2 CAS(6,6)/6-31G, 18 functions: CASSCF about
@@ -54,13 +66,16 @@ _MULTIREFERENCE_SETTINGS = ("conv_tol", "max_cycle", "scf_ladder")
 def method_info(name: str) -> MethodInfo | None:
     """The :class:`~pesflow.engine.MethodInfo` of a PySCF method, or None when PySCF
     cannot compute ``name``.  Raises EngineSetupError for a functional whose
-    dispersion correction needs the missing ``pyscf-dispersion`` package, and for a
-    malformed multireference name (``casscf(6,6)``, see
-    :mod:`pesflow.engine.pyscf.multireference`)."""
+    dispersion correction needs the missing ``pyscf-dispersion`` package, for an
+    excited-state method on something that is not a functional, and for a malformed
+    multireference name (``casscf(6,6)``, see :mod:`pesflow.engine.pyscf.multireference`)."""
     lowered = name.strip().lower()
     compact = "".join(lowered.split())
     if lowered.split("(")[0].strip() in _MULTIREFERENCE:
         return _multireference_info(lowered)
+    excited = _excited_info(compact, name)
+    if excited is not None:
+        return excited
     if compact in _WAVEFUNCTION:
         order, weight, exponent, prefactor, gradients, byproducts = _WAVEFUNCTION[compact]
         dropped = ("grid_level",) if compact != "hf" else ("grid_level", "frozen_core")
@@ -79,6 +94,31 @@ def method_info(name: str) -> MethodInfo | None:
         cost_class="dft", cost_exponent=exponent, cost_prefactor_s=prefactor,
         needs_basis=True, has_gradients=gradients, byproducts=byproducts,
         settings=tuple(s for s in _ALL_SETTINGS if s != "frozen_core"),
+    )  # fmt: skip
+
+
+def _excited_info(compact: str, given: str) -> MethodInfo | None:
+    from pesflow.engine.pyscf import excited
+
+    level = excited.parse(compact)
+    if level is None:
+        return None
+    if level.prefix in ("tda", "tddft"):
+        functional = _canonical_functional(level.ground, given)
+        if functional is None or functional in _WAVEFUNCTION:
+            raise EngineSetupError(
+                f"{level.prefix}- must be followed by a DFT functional (e.g. "
+                f"{level.prefix}-b3lyp); got {level.ground!r} (on HF use cis or tdhf)"
+            )
+    order, weight, exponent, prefactor = _EXCITED[level.prefix]
+    base = method_info(level.ground)
+    return MethodInfo(
+        name=level.name, engine="pyscf", family=base.family, order=order,
+        weight=weight * (1 + 0.2 * level.states), cost_class=level.prefix,
+        cost_exponent=exponent, cost_prefactor_s=prefactor, needs_basis=True,
+        has_gradients=False, byproducts=("ccsd",) if level.prefix == "eom-ccsd" else (),
+        settings=base.settings, n_states=level.states + 1, options=excited.LEVEL_OPTIONS,
+        follow_states=level.follow,
     )  # fmt: skip
 
 
@@ -107,13 +147,19 @@ def _multireference_info(lowered: str) -> MethodInfo:
 
 
 def method_with_options(method: str, options: dict) -> str:
-    """The canonical name of a PySCF method with level options (``casscf`` with
-    ``{"active": [6, 6]}`` -> ``casscf(6,6)``); EngineSetupError when the method takes
-    none or an option is wrong."""
+    """The canonical name of a PySCF method with level options: a multireference one
+    (``casscf`` with ``{"active": [6, 6]}`` -> ``casscf(6,6)``) or an excited-state one
+    (``tda-b3lyp`` with ``{"states": 4}`` -> ``tda-b3lyp(singlets=4)``); EngineSetupError
+    when the method takes none or an option is wrong."""
     if method in _MULTIREFERENCE:
         from pesflow.engine.pyscf import multireference
 
         return multireference.level_name(method, options)
+    from pesflow.engine.pyscf import excited
+
+    level = excited.parse(method)
+    if level is not None:
+        return excited.level_with_options(level.prefix, level.ground, options).name
     if options:
         raise EngineSetupError(f"{method} takes no level options (got {', '.join(options)})")
     return method
