@@ -136,26 +136,6 @@ def _print_sets_and_rules(campaign) -> None:
     console.print(out)
 
 
-def _plan_table(plan, store, done, sample_per_curve=20):
-    """Points with their status and, for a sample of the stored ones, their timing.
-
-    Planning must stay cheap on a large store: it reads the timings of at most
-    ``sample_per_curve`` stored points per molecule and level, not every record.
-    """
-    import numpy as np
-
-    pts = plan.points[["key", "molecule", "level", "method", "basis"]].copy()
-    is_done = pts["key"].isin(done)
-    pts["status"] = np.where(is_done, "done", "pending")
-    sample = pts[is_done].groupby(["molecule", "level"], sort=False).head(sample_per_curve)
-    if sample.empty:
-        pts["wall_s"] = np.nan
-        return pts
-    timing = store.load(keys=set(sample["key"]), columns=("wall_s", "converged")).to_pandas()
-    timing = timing.loc[timing["converged"].astype(bool), ["key", "wall_s"]]
-    return pts.merge(timing, on="key", how="left")
-
-
 def _print_rule_scans(campaign, plan, shown=12) -> None:
     """Per scan chosen by rule: the coordinates it expanded to (by name), its molecules and
     its points (the first ``shown`` names; the rest counted)."""

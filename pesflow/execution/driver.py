@@ -78,7 +78,6 @@ class RunOptions:
     threads_per_batch: int = 1
     mem_mb_per_batch: int = 4000
     runtime_min_per_batch: int = 600
-    batches_per_core: int = 3
     #: estimated seconds of work per Snakemake job (None: a local or a cluster default,
     #: see :mod:`pesflow.plan.batches`)
     target_job_s: float | None = None
