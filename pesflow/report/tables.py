@@ -679,10 +679,10 @@ STATIONARY_EXPLAIN = (
     "([0, 180/n] with the mirror), a symmetric 2-D grid with q1 ≤ q2. Points equivalent by "
     "that symmetry are one point (copies: how many the curve has). Δ: this level minus the "
     "reference level's point of the same kind at the nearest equivalent position. "
-    "stationary.csv has every row, copies included."
+    "stationary.csv has every row, copies included, and the energies in kJ/mol and eV too."
 )
 #: Headers of the report's stationary-point tables (after level, kind and the position).
-STATIONARY_ENERGY_HEAD = ("E − E_min (kcal/mol)", "(kJ/mol)", "(cm⁻¹)", "(eV)")
+STATIONARY_ENERGY_HEAD = ("E − E_min (kcal/mol)", "(cm⁻¹)")
 
 
 def stationary_tables(d: ReportData) -> list[tuple[str, str, list[str], list[list[str]]]]:
@@ -693,8 +693,9 @@ def stationary_tables(d: ReportData) -> list[tuple[str, str, list[str], list[lis
     if st is None or st.empty:
         return []
     out = []
-    units = ("kcal_mol", "kj_mol", "cm-1", "ev")
-    decimals = (2, 2, 1, 4)
+    # The page shows kcal/mol and cm-1 (it must fit an 800-pixel window); the CSV has all four.
+    units = ("kcal_mol", "cm-1")
+    decimals = (2, 1)
     for (molecule, scan), sub in st.groupby(["molecule", "scan"], sort=False):
         position = [c for c in sub.columns if c.endswith(("_angstrom", "_degree"))]
         position = [
