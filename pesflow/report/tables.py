@@ -315,11 +315,14 @@ def _reference_values_table(values, reference_specs, levels, summary):
     return pd.DataFrame(rows, columns=columns)
 
 
-def _statistics(values, reference_values, levels, reference_level):
+def _statistics(values, reference_values, levels, reference_level, statistic=level_statistics):
+    """``statistic`` (:func:`~pesflow.report.stats.level_statistics`, or
+    :func:`~pesflow.report.stats.common_curve_statistics` for the ranking) against the reference
+    level and against the user's reference values, in one table."""
     frames = []
     if reference_level and len(values):
         frames.append(
-            level_statistics(
+            statistic(
                 values,
                 against=reference_level,
                 deviation_column="dev_reference_level",
@@ -328,10 +331,10 @@ def _statistics(values, reference_values, levels, reference_level):
             )
         )
     if len(reference_values):
-        frames.append(level_statistics(reference_values, against="reference values", levels=levels))
+        frames.append(statistic(reference_values, against="reference values", levels=levels))
     frames = [f for f in frames if len(f)]
     if not frames:
-        return level_statistics(
+        return statistic(
             pd.DataFrame(columns=["quantity", "level", "molecule", "scan", "deviation"]),
             against="",
             levels=[],
@@ -384,31 +387,6 @@ def _ordered_status(points, molecules, levels):
     if not len(points):
         return pd.DataFrame(columns=["molecule", "level", "done", "failed", "pending"])
     return status_counts(points, molecules, levels)
-
-
-def _ranking(values, reference_values, levels, reference_level):
-    frames = []
-    if reference_level and len(values):
-        frames.append(
-            common_curve_statistics(
-                values,
-                against=reference_level,
-                deviation_column="dev_reference_level",
-                levels=levels,
-                exclude_level=reference_level,
-            )
-        )
-    if len(reference_values):
-        frames.append(
-            common_curve_statistics(reference_values, against="reference values", levels=levels)
-        )
-    frames = [f for f in frames if len(f)]
-    if not frames:
-        return common_curve_statistics(
-            pd.DataFrame(columns=["quantity", "level", "molecule", "scan", "deviation"]),
-            against="",
-        )
-    return pd.concat(frames, ignore_index=True)
 
 
 def _cost_table(points, levels, reference_level):
@@ -596,7 +574,9 @@ def collect(
         ),
         convergence=_convergence(values, campaign, basis_counts),
         totals={s: int(counts.get(s, 0)) for s in ("done", "failed", "pending")},
-        ranking=_ranking(values, reference_values, levels, reference_level),
+        ranking=_statistics(
+            values, reference_values, levels, reference_level, common_curve_statistics
+        ),
         sets=sets,
         set_members=set_members,
         stationary=stationary if stationary is not None else pd.DataFrame(),

@@ -65,3 +65,33 @@ def direct_energy(row):
     if row["method"] == "mp2":
         e = mp.MP2(mf).run().e_tot
     return e
+
+
+def store_failed_hf_point(campaign, plan, gs, target):
+    """Store the record a failed HF/STO-3G SCF leaves for the point ``target`` (a row of the
+    points table) of geometry set ``gs``: what a real failure writes, without waiting for one."""
+    from pesflow.store import PointStore, make_record
+
+    symbols, positions, charge, mult = plan.geometry(gs.set_id, int(target["walk"]))
+    PointStore(campaign.store_path).write(
+        make_record(
+            key=target["key"],
+            method="hf",
+            basis="sto-3g",
+            charge=charge,
+            multiplicity=mult,
+            symbols=" ".join(symbols),
+            positions_angstrom=positions,
+            energy_hartree=float("nan"),
+            converged=False,
+            scf_cycles=100,
+            wall_s=1.5,
+            step_wall_s=1.5,
+            s2=float("nan"),
+            reference="RHF",
+            engine="pyscf",
+            engine_version=plan.engine_version,
+            settings_json=plan.method_key("hf"),
+            error="SCF did not converge in 100 cycles",
+        )
+    )

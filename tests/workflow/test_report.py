@@ -24,10 +24,10 @@ from pesflow.campaign import load_campaign
 from pesflow.plan.expand import expand
 from pesflow.report import build_report, terminal_summary
 from pesflow.report.tables import QUANTITY, fmt_dev, split_flags
-from pesflow.store.point_store import PointStore, make_record
+from pesflow.store.point_store import PointStore
 from pesflow.tables.points import points_table
 from pesflow.tables.summary import summary_table
-from tests.workflow.helpers import pesflow
+from tests.workflow.helpers import pesflow, store_failed_hf_point
 
 pytestmark = [
     pytest.mark.workflow,
@@ -297,30 +297,7 @@ def test_partial_campaign_is_reported_honestly(computed, tmp_path):
     gs = next(
         g for g in plan.geometry_sets if (g.molecule, g.scan) == ("hydrogen_fluoride", "stretch")
     )
-    symbols, positions, charge, mult = plan.geometry(gs.set_id, int(target["walk"]))
-    store = PointStore(campaign.store_path)
-    store.write(
-        make_record(
-            key=target["key"],
-            method="hf",
-            basis="sto-3g",
-            charge=charge,
-            multiplicity=mult,
-            symbols=" ".join(symbols),
-            positions_angstrom=positions,
-            energy_hartree=float("nan"),
-            converged=False,
-            scf_cycles=100,
-            wall_s=1.5,
-            step_wall_s=1.5,
-            s2=float("nan"),
-            reference="RHF",
-            engine="pyscf",
-            engine_version=plan.engine_version,
-            settings_json=plan.method_key("hf"),
-            error="SCF did not converge in 100 cycles",
-        )
-    )
+    store_failed_hf_point(campaign, plan, gs, target)
     campaign, plan, points, summary = tables(spec)
     counts = points["status"].value_counts()
     assert counts["done"] == 69 and counts["failed"] == 1
