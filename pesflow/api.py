@@ -220,6 +220,8 @@ class RunResult:
     status: pd.DataFrame = field(default_factory=pd.DataFrame)
     failed_points: pd.DataFrame = field(default_factory=pd.DataFrame)
     quarantined: list = field(default_factory=list)
+    #: the plan after the run (with the points adaptive refinement added), or None
+    plan: object = None
 
     def _total(self, column) -> int:
         return int(self.status[column].sum()) if len(self.status) else 0
@@ -264,7 +266,35 @@ def warning_counts(campaign, plan, store) -> pd.DataFrame:
     return frame.groupby(["molecule", "level"], sort=False, as_index=False)["warnings"].sum()
 
 
-def run_campaign(
+def run_campaign(campaign, plan, store, *, on_refine=None, **options) -> RunResult:
+    """Compute what is missing of ``campaign`` (the work of ``pesflow run``); with refined
+    scans (README "Adaptive grids"), then round after round: decide and log the new points
+    (:func:`pesflow.execution.refinement.refine_round`), plan again and compute them, until
+    every target is met or its budget spent.  ``options``: those of :func:`_run_round`;
+    ``on_refine(round_result)`` is called after each round that added points.  The result
+    counts every round; ``result.plan`` is the last plan."""
+    result = _run_round(campaign, plan, store, **options)
+    refined = any(scan.refine for scan in campaign.scans.values())
+    while refined and not result.interrupted and result.returncode == 0:
+        from pesflow.execution.refinement import refine_round
+        from pesflow.plan.expand import expand
+
+        decided = refine_round(campaign, plan, store)
+        if not decided.added:
+            break
+        if on_refine is not None:
+            on_refine(decided)
+        plan = expand(campaign)
+        more = _run_round(campaign, plan, store, **{**options, "retry_failed": False})
+        more.to_compute += result.to_compute
+        more.jobs += result.jobs
+        more.quarantined = result.quarantined + more.quarantined
+        result = more
+    result.plan = plan
+    return result
+
+
+def _run_round(
     campaign,
     plan,
     store,
@@ -276,7 +306,7 @@ def run_campaign(
     on_start=None,
     on_progress=None,
 ) -> RunResult:
-    """Compute what is missing of ``campaign`` (the work of ``pesflow run``).
+    """Compute what is missing of ``plan`` (one round of ``pesflow run``).
 
     Args:
         cores: cores for local execution (default: all); ``profile``: a Snakemake profile
@@ -520,7 +550,7 @@ class Campaign:
         ``on_progress(finished, failed, total)`` is called while it runs.  Points that
         fail are stored as failed (``result.failed``), not raised.
         """
-        return run_campaign(
+        result = run_campaign(
             self.campaign,
             self._expanded(),
             self._store(),
@@ -530,6 +560,8 @@ class Campaign:
             retry_failed=retry_failed,
             on_progress=on_progress,
         )
+        self._plan = result.plan  # refinement may have added points
+        return result
 
     def status(self) -> pd.DataFrame:
         """Done / failed / pending points per molecule and level (as ``pesflow status``)."""

@@ -408,9 +408,13 @@ def cmd_run(args) -> int:
             retry_failed=args.retry_failed,
             on_start=on_start,
             on_progress=on_progress,
+            on_refine=lambda r: console.print(
+                f"adaptive refinement: {r.added} points added (pesflow report shows why)"
+            ),
         )
     finally:
         progress.stop()
+    plan = result.plan or plan
     _report_quarantined(store, result.quarantined)
     if not result.jobs:
         console.print("nothing to compute: every point is in the store")

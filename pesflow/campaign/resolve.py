@@ -400,7 +400,18 @@ def _resolve_scan(name, spec: ScanSpec, molecules, err, names=None, notes=None) 
         moving=moving,
         relax=spec.relax,
         counterpoise=spec.counterpoise,
+        **_refine_fields(spec),
     )
+
+
+def _refine_fields(spec: ScanSpec) -> dict:
+    """A refined scan's targets and point budget (:mod:`pesflow.analysis.refine`)."""
+    if spec.refine is None:
+        return {}
+    from pesflow.analysis.refine import BUDGET_KEY
+
+    targets = {k: float(v) for k, v in spec.refine.items() if k != BUDGET_KEY}
+    return {"refine": targets, "max_points": int(spec.refine[BUDGET_KEY])}
 
 
 def _moving_atoms(loc, spec: ScanSpec, resolved, mname, atoms, err) -> list[np.ndarray]:
@@ -672,7 +683,7 @@ def _basis_hint(basis: str) -> str:
 def _check_point_count(spec: CampaignSpec, scans, err) -> None:
     """Refuse a campaign whose scans x molecules x levels exceed :data:`MAX_POINTS`."""
     sizes = {
-        name: math.prod(len(c.values) for c in scan.coordinates)
+        name: max(math.prod(len(c.values) for c in scan.coordinates), scan.max_points)
         * len(scan.molecules)
         * len(scan.levels)
         for name, scan in scans.items()
@@ -821,6 +832,10 @@ def load_campaign(path) -> Campaign:
         groups=groups,
         notes=notes,
     )
+    if any(scan.refine for scan in scans.values()):
+        from pesflow.execution.refinement import added_points
+
+        campaign.added_points = added_points(campaign)
     for name in [None, *(n for n, s in spec.scans.items() if s.engine is not None)]:
         try:
             campaign.engine_settings(name)

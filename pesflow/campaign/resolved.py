@@ -103,6 +103,10 @@ class Scan:
     rule: str = ""
     #: each fragment also computed in the complex's full basis (ghost atoms) at each point
     counterpoise: bool = False
+    #: adaptive grid: target accuracy by quantity column, and the points per walk at most
+    #: (:mod:`pesflow.analysis.refine`); empty for a fixed grid
+    refine: dict[str, float] = field(default_factory=dict)
+    max_points: int = 0
 
     def __post_init__(self):
         if not self.source:
@@ -147,6 +151,9 @@ class Campaign:
     #: (``member``, ``refused``, ``rule``, ``no-match``, ``left-out``), ``entry``,
     #: ``molecule``, ``scan`` and ``text``
     notes: list[dict] = field(default_factory=list)
+    #: (scan, molecule) -> coordinate values added by adaptive refinement so far (read from
+    #: the refinement log, :mod:`pesflow.execution.refinement`); the plan adds them to the walk
+    added_points: dict[tuple[str, str], tuple[float, ...]] = field(default_factory=dict)
 
     @property
     def name(self) -> str:

@@ -324,6 +324,70 @@ class ScanSpec(_Strict):
     #: counterpoise-corrected interaction curve of a complex of two fragments (README
     #: "Counterpoise"): each fragment is also computed in the complex's basis
     counterpoise: bool = False
+    #: adaptive grid (README "Adaptive grids"): target accuracies by quantity column (unit as
+    #: in the name) and ``max_points`` (points per walk, coarse grid included); the
+    #: coordinate's grid is then the first, coarse grid
+    refine: dict[str, FiniteFloat] | None = None
+
+    @field_validator("refine", mode="after")
+    @classmethod
+    def _refine_targets(cls, value):
+        if value is None:
+            return value
+        from pesflow.analysis.refine import BUDGET_KEY, refine_targets
+
+        allowed = refine_targets()
+        for name, number in value.items():
+            if name != BUDGET_KEY and name not in allowed:
+                raise PydanticCustomError(
+                    "range",
+                    "unknown refine target {name!r}{hint}; allowed: {allowed} and {budget}",
+                    {
+                        "name": name,
+                        "hint": did_you_mean(name, (*allowed, BUDGET_KEY)),
+                        "allowed": ", ".join(allowed),
+                        "budget": BUDGET_KEY,
+                    },
+                )
+            if not number > 0:
+                raise PydanticCustomError(
+                    "range",
+                    "refine {name} must be positive (got {value})",
+                    {"name": name, "value": number},
+                )
+        budget = value.get(BUDGET_KEY)
+        if budget is None or budget != int(budget):
+            raise PydanticCustomError(
+                "range",
+                "refine needs {budget}: a whole number of points per curve (coarse grid "
+                "included) at which refinement stops",
+                {"budget": BUDGET_KEY},
+            )
+        if len(value) < 2:
+            raise PydanticCustomError(
+                "range",
+                "refine names no target; allowed: {allowed}",
+                {"allowed": ", ".join(allowed)},
+            )
+        return value
+
+    @model_validator(mode="after")
+    def _refine_one_coordinate(self):
+        if self.refine is None:
+            return self
+        if len(self.coordinates) > 1:
+            raise PydanticCustomError(
+                "range", "refine works on 1-D scans (one coordinate), not on 2-D grids", {}
+            )
+        coarse = self.coordinates[0].n_values()
+        budget = self.refine["max_points"]
+        if budget <= coarse:
+            raise PydanticCustomError(
+                "range",
+                "refine max_points ({budget:g}) must exceed the coarse grid's {n:g} points",
+                {"budget": budget, "n": coarse},
+            )
+        return self
 
     @model_validator(mode="after")
     def _rule_alone(self):

@@ -134,11 +134,15 @@ class Batch:
 def _scan_sets(campaign, start_id):
     sets = []
     for scan in campaign.scans.values():
-        grid = scan.grid()
-        idx = scan.grid_indices()
+        coarse, coarse_idx = scan.grid(), scan.grid_indices()
         for mname in scan.molecules:
             mol = campaign.molecules[mname]
             spec = [(c.kind, c.atoms, mv) for c, mv in zip(scan.coordinates, scan.moving[mname])]
+            grid, idx = coarse, coarse_idx
+            added = campaign.added_points.get((scan.name, mname))
+            if added:  # adaptive refinement: the coarse grid and the points added so far
+                grid = refined_grid(coarse, added)
+                idx = np.arange(len(grid))[:, None]
             positions = coordinates.apply_grid(mol.atoms.get_positions(), spec, grid)
             sets.append(
                 GeometrySet(
@@ -160,6 +164,19 @@ def _scan_sets(campaign, start_id):
                 )
             )
     return sets
+
+
+def refined_grid(coarse, added) -> np.ndarray:
+    """The walk of a refined 1-D scan, shape (m, 1): the coarse grid's values and the ``added``
+    ones, each once, in the coarse grid's direction (pesflow.analysis.refine).
+
+    >>> refined_grid(np.array([[1.3], [1.0], [0.7]]), (0.9, 1.1))[:, 0].tolist()
+    [1.3, 1.1, 1.0, 0.9, 0.7]
+    """
+    values = np.unique(np.concatenate([coarse[:, 0], np.asarray(added, dtype=float)]))
+    if len(coarse) > 1 and coarse[-1, 0] < coarse[0, 0]:
+        values = values[::-1]
+    return values[:, None]
 
 
 def _counterpoise_sets(campaign, scan_sets, start_id):
