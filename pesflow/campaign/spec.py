@@ -341,7 +341,7 @@ class ScanSpec(_Strict):
             if name != BUDGET_KEY and name not in allowed:
                 raise PydanticCustomError(
                     "range",
-                    "unknown refine target {name!r}{hint}; allowed: {allowed} and {budget}",
+                    "unknown refine target '{name}'{hint}; allowed: {allowed} and {budget}",
                     {
                         "name": name,
                         "hint": did_you_mean(name, (*allowed, BUDGET_KEY)),
@@ -384,8 +384,8 @@ class ScanSpec(_Strict):
         if budget <= coarse:
             raise PydanticCustomError(
                 "range",
-                "refine max_points ({budget:g}) must exceed the coarse grid's {n:g} points",
-                {"budget": budget, "n": coarse},
+                "refine max_points ({budget}) must exceed the coarse grid's {n} points",
+                {"budget": f"{budget:g}", "n": f"{coarse:g}"},
             )
         return self
 
