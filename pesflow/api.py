@@ -596,6 +596,7 @@ class Campaign:
     def report(self, out_dir=None) -> dict[str, Path]:
         """Write the report (as ``pesflow report``) into ``out_dir`` (default: the
         campaign's results folder / report); returns the paths of the files written."""
+        from pesflow.execution.refinement import report_tables
         from pesflow.report import build_report
 
         points = self.points()
@@ -607,6 +608,7 @@ class Campaign:
             self.summary(points),
             out,
             stationary=self.stationary(points),
+            refinement=report_tables(self.campaign),
         )
 
     def plot(self, molecule: str, scan: str):

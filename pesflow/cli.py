@@ -195,6 +195,7 @@ def cmd_plan(args) -> int:
         )
     console.print(out)
     _print_rule_scans(campaign, plan)
+    _print_refine_note(campaign)
     if sources:
         console.print(
             "estimate: core time of the points still to compute; from: "
@@ -327,6 +328,14 @@ def _print_status(
         )
 
 
+def _print_refine_note(campaign) -> None:
+    from pesflow.execution.refinement import plan_note
+
+    note = plan_note(campaign)
+    if note:
+        console.print(note, markup=False, soft_wrap=True)
+
+
 def _totals(counts) -> tuple[int, int, int]:
     return tuple(int(counts[c].sum()) if len(counts) else 0 for c in ("done", "failed", "pending"))
 
@@ -340,6 +349,7 @@ def cmd_status(args) -> int:
     counts, failed, points = api.status_of(campaign, plan, store)
     _report_quarantined(store)
     _print_status(campaign, counts, failed, points.columns)
+    _print_refine_note(campaign)
     done, n_failed, pending = _totals(counts)
     console.print(f"{done} done, {n_failed} failed, {pending} pending")
     return EXIT_FAILED if n_failed else EXIT_OK
@@ -458,7 +468,9 @@ def _stall_grace_s() -> float:
 
 
 def cmd_report(args) -> int:
+    from pesflow.execution.refinement import report_tables
     from pesflow.report import build_report, terminal_summary
+    from pesflow.report.refinement import refinement_verdicts
     from pesflow.tables.points import points_table
     from pesflow.tables.stationary import stationary_table
     from pesflow.tables.summary import summary_table
@@ -471,8 +483,14 @@ def cmd_report(args) -> int:
     summary = summary_table(campaign, plan, points)
     stationary = stationary_table(campaign, plan, points)
     out = Path(args.output) if args.output else campaign.results_path / "report"
-    paths = build_report(campaign, plan, points, summary, out, stationary=stationary)
+    refinement = report_tables(campaign)
+    paths = build_report(
+        campaign, plan, points, summary, out, stationary=stationary, refinement=refinement
+    )
     terminal_summary(campaign, summary, console, paths=paths, points=points)
+    if refinement is not None:
+        for line in refinement_verdicts(refinement[0]):
+            console.print(f"adaptive refinement: {line}", markup=False, soft_wrap=True)
     return EXIT_OK
 
 

@@ -231,6 +231,26 @@ def refine_round(campaign, plan, store) -> RoundResult:
     return RoundResult(len(new_points), evaluations)
 
 
+def report_tables(campaign):
+    """``(rounds, points)`` of :func:`refinement_table` for ``build_report``, or None when no
+    scan of ``campaign`` refines."""
+    if not any(scan.refine for scan in campaign.scans.values()):
+        return None
+    return refinement_table(campaign)
+
+
+def plan_note(campaign) -> str | None:
+    """What ``pesflow plan`` and ``status`` say about refined scans, or None."""
+    refined = [s for s in campaign.scans.values() if s.refine]
+    if not refined:
+        return None
+    budgets = ", ".join(f"{s.name} up to {s.max_points}" for s in refined)
+    return (
+        f"adaptive refinement: pesflow run may add points per walk after the coarse grid "
+        f"({budgets} points per walk, at every level of the walk)"
+    )
+
+
 def refinement_table(campaign):
     """The log as two DataFrames for the report: ``(rounds, points)``; ``rounds`` has one
     row per curve and round (``molecule, scan, level, round, n_points, outcome`` and per

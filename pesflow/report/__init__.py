@@ -63,6 +63,7 @@ _CSV = (
     ("summary_csv", "summary.csv", "curves"),
     ("sets_csv", "sets.csv", "sets"),
     ("stationary_csv", "stationary.csv", "stationary"),
+    ("refinement_csv", "refinement.csv", "refinement_points"),
 )
 _LABELS = {
     "quantities.csv": "derived quantities per curve and level, with deviations",
@@ -76,6 +77,7 @@ _LABELS = {
     "summary.csv": "the summary table the report was built from",
     "sets.csv": "statistics per molecule set, rule, level and quantity",
     "stationary.csv": "every minimum, maximum and saddle per curve and level",
+    "refinement.csv": "points added by adaptive refinement, with round and reason",
     "report.md": "this report as Markdown",
     "figures/": "the figures as PNG files",
 }
@@ -100,7 +102,14 @@ def _csv_text(frame: pd.DataFrame) -> str:
 
 
 def build_report(
-    campaign, plan, points: pd.DataFrame, summary: pd.DataFrame, out_dir, *, stationary=None
+    campaign,
+    plan,
+    points: pd.DataFrame,
+    summary: pd.DataFrame,
+    out_dir,
+    *,
+    stationary=None,
+    refinement=None,
 ) -> dict[str, Path]:
     """Write the comparison report of ``campaign`` into ``out_dir`` (created if needed).
 
@@ -112,12 +121,15 @@ def build_report(
         out_dir: output folder; ``pesflow report`` uses ``campaign.results_path / "report"``.
         stationary: :func:`pesflow.tables.stationary.stationary_table` of the same points
             (default: none; the section then says so).
+        refinement: ``(rounds, points)`` of the refinement log
+            (:func:`pesflow.execution.refinement.refinement_table`), or None.
 
     Returns:
         ``{"html": .../report.html, "markdown": .../report.md, "figures": .../figures,
         "quantities_csv": ..., "reference_values_csv": ..., "statistics_csv": ...,
         "cost_csv": ..., "status_csv": ..., "failed_csv": ..., "pending_csv": ...,
-        "convergence_csv": ..., "summary_csv": ..., "sets_csv": ..., "stationary_csv": ...}``.
+        "convergence_csv": ..., "summary_csv": ..., "sets_csv": ..., "stationary_csv": ...,
+        "refinement_csv": ...}``.
         Each file is written atomically (temporary file, then rename); figures of an earlier
         report that are no longer produced are removed.  Reads nothing but the arguments (and
         PySCF's basis-function counts when some method was run with two or more basis sets);
@@ -130,7 +142,7 @@ def build_report(
     out = Path(out_dir)
     fig_dir = out / "figures"
     fig_dir.mkdir(parents=True, exist_ok=True)
-    data = collect(campaign, plan, points, summary, stationary=stationary)
+    data = collect(campaign, plan, points, summary, stationary=stationary, refinement=refinement)
     points = states_as_levels(points, summary)[0]  # each excited state a level, as in data
     figures = make_figures(campaign, points, data)
     paths: dict[str, Path] = {}

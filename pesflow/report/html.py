@@ -893,6 +893,14 @@ def _sets_section(d: ReportData, figures, files) -> Markup:
 #: takes ``(data, figures, files)`` and returns the section's markup, or an :class:`Omitted`
 #: reason when it has nothing to show: the section is then left out of the page and its
 #: contents line says why.
+def _refinement_section(d):
+    from pesflow.report.refinement import refinement_section
+
+    if d.refinement.empty:
+        return Omitted("no scan refines its grid")
+    return refinement_section(d)
+
+
 def _counterpoise_section(d, figures, files):
     from pesflow.report.interaction import counterpoise_section
 
@@ -929,6 +937,12 @@ SECTIONS = (
         lambda d, figures, files: _counterpoise_section(d, figures, files),
     ),
     ("stationary", "Every stationary point", "Stationary points", _stationary_section),
+    (
+        "refinement",
+        "Adaptive refinement",
+        "Adaptive refinement",
+        lambda d, figures, files: _refinement_section(d),
+    ),
     ("notes", "Notes: warnings of the analysis", "Notes", _notes_section),
     ("cost", "Compute cost per level", "Compute cost", lambda d, f, x: _cost_section(d)),
     ("missing", "Missing points", "Missing points", _missing_points),

@@ -14,6 +14,7 @@ import re
 
 import numpy as np
 
+from pesflow.report.refinement import refinement_markdown
 from pesflow.report.stats import closest_levels
 from pesflow.report.tables import (
     QUANTITY,
@@ -233,6 +234,7 @@ def render(d: ReportData, figure_files: dict[str, str], files: dict[str, str]) -
         if len(flags):
             lines.append("")
     lines += _stationary(d)
+    lines += refinement_markdown(d, md, _table)
     if d.notes:
         lines += [
             "## Notes",

@@ -94,6 +94,9 @@ class ReportData:
             verdict ranks on, over the curves every compared level has.
         stationary: the stationary-point table (:mod:`pesflow.tables.stationary`), one row
             per minimum, maximum and saddle per curve and level; empty when not given.
+        refinement, refinement_points: the adaptive-refinement log as tables (one row per
+            curve and round; one row per added point: :func:`pesflow.execution.refinement.
+            refinement_table`); empty when no scan refines.
     """
 
     campaign: str
@@ -121,6 +124,8 @@ class ReportData:
     #: the set members' summary rows behind :attr:`sets` (per-molecule detail)
     set_members: pd.DataFrame = field(default_factory=pd.DataFrame)
     stationary: pd.DataFrame = field(default_factory=pd.DataFrame)
+    refinement: pd.DataFrame = field(default_factory=pd.DataFrame)
+    refinement_points: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @property
     def complete(self) -> bool:
@@ -489,6 +494,7 @@ def collect(
     *,
     basis_counts=None,
     stationary: pd.DataFrame | None = None,
+    refinement=None,
 ) -> ReportData:
     """Assemble :class:`ReportData` from the points table and the summary table.
 
@@ -501,6 +507,8 @@ def collect(
             with :func:`pesflow.plan.cost.basis_function_counts`, and only when some method was
             run with two or more basis sets.
         stationary: :func:`pesflow.tables.stationary.stationary_table` of the campaign.
+        refinement: ``(rounds, points)`` of :func:`pesflow.execution.refinement.
+            refinement_table`, or None.
 
     Nothing is computed except table arithmetic; every deviation from the reference level is
     the summary's own ``dev_<column>`` value.
@@ -580,6 +588,11 @@ def collect(
         sets=sets,
         set_members=set_members,
         stationary=stationary if stationary is not None else pd.DataFrame(),
+        **(
+            {}
+            if refinement is None
+            else {"refinement": refinement[0], "refinement_points": refinement[1]}
+        ),
     )
 
 

@@ -174,3 +174,27 @@ def test_torsion_barrier_matches_direct_energies_at_the_stationary_geometries(tm
     )
     barrier = float(convert_energy(_peroxide_energy(180.0) - best.fun, "kcal_mol"))
     assert abs(row["barrier_kcal_mol"] - barrier) < 0.05
+
+
+def test_report_shows_each_round_its_points_and_why(diatomic):
+    folder, spec, _ = diatomic
+    out = folder / "report"
+    shown = pesflow("report", str(spec), "-o", str(out), check=0)
+    assert "adaptive refinement: hydrogen_fluoride stretch hf/cc-pvdz: targets met with 9" in (
+        shown.stdout
+    )
+    text = (out / "report.md").read_text()
+    section = text[text.index("## Adaptive refinement") :]
+    assert "targets met with 9 points" in section
+    # One table row per round (0: the coarse grid), the added points with their reasons.
+    log = _log(folder, "adaptive-hf")
+    for p in log["points"]:
+        assert f"{p['value']:.6g}: {p['reason']}" in section
+    assert section.count("| 0 | 5 |") == 1 and section.count("| 2 | 9 |") == 1
+    added = pd.read_csv(out / "refinement.csv")
+    assert added["round"].tolist() == [1, 1, 2, 2]
+    assert added["reason"].str.contains("minimum at").all()
+    html = (out / "report.html").read_text()
+    assert 'id="refinement"' in html
+    plan = pesflow("plan", str(spec), check=0)
+    assert "adaptive refinement: pesflow run may add points" in " ".join(plan.stdout.split())
