@@ -116,6 +116,22 @@ def _number(x) -> float:
     return np.nan if x is None else float(x)
 
 
+def _change(column, value, before, row) -> float:
+    """``value - before``; a position of a periodic coordinate (a torsion's minimum) is
+    compared with the nearest position equivalent to ``before`` under the curve's symmetry,
+    since the summary may report either of two mirror-image minima.
+
+    >>> _change("dihedral_e_degree", 236.07, 123.93, {"symmetry_mirror": True})
+    0.0
+    """
+    if not (np.isfinite(value) and np.isfinite(before)):
+        return np.nan
+    from pesflow.analysis.quantities import deviation
+    from pesflow.analysis.symmetry import Symmetry
+
+    return float(deviation(column, value, before, Symmetry.of_row(row)))
+
+
 def target_states(targets: dict, row: dict, previous: dict | None) -> list[TargetState]:
     """The state of each target on a summary ``row`` (a dict with the quantity and ``u_``
     columns); ``previous``: ``{column: (value, u)}`` of the previous round, or None.
@@ -138,7 +154,7 @@ def target_states(targets: dict, row: dict, previous: dict | None) -> list[Targe
         before, u_before = (
             (np.nan, np.nan) if previous is None else previous.get(column, (None,) * 2)
         )
-        change = value - _number(before)
+        change = _change(column, value, _number(before), row)
         ok = bool(np.isfinite(value) and np.isfinite(u) and u <= target)
         if previous is not None:
             allowed = max(target, 2.0 * _number(u_before)) if u_before is not None else target

@@ -141,6 +141,8 @@ def refine_round(campaign, plan, store) -> RoundResult:
     table = points_table(plan, store)
     table = table[table["scan"].isin(refined) | (table["role"] == "fragment")]
     summary = summary_table(campaign, plan, table)
+    if summary.empty:
+        return RoundResult(0, [])
     log = read_log(campaign)
     new_points, evaluations = [], []
     for gs in plan.geometry_sets:
