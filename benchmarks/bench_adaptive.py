@@ -2,7 +2,7 @@
 
 One real ``pesflow run`` of a campaign where each molecule is scanned twice over the same
 range: once with ``refine`` (a 5-point coarse grid, targets omega_e 0.5 cm-1 and r_e 1e-4 A,
-at most 9 points) and once on fixed grids of 11, 15 and 20 points; and the H-O-O-H torsion
+at most 9 points) and once on fixed grids of 9, 11, 15 and 20 points; and the H-O-O-H torsion
 of H2O2 with ``refine: {barrier_kcal_mol: 0.05}`` from a 60-degree coarse grid against a
 10-degree grid.  Every number is compared with PySCF computed directly:
 
@@ -39,7 +39,7 @@ DIATOMICS = (
     ("carbon_monoxide", "CO", ("O", "C"), (0.85, 1.45)),
     ("dinitrogen", "N2", ("N", "N"), (0.80, 1.40)),
 )
-FIXED = (11, 15, 20)
+FIXED = (9, 11, 15, 20)
 BASIS = "cc-pvdz"
 TORSION_BASIS = "6-31g*"
 
