@@ -276,10 +276,16 @@ def run_campaign(campaign, plan, store, *, on_refine=None, **options) -> RunResu
     result = _run_round(campaign, plan, store, **options)
     refined = any(scan.refine for scan in campaign.scans.values())
     while refined and not result.interrupted and result.returncode == 0:
+        from pesflow.execution.driver import RunLock
         from pesflow.execution.refinement import refine_round
         from pesflow.plan.expand import expand
 
-        decided = refine_round(campaign, plan, store)
+        # The decision reads and rewrites the log: under the run lock, like a run.
+        lock = RunLock(campaign.results_path / ".pesflow" / "run.lock").acquire()
+        try:
+            decided = refine_round(campaign, plan, store)
+        finally:
+            lock.release()
         if not decided.added:
             break
         if on_refine is not None:

@@ -204,11 +204,13 @@ def place(value, lo, hi, period):
     """``value`` mapped into the scanned range ``[lo, hi]`` (a periodic curve, ``period``
     given: into ``[lo, lo + period)``), or None when it falls outside the range.
 
-    >>> place(-10.0, 0.0, 330.0, 360.0), place(1.4, 0.7, 1.3, None)
-    (350.0, None)
+    >>> place(-10.0, 0.0, 330.0, 360.0), place(365.0, 10.0, 310.0, 360.0)
+    (350.0, 5.0)
+    >>> place(1.4, 0.7, 1.3, None)
     """
     if period is not None:
-        return lo + float(np.mod(value - lo, period))
+        wrapped = lo + float(np.mod(value - lo, period))
+        return wrapped - period if wrapped > period else wrapped
     if lo - 1e-12 <= value <= hi + 1e-12:
         return float(value)
     return None

@@ -20,8 +20,9 @@ The log (JSON): ``{"version": 1, "points": [...], "rounds": [...]}``; a point is
 ``{round, molecule, scan, value, reason, level}`` (the coordinate value in the coordinate's
 unit; the round that added it, 1, 2, ...; the level whose curve asked for it); a round entry is
 the evaluation of one curve on the grid of round ``round`` (0: the coarse grid):
-``{round, molecule, scan, level, n_points, targets: [TargetState.as_dict()], outcome}`` with
-``outcome`` one of :data:`OUTCOMES`.
+``{round, molecule, scan, level, n_points, max_points, targets: [TargetState.as_dict()],
+outcome}`` with ``outcome`` one of :data:`OUTCOMES`; a changed ``refine`` (targets or budget)
+is evaluated again on the present grid (a later entry of the same round wins).
 """
 
 from __future__ import annotations
@@ -95,6 +96,8 @@ def _walk_round(log, molecule, scan) -> int:
 
 
 def _evaluation(log, molecule, scan, level, round_number):
+    """The last evaluation of a curve on the grid of ``round_number``, or None."""
+    found = None
     for entry in log["rounds"]:
         if (entry["molecule"], entry["scan"], entry["level"], entry["round"]) == (
             molecule,
@@ -102,8 +105,15 @@ def _evaluation(log, molecule, scan, level, round_number):
             level,
             round_number,
         ):
-            return entry
-    return None
+            found = entry
+    return found
+
+
+def _same_request(entry, scan) -> bool:
+    """An evaluation still holds when the spec asks for the same targets and budget (a
+    changed ``refine`` is evaluated again on the same grid)."""
+    asked = {t["column"]: t["target"] for t in entry["targets"]}
+    return asked == scan.refine and entry.get("max_points") == scan.max_points
 
 
 def _curve(sub, column):
@@ -175,7 +185,8 @@ def refine_round(campaign, plan, store) -> RoundResult:
         ]
         for _, row in rows.iterrows():
             level = row["level"]
-            if _evaluation(log, gs.molecule, gs.scan, level, round_number) is not None:
+            done = _evaluation(log, gs.molecule, gs.scan, level, round_number)
+            if done is not None and _same_request(done, scan):
                 continue  # already decided on this grid (a resumed run)
             before = _evaluation(log, gs.molecule, gs.scan, level, round_number - 1)
             previous = (
@@ -210,6 +221,7 @@ def refine_round(campaign, plan, store) -> RoundResult:
                     "scan": gs.scan,
                     "level": level,
                     "n_points": int(len(values_now)),
+                    "max_points": scan.max_points,
                     "targets": [s.as_dict() for s in states],
                     "outcome": outcome,
                 }
@@ -271,6 +283,8 @@ def refinement_table(campaign):
             row[f"met_{t['column']}"] = t["met"]
         rows.append(row)
     rounds = pd.DataFrame(rows)
+    if len(rounds):  # a curve evaluated again (refine changed): its last evaluation counts
+        rounds = rounds.drop_duplicates(["molecule", "scan", "level", "round"], keep="last")
     points = pd.DataFrame(
         log["points"], columns=["molecule", "scan", "round", "value", "level", "reason"]
     )

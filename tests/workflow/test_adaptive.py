@@ -198,3 +198,25 @@ def test_report_shows_each_round_its_points_and_why(diatomic):
     assert 'id="refinement"' in html
     plan = pesflow("plan", str(spec), check=0)
     assert "adaptive refinement: pesflow run may add points" in " ".join(plan.stdout.split())
+
+
+def test_a_tighter_refine_continues_from_the_stored_grid(diatomic, tmp_path):
+    """Changing ``refine`` after a finished run evaluates the stored grid again under the new
+    targets and budget and goes on from there; no stored point is computed again."""
+    import shutil
+
+    folder = tmp_path / "copy"
+    shutil.copytree(diatomic[0], folder)
+    spec = folder / "campaign.yaml"
+    spec.write_text(
+        DIATOMIC.replace("omega_e_cm-1: 0.5", "omega_e_cm-1: 0.001").replace(
+            "max_points: 9", "max_points: 11"
+        )
+    )
+    run = pesflow("run", str(spec), "--cores", "2", check=0)
+    assert "2 points to compute in 1 jobs (9 cached)" in run.stdout
+    log = _log(folder, "adaptive-hf")
+    assert [p["round"] for p in log["points"]] == [1, 1, 2, 2, 3, 3]
+    last = log["rounds"][-1]
+    assert (last["round"], last["n_points"], last["max_points"]) == (3, 11, 11)
+    assert last["outcome"] in ("met", "budget spent")
