@@ -110,6 +110,8 @@ class _Walk:
         self.store = PointStore(task["store"])
         if writer is None or writer.store.root != self.store.root:
             writer = PointWriter(self.store)
+        else:  # the job's store object: its listing caches serve every walk
+            self.store = writer.store
         self.writer = writer  # durable writes overlapping the next point's computation
         self.symbols = tuple(task["symbols"])
         self.relax = task.get("relax")
@@ -378,9 +380,11 @@ def _run_walk(task, walk, continuity, done_path) -> dict:
     computed: list[_Computed] = []
     previous_walk = None
     t0 = time.time()
+    walk.writer.flush()  # the job's earlier walks are listed too
+    stored = walk.store.keys()  # one listing, not a look-up per point
     for index, point in enumerate(points):
         wanted = point["keys"]
-        missing = [m for m, k in wanted.items() if k in recompute or not walk.store.has(k)]
+        missing = [m for m, k in wanted.items() if k in recompute or k not in stored]
         counts["skipped"] += len(wanted) - len(missing)
         status.update({k: "cached" for m, k in wanted.items() if m not in missing})
         if not missing:
