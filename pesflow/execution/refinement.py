@@ -209,8 +209,8 @@ def refine_round(campaign, plan, store) -> RoundResult:
                 room = left - len(walk_new)
                 if room <= 0:
                     outcome = "budget spent"
-                elif not proposed:
-                    outcome = "no new point"
+                elif not proposed:  # its points may already come from another level
+                    outcome = "refining" if walk_new else "no new point"
                 else:
                     walk_new += [(v, why, level) for v, why in proposed[:room]]
                     outcome = "refining"

@@ -220,3 +220,36 @@ def test_a_tighter_refine_continues_from_the_stored_grid(diatomic, tmp_path):
     last = log["rounds"][-1]
     assert (last["round"], last["n_points"], last["max_points"]) == (3, 11, 11)
     assert last["outcome"] in ("met", "budget spent")
+
+
+TWO_LEVELS = """\
+campaign: adaptive-two-levels
+molecules:
+  dihydrogen: {builtin: H2}
+scans:
+  stretch:
+    molecules: [dihydrogen]
+    coordinates:
+      - {type: distance, atoms: [1, 2], from: 0.50, to: 1.10, points: 5}
+    refine: {omega_e_cm-1: 0.5, max_points: 11}
+levels:
+  - {method: hf, basis: [sto-3g, 6-31g]}
+store: store
+"""
+
+
+def test_points_of_each_level_are_computed_at_every_level_within_one_budget(tmp_path):
+    """Two levels with minima 0.02 A apart (HF/STO-3G and HF/6-31G H2): each level's curve
+    asks for its own pairs, every added point is computed at both levels, and the walk stops
+    at the budget."""
+    spec = tmp_path / "campaign.yaml"
+    spec.write_text(TWO_LEVELS)
+    pesflow("run", str(spec), "--cores", "2", check=0)
+    log = _log(tmp_path, "adaptive-two-levels")
+    assert {p["level"] for p in log["points"] if p["round"] == 1} == {"hf/sto-3g", "hf/6-31g"}
+    assert len(log["points"]) == 11 - 5
+    pesflow("export", str(spec), "--what", "summary", "-o", str(tmp_path / "s.csv"), check=0)
+    summary = pd.read_csv(tmp_path / "s.csv")
+    assert summary["n_done"].tolist() == [11, 11]
+    outcomes = {e["level"]: e["outcome"] for e in log["rounds"]}  # the last of each level
+    assert set(outcomes.values()) <= {"met", "budget spent"}
