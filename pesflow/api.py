@@ -534,13 +534,18 @@ class Campaign:
     def plan(self, cores: int | None = None) -> pd.DataFrame:
         """Per level: ``level, points, cached, to_compute, estimate_core_s, source, share``
         (``source``: see :data:`ESTIMATE_SOURCES`); ``.attrs`` holds ``jobs`` and ``walks``
-        (what a run on ``cores`` cores would start).  Nothing is computed."""
+        (what a run on ``cores`` cores would start) and ``refinement`` (a sentence when
+        adaptive refinement may add points, else None).  Nothing is computed."""
         import os
+
+        from pesflow.execution.refinement import plan_note
 
         cores = cores or os.cpu_count() or 1
         summary = plan_levels(self.campaign, self._expanded(), self._store(), cores)
         table = summary.levels
-        table.attrs.update(jobs=summary.jobs, walks=summary.walks)
+        table.attrs.update(
+            jobs=summary.jobs, walks=summary.walks, refinement=plan_note(self.campaign)
+        )
         return table
 
     def run(

@@ -328,6 +328,16 @@ def _print_status(
         )
 
 
+def _print_refinement(campaign) -> None:
+    """One verdict line per refined curve (targets met, budget spent, ...)."""
+    from pesflow.execution.refinement import report_tables
+    from pesflow.report.refinement import refinement_verdicts
+
+    tables = report_tables(campaign)
+    for line in refinement_verdicts(tables[0]) if tables is not None else ():
+        console.print(f"adaptive refinement: {line}", markup=False, soft_wrap=True)
+
+
 def _print_refine_note(campaign) -> None:
     from pesflow.execution.refinement import plan_note
 
@@ -456,6 +466,7 @@ def cmd_run(args) -> int:
         warnings=lambda: api.warning_counts(campaign, plan, store),
     )
     console.print(f"{result.done} done, {result.failed} failed, {result.pending} pending")
+    _print_refinement(campaign)
     if result.failed or result.pending:
         return EXIT_FAILED
     return EXIT_OK
@@ -470,7 +481,6 @@ def _stall_grace_s() -> float:
 def cmd_report(args) -> int:
     from pesflow.execution.refinement import report_tables
     from pesflow.report import build_report, terminal_summary
-    from pesflow.report.refinement import refinement_verdicts
     from pesflow.tables.points import points_table
     from pesflow.tables.stationary import stationary_table
     from pesflow.tables.summary import summary_table
@@ -488,9 +498,7 @@ def cmd_report(args) -> int:
         campaign, plan, points, summary, out, stationary=stationary, refinement=refinement
     )
     terminal_summary(campaign, summary, console, paths=paths, points=points)
-    if refinement is not None:
-        for line in refinement_verdicts(refinement[0]):
-            console.print(f"adaptive refinement: {line}", markup=False, soft_wrap=True)
+    _print_refinement(campaign)
     return EXIT_OK
 
 

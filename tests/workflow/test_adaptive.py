@@ -106,6 +106,7 @@ def test_second_run_computes_and_adds_nothing(diatomic):
     again = pesflow("run", str(spec), "--cores", "2", check=0)
     assert "nothing to compute" in again.stdout
     assert "points added" not in again.stdout
+    assert "hydrogen_fluoride stretch hf/cc-pvdz: targets met with 9 points" in again.stdout
     assert _log(folder, "adaptive-hf") == before
     status = pesflow("status", str(spec), check=0)
     assert "9 done, 0 failed, 0 pending" in status.stdout
