@@ -254,3 +254,48 @@ def test_points_of_each_level_are_computed_at_every_level_within_one_budget(tmp_
     assert summary["n_done"].tolist() == [11, 11]
     outcomes = {e["level"]: e["outcome"] for e in log["rounds"]}  # the last of each level
     assert set(outcomes.values()) <= {"met", "budget spent"}
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize(
+    ("builtin", "symbols", "lo", "hi"),
+    [("CO", ("O", "C"), 0.85, 1.45), ("N2", ("N", "N"), 0.80, 1.40)],
+)
+def test_more_diatomics_meet_the_analytic_references_with_nine_points(
+    tmp_path, builtin, symbols, lo, hi
+):
+    from pyscf import gto, scf
+    from pyscf.hessian import thermo
+    from scipy.optimize import brentq
+
+    from pesflow.units import isotope_mass
+
+    spec = tmp_path / "campaign.yaml"
+    spec.write_text(
+        DIATOMIC.replace("hydrogen_fluoride: {builtin: HF}", f"hydrogen_fluoride: {{builtin: "
+                         f"{builtin}}}").replace("from: 0.70, to: 1.30", f"from: {lo}, to: {hi}")
+    )  # fmt: skip
+    pesflow("run", str(spec), "--cores", "2", check=0)
+    row = _summary(tmp_path, spec)
+    assert row["n_done"] <= 9
+
+    def rhf(r):
+        mol = gto.M(atom=f"{symbols[0]} 0 0 0; {symbols[1]} 0 0 {r}", basis="cc-pvdz", verbose=0)
+        mf = scf.RHF(mol)
+        mf.conv_tol, mf.conv_tol_grad = 1e-12, 1e-9
+        mf.kernel()
+        return mol, mf
+
+    # References as in the HF test: PySCF's analytic gradient root and analytic Hessian.
+    guess = row["r_e_angstrom"]
+    r_e = brentq(
+        lambda r: float(rhf(r)[1].nuc_grad_method().kernel()[1, 2]),
+        guess - 0.02,
+        guess + 0.02,
+        xtol=1e-11,
+    )
+    mol, mf = rhf(r_e)
+    masses = np.array([isotope_mass(s) for s in symbols])
+    freq = thermo.harmonic_analysis(mol, mf.Hessian().kernel(), mass=masses)["freq_wavenumber"]
+    assert abs(row["r_e_angstrom"] - r_e) < 1e-4
+    assert abs(row["omega_e_cm-1"] - float(np.max(np.real(freq)))) < 1.0
