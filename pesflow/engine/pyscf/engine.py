@@ -27,7 +27,7 @@ from pesflow.engine import (
 )
 from pesflow.engine import relax as relaxation
 from pesflow.engine.base import Engine, EngineWalk, error_line
-from pesflow.engine.pyscf import correlated, excited, methods
+from pesflow.engine.pyscf import corrections, correlated, excited, methods
 from pesflow.engine.pyscf.scf import (
     SCF_LABELS,
     build_mole,
@@ -196,6 +196,7 @@ class PySCFWalk(EngineWalk):
                 records.update(self._excited_records(mf, level, record, ccsd, frozen, geometry))
             elif method == family:
                 records[method] = record(method, mf.e_tot, ladder.wall_s)
+                records[method].extra = corrections.energy_parts(mf)  # dispersion, solvent
             elif method == "mp2":
                 step_start = time.perf_counter()
                 try:
@@ -392,7 +393,7 @@ class PySCFWalk(EngineWalk):
         record = self.compute(reached, [method])[method]
         relaxation.finish_info(info, constraints, reached)
         record.wall_s = info["wall_s"]
-        record.extra = {"relaxation": info}
+        record.extra = {**record.extra, "relaxation": info}
         record.geometry = reached
         if not converged:
             reason = f"geometry optimisation did not converge in {relaxation.RELAX_MAX_STEPS} steps"

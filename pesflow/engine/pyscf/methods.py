@@ -9,8 +9,10 @@ from __future__ import annotations
 import functools
 import importlib.util
 import warnings
+from dataclasses import replace
 
 from pesflow.engine import MethodInfo
+from pesflow.engine.pyscf import corrections
 from pesflow.errors import EngineSetupError
 
 #: Every setting (by its key name) that can change an SCF-based number.
@@ -76,6 +78,11 @@ def method_info(name: str) -> MethodInfo | None:
     excited = _excited_info(compact, name)
     if excited is not None:
         return excited
+    corrected = corrections.parse(compact)
+    if corrected is not None and corrected.base == "hf":  # hf-d3bj, hf(pcm:water)
+        _check_dispersion_package(corrected.dispersion, name)
+        info = method_info("hf")
+        return replace(info, name=corrected.name, family=corrected.name)
     if compact in _WAVEFUNCTION:
         order, weight, exponent, prefactor, gradients, byproducts = _WAVEFUNCTION[compact]
         dropped = ("grid_level",) if compact != "hf" else ("grid_level", "frozen_core")
@@ -84,16 +91,20 @@ def method_info(name: str) -> MethodInfo | None:
             cost_class=compact, cost_exponent=exponent, cost_prefactor_s=prefactor,
             needs_basis=True, has_gradients=gradients, byproducts=byproducts,
             settings=tuple(s for s in _ALL_SETTINGS if s not in dropped),
+            options=corrections.LEVEL_OPTIONS if compact == "hf" else (),
         )  # fmt: skip
-    functional = _canonical_functional(lowered, name)
+    core = corrected.core if corrected is not None else lowered
+    functional = _canonical_functional(core, name)
     if functional is None:
         return None
+    functional = corrected.name if corrected is not None else functional
     order, weight, exponent, prefactor, gradients, byproducts = _DFT
     return MethodInfo(
         name=functional, engine="pyscf", family=functional, order=order, weight=weight,
         cost_class="dft", cost_exponent=exponent, cost_prefactor_s=prefactor,
         needs_basis=True, has_gradients=gradients, byproducts=byproducts,
         settings=tuple(s for s in _ALL_SETTINGS if s != "frozen_core"),
+        options=corrections.LEVEL_OPTIONS,
     )  # fmt: skip
 
 
@@ -148,8 +159,10 @@ def _multireference_info(lowered: str) -> MethodInfo:
 
 def method_with_options(method: str, options: dict) -> str:
     """The canonical name of a PySCF method with level options: a multireference one
-    (``casscf`` with ``{"active": [6, 6]}`` -> ``casscf(6,6)``) or an excited-state one
-    (``tda-b3lyp`` with ``{"states": 4}`` -> ``tda-b3lyp(singlets=4)``); EngineSetupError
+    (``casscf`` with ``{"active": [6, 6]}`` -> ``casscf(6,6)``), an excited-state one
+    (``tda-b3lyp`` with ``{"states": 4}`` -> ``tda-b3lyp(singlets=4)``) or an SCF level
+    with dispersion and solvent (``b3lyp`` with ``{"dispersion": "d3bj"}`` ->
+    ``b3lyp-d3bj``, see :mod:`~pesflow.engine.pyscf.corrections`); EngineSetupError
     when the method takes none or an option is wrong."""
     if method in _MULTIREFERENCE:
         from pesflow.engine.pyscf import multireference
@@ -160,6 +173,13 @@ def method_with_options(method: str, options: dict) -> str:
     level = excited.parse(method)
     if level is not None:
         return excited.level_with_options(level.prefix, level.ground, options).name
+    if options and method_info(method).options == corrections.LEVEL_OPTIONS:
+        return corrections.with_options(method, options).name
+    scf_only = [k for k in options if k in corrections.LEVEL_OPTIONS]
+    if scf_only:
+        raise EngineSetupError(
+            f"{scf_only[0]} applies to hf and DFT functionals (the SCF itself), not {method}"
+        )
     if options:
         raise EngineSetupError(f"{method} takes no level options (got {', '.join(options)})")
     return method
@@ -176,13 +196,16 @@ def _canonical_functional(lowered: str, given: str) -> str | None:
         hybrid, components = (0, 0, 0), ()
     if not components and not any(hybrid):
         return None
-    correction = dispersion.parse_dft(lowered)[2]
+    _check_dispersion_package(dispersion.parse_dft(lowered)[2], given)
+    return lowered
+
+
+def _check_dispersion_package(correction, given):
     if correction and importlib.util.find_spec("pyscf.dispersion") is None:
         raise EngineSetupError(
             f"method {given!r} asks for the dispersion correction {correction!r}, "
             "which needs the pyscf-dispersion package (not installed)"
         )
-    return lowered
 
 
 def check_basis(basis: str, elements) -> None:
