@@ -47,6 +47,8 @@ levels:
          "pbe0-d3bj(ddcosmo:eps=78.3553)", "dft"),
         ("b3lyp-d3bj", {"solvent": {"model": "pcm", "name": "pentyl ethanoate"}},
          "b3lyp-d3bj(pcm:pentyl_ethanoate)", "dft"),
+        ("hf", {"solvent": {"model": "pcm", "name": "decalin (cis/trans mixture)"}},
+         "hf(pcm:decalin_(cis-trans_mixture))", "hf"),
         ("b3lyp", {}, "b3lyp", "dft"),
     ],
 )  # fmt: skip

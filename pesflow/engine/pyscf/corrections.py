@@ -234,7 +234,8 @@ def _solvent_name(name: str) -> str:
 
 
 def _normalise(name: str) -> str:
-    return "_".join(str(name).lower().replace("_", " ").split())
+    # lower case, spaces as "_", "/" as "-": a level's label is method/basis
+    return "_".join(str(name).lower().replace("_", " ").split()).replace("/", "-")
 
 
 @functools.cache
