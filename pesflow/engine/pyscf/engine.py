@@ -283,6 +283,7 @@ class PySCFWalk(EngineWalk):
             overlaps = excited.state_overlaps(previous, states)
         self.excited[method] = states
         closed = mf.mol.spin == 0 and np.asarray(mf.mo_occ).ndim == 1
+        symmetries = excited.state_symmetries(states)  # "" where none is reliable
         out = {}
         for k, name in enumerate(names):
             ok = bool(states.converged[k])
@@ -292,6 +293,7 @@ class PySCFWalk(EngineWalk):
                 "index": k,
                 "label": level.label(k, closed),
                 "spin": ("singlet" if k == 0 else level.spin) if closed else "",
+                "symmetry": symmetries[k],
                 "excitation_energy_ev": float(
                     (states.energies_hartree[k] - states.energies_hartree[0]) * HARTREE_TO_EV
                 ),

@@ -12,7 +12,8 @@ with the neighbour's, see :mod:`pesflow.analysis.states`).
 One point gives one record per state (:func:`pesflow.engine.state_record`): state 0
 is the ground state (the SCF, or the CCSD under EOM-CCSD), states 1..n the excited
 states in order of energy.  Each record's ``extra["state"]`` holds its index, label,
-spin, excitation energy, oscillator strength (length gauge; 0 for triplets, NaN for
+spin, point-group symmetry (:func:`state_symmetries`; ``""`` where not reliable),
+excitation energy, oscillator strength (length gauge; 0 for triplets, NaN for
 EOM-CCSD, which PySCF gives no transition moments for) and, for the excited states,
 the overlaps of its excitation with each excited state of the previous point of the
 walk and that point's positions (so that the analysis can check it is the neighbour
@@ -54,6 +55,9 @@ DAVIDSON_MAX_CYCLE = 200
 #: default 1e-5; tighter than 1e-7 the solver stalls on near-linear dependence, as
 #: measured here on LiH/6-31G at 1.6 A with 1e-8).
 DAVIDSON_TOLERANCE_HARTREE = 1e-7
+#: Share of a state's amplitude weight (and of an orbital's norm) that one irrep must
+#: hold for the state (orbital) to be labelled by it (:func:`state_symmetries`).
+SYMMETRY_WEIGHT = 0.99
 #: Largest relative residual of a converged TDA/TDDFT root (its energy is then right to
 #: about the residual squared, far below 1e-8 hartree).
 MAX_RESIDUAL = 1e-4
@@ -289,6 +293,73 @@ def run_eom(mycc, level: ExcitedLevel) -> StateSet:
         orbitals=_spin_blocks(mycc._scf, mask=mask),
         mol=mycc._scf.mol,
     )
+
+
+def state_symmetries(states: StateSet) -> list[str]:
+    """The point-group label of each state (ground state first) of a closed-shell
+    reference, in the largest Abelian subgroup PySCF labels orbitals in (D2h and its
+    subgroups; C2v for a linear molecule without inversion, D2h with it); ``""`` where
+    no label is reliable.
+
+    The molecule's point group at this geometry is PySCF's (``Mole.build`` with
+    symmetry, which keeps the orientation); each orbital is projected onto the
+    symmetry-adapted basis of each irrep (as ``pyscf.symm.label_orb_symm`` does) and
+    labelled by its largest part, and an excitation i->a has the irrep of the product
+    (XOR of PySCF's Abelian irrep ids).  A state is labelled when
+    :data:`SYMMETRY_WEIGHT` of its amplitude weight lies in one irrep over orbitals
+    that are themselves that pure; otherwise (a degenerate pair of orbitals or states
+    mixed by the calculation without symmetry, an open shell) ``""``.  The ground
+    state of a closed shell is totally symmetric.
+    """
+    n = len(states.amplitudes) + 1
+    if len(states.orbitals) != 1 or states.mol is None or states.mol.spin != 0:
+        return [""] * n
+    try:
+        mol = _symmetric_copy(states.mol)
+    except Exception:  # PySCF could not set the group up; label nothing
+        return [""] * n
+    occ, vir = states.orbitals[0]
+    ovlp = mol.intor_symmetric("int1e_ovlp")
+    occ_id, occ_pure = _orbital_irreps(mol, ovlp, occ)
+    vir_id, vir_pure = _orbital_irreps(mol, ovlp, vir)
+    pair = np.bitwise_xor.outer(occ_id, vir_id)
+    pure = np.logical_and.outer(occ_pure, vir_pure)
+    from pyscf import symm
+
+    labels = [symm.irrep_id2name(mol.groupname, 0)]
+    for (x,) in states.amplitudes:
+        weight = np.asarray(x, dtype=float) ** 2
+        total = float(weight.sum())
+        best = max(set(pair[pure].ravel()) or {0}, key=lambda k: weight[pure & (pair == k)].sum())
+        share = float(weight[pure & (pair == best)].sum()) / total if total > 0 else 0.0
+        name = symm.irrep_id2name(mol.groupname, int(best))
+        labels.append(name if share >= SYMMETRY_WEIGHT else "")
+    return labels
+
+
+def _symmetric_copy(mol):
+    # The same molecule with PySCF's point group (orientation and AO basis unchanged).
+    sym = mol.copy()
+    sym.symmetry = True
+    sym.build()
+    subgroup = {"Dooh": "D2h", "Coov": "C2v"}.get(sym.groupname)
+    if subgroup is not None:
+        sym.symmetry = subgroup
+        sym.build()
+    return sym
+
+
+def _orbital_irreps(mol, ovlp, orbitals):
+    """Per orbital, the Abelian irrep id of its largest part and whether that part holds
+    :data:`SYMMETRY_WEIGHT` of it (projections as in ``pyscf.symm.label_orb_symm``)."""
+    s_mo = ovlp @ orbitals
+    norms = np.zeros((len(mol.symm_orb), orbitals.shape[1]))
+    for k, basis in enumerate(mol.symm_orb):
+        s_basis = basis.T @ s_mo
+        norms[k] = np.einsum("ki,ki->i", s_basis, np.linalg.solve(basis.T @ ovlp @ basis, s_basis))
+    best = np.argmax(norms, axis=0)
+    ids = np.asarray(mol.irrep_id)[best] % 10  # PySCF's D2h-subgroup id
+    return ids, norms[best, np.arange(norms.shape[1])] >= SYMMETRY_WEIGHT
 
 
 def state_overlaps(previous: StateSet, current: StateSet) -> np.ndarray:
