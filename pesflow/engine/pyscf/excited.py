@@ -302,38 +302,40 @@ def state_symmetries(states: StateSet) -> list[str]:
     no label is reliable.
 
     The molecule's point group at this geometry is PySCF's (``Mole.build`` with
-    symmetry, which keeps the orientation); each orbital is projected onto the
-    symmetry-adapted basis of each irrep (as ``pyscf.symm.label_orb_symm`` does) and
-    labelled by its largest part, and an excitation i->a has the irrep of the product
-    (XOR of PySCF's Abelian irrep ids).  A state is labelled when
-    :data:`SYMMETRY_WEIGHT` of its amplitude weight lies in one irrep over orbitals
-    that are themselves that pure; otherwise (a degenerate pair of orbitals or states
-    mixed by the calculation without symmetry, an open shell) ``""``.  The ground
-    state of a closed shell is totally symmetric.
+    symmetry, which keeps the orientation).  A state's symmetry does not depend on the
+    orbitals chosen within the occupied and the virtual space, so both spaces are
+    re-expressed in symmetry-adapted orbitals (:func:`_adapted_space`; this also sorts
+    out degenerate orbitals that the calculation without symmetry mixed), the
+    amplitudes rotated into them, and an excitation i->a given the irrep of the
+    product (XOR of PySCF's Abelian irrep ids).  A state is labelled when
+    :data:`SYMMETRY_WEIGHT` of its amplitude weight lies in one irrep; otherwise (a
+    degenerate pair of states mixed by the calculation, whose irrep is not Abelian; a
+    space that is not symmetric; an open shell) ``""``.  The ground state of a closed
+    shell is totally symmetric.
     """
+    from pyscf import symm
+
     n = len(states.amplitudes) + 1
     if len(states.orbitals) != 1 or states.mol is None or states.mol.spin != 0:
         return [""] * n
     try:
         mol = _symmetric_copy(states.mol)
-    except Exception:  # PySCF could not set the group up; label nothing
+        ovlp = mol.intor_symmetric("int1e_ovlp")
+        (occ, vir), rotated = states.orbitals[0], []
+        for space in (occ, vir):
+            adapted, ids = _adapted_space(mol, ovlp, space)
+            rotated.append((space.T @ ovlp @ adapted, ids))
+    except (ValueError, np.linalg.LinAlgError, RuntimeError):
         return [""] * n
-    occ, vir = states.orbitals[0]
-    ovlp = mol.intor_symmetric("int1e_ovlp")
-    occ_id, occ_pure = _orbital_irreps(mol, ovlp, occ)
-    vir_id, vir_pure = _orbital_irreps(mol, ovlp, vir)
-    pair = np.bitwise_xor.outer(occ_id, vir_id)
-    pure = np.logical_and.outer(occ_pure, vir_pure)
-    from pyscf import symm
-
+    (u_occ, occ_ids), (u_vir, vir_ids) = rotated
+    pair = np.bitwise_xor.outer(occ_ids, vir_ids)
     labels = [symm.irrep_id2name(mol.groupname, 0)]
     for (x,) in states.amplitudes:
-        weight = np.asarray(x, dtype=float) ** 2
-        total = float(weight.sum())
-        best = max(set(pair[pure].ravel()) or {0}, key=lambda k: weight[pure & (pair == k)].sum())
-        share = float(weight[pure & (pair == best)].sum()) / total if total > 0 else 0.0
-        name = symm.irrep_id2name(mol.groupname, int(best))
-        labels.append(name if share >= SYMMETRY_WEIGHT else "")
+        weight = (u_occ.T @ np.asarray(x, dtype=float) @ u_vir) ** 2
+        shares = {int(k): float(weight[pair == k].sum()) for k in np.unique(pair)}
+        best = max(shares, key=shares.get)
+        good = shares[best] >= SYMMETRY_WEIGHT * float(weight.sum())
+        labels.append(symm.irrep_id2name(mol.groupname, best) if good else "")
     return labels
 
 
@@ -349,17 +351,32 @@ def _symmetric_copy(mol):
     return sym
 
 
-def _orbital_irreps(mol, ovlp, orbitals):
-    """Per orbital, the Abelian irrep id of its largest part and whether that part holds
-    :data:`SYMMETRY_WEIGHT` of it (projections as in ``pyscf.symm.label_orb_symm``)."""
-    s_mo = ovlp @ orbitals
-    norms = np.zeros((len(mol.symm_orb), orbitals.shape[1]))
-    for k, basis in enumerate(mol.symm_orb):
-        s_basis = basis.T @ s_mo
-        norms[k] = np.einsum("ki,ki->i", s_basis, np.linalg.solve(basis.T @ ovlp @ basis, s_basis))
-    best = np.argmax(norms, axis=0)
-    ids = np.asarray(mol.irrep_id)[best] % 10  # PySCF's D2h-subgroup id
-    return ids, norms[best, np.arange(norms.shape[1])] >= SYMMETRY_WEIGHT
+def _adapted_space(mol, ovlp, orbitals, tolerance=1e-4):
+    """Symmetry-adapted orthonormal orbitals spanning the same space as ``orbitals``
+    (columns), and the Abelian irrep id of each; ValueError when the space is not a sum
+    of irreps (a mixed eigenvalue, or a count that does not add up).
+
+    For each irrep, with B its symmetry-adapted AO combinations (``mol.symm_orb``), the
+    orbitals of the space in that irrep are the solutions of
+    B^T S P S B v = lambda B^T S B v with lambda = 1, P = C C^T the space's projector.
+    """
+    import scipy.linalg
+
+    projected = ovlp @ orbitals
+    columns, ids = [], []
+    for irrep, basis in zip(mol.irrep_id, mol.symm_orb):
+        if basis.shape[1] == 0:
+            continue
+        inside = basis.T @ projected
+        values, vectors = scipy.linalg.eigh(inside @ inside.T, basis.T @ ovlp @ basis)
+        if np.any((values > tolerance) & (values < 1 - tolerance)):
+            raise ValueError("the orbital space is not symmetric")
+        keep = values >= 1 - tolerance
+        columns.append(basis @ vectors[:, keep])
+        ids += [int(irrep) % 10] * int(keep.sum())  # % 10: PySCF's D2h-subgroup id
+    if len(ids) != orbitals.shape[1]:
+        raise ValueError("the orbital space is not symmetric")
+    return np.hstack(columns), np.asarray(ids, dtype=int)
 
 
 def state_overlaps(previous: StateSet, current: StateSet) -> np.ndarray:
