@@ -253,7 +253,8 @@ def warning_counts(campaign, plan, store) -> pd.DataFrame:
     from pesflow.tables.points import points_table
     from pesflow.tables.summary import summary_table
 
-    summary = summary_table(campaign, plan, points_table(plan, store))
+    # Warnings do not depend on the uncertainties; their re-analyses are skipped.
+    summary = summary_table(campaign, plan, points_table(plan, store), uncertainties=False)
     if summary.empty:
         return pd.DataFrame(columns=["molecule", "level", "warnings"])
     n = [

@@ -173,6 +173,7 @@ def summarize_curve(
             fragment_energies_hartree,
             restricted_closed_shell_reference,
             bond_breaking,
+            checks,
         )
     else:
         # An angle's curvature is a bending force constant, a dihedral's a torsional one.
@@ -216,8 +217,12 @@ def summarize_curve(
     return row
 
 
-def _stretch_columns(row, flags, analysis, mass, diatomic, fragments, restricted, bond_breaking):
-    stretch = analyze_stretch(analysis, mass)
+def _stretch_columns(
+    row, flags, analysis, mass, diatomic, fragments, restricted, bond_breaking, checks
+):
+    # Levels only for a diatomic (a polyatomic's 1-D levels are not reported); the
+    # range advice of its few-levels flag only for a checked analysis.
+    stretch = analyze_stretch(analysis, mass, levels=diatomic, advice=checks)
     if stretch is None:
         return None
     flags.extend(stretch.flags)

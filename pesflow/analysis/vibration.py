@@ -372,7 +372,13 @@ class StretchAnalysis:
 
 
 def analyze_stretch(
-    analysis, reduced_mass_amu=None, *, level_tol_cm1=DEFAULT_LEVEL_TOL_CM1, max_levels=30
+    analysis,
+    reduced_mass_amu=None,
+    *,
+    level_tol_cm1=DEFAULT_LEVEL_TOL_CM1,
+    max_levels=30,
+    levels=True,
+    advice=True,
 ):
     """Force constant, harmonic wavenumber, Morse fit, levels and B_e of a scanned stretch.
 
@@ -381,6 +387,11 @@ def analyze_stretch(
         reduced_mass_amu: reduced mass in dalton, or None (then no wavenumber, levels or B_e).
         level_tol_cm1: wall-error tolerance of trusted levels (default 0.1 cm-1).
         max_levels: most levels computed (default 30).
+        levels: solve for the vibrational levels (default True; a stretch inside a
+            polyatomic molecule has no 1-D levels to report, and ``levels`` is then None).
+        advice: when fewer than two levels are trusted, estimate on the Morse fit the range
+            that would trap them, for the flag's advice (default True; a search of some
+            thirty level solutions, skipped by the uncertainty's re-analyses).
 
     Returns a :class:`StretchAnalysis`, or None when the curve has no bracketed minimum.
     """
@@ -399,6 +410,17 @@ def analyze_stretch(
     if reduced_mass_amu is None:
         return StretchAnalysis(p.q, p.energy_hartree, k_au, k_mdyn, morse=morse, flags=tuple(flags))
     omega = harmonic_wavenumber_cm1(k_au, reduced_mass_amu)
+    if not levels:
+        return StretchAnalysis(
+            p.q,
+            p.energy_hartree,
+            k_au,
+            k_mdyn,
+            omega_cm1=omega,
+            morse=morse,
+            b_e_cm1=rotational_constant_cm1(p.q, reduced_mass_amu),
+            flags=tuple(flags),
+        )
     levels = vibrational_levels(
         spline,
         curve.q[0],
@@ -410,7 +432,7 @@ def analyze_stretch(
     )
     if levels.n_trusted < 2:
         lo, hi = curve.q[0], curve.q[-1]
-        need = range_for_levels(morse, reduced_mass_amu) if morse is not None else None
+        need = range_for_levels(morse, reduced_mass_amu) if morse is not None and advice else None
         if need is not None and (need[0] < lo or need[1] > hi):
             lo, hi = min(lo, need[0]), max(hi, need[1])
         elif curve.energy_hartree[0] < curve.energy_hartree[-1]:

@@ -18,6 +18,8 @@ overrides are 1-based, as chemists write them.
 """
 
 import difflib
+import functools
+import json
 import numbers
 import re
 from pathlib import Path
@@ -45,34 +47,52 @@ _MASS_NUMBER_LABEL = re.compile(r"^(\d+)([A-Za-z]{1,2})$")
 _XYZ_EXPECTED = "'SYMBOL X Y Z' (element symbol or atomic number, then x, y, z in angstrom)"
 
 
+@functools.cache
+def _g2_entries() -> dict:
+    """ASE's g2 collection by name: ``(numbers, positions, initial magnetic moments)``.
+
+    Read from the data file that :mod:`ase.collections` reads (``ase/collections/g2.json``,
+    ASE's database JSON), with :mod:`json`: importing :mod:`ase.collections` or
+    :mod:`ase.build` costs 0.5-0.7 s of imports (ase.io, scipy.sparse) on every campaign
+    load.  ``tests/unit/test_molecules.py`` checks every entry against
+    :func:`ase.build.molecule`.
+    """
+    import ase
+
+    path = Path(ase.__file__).parent / "collections" / "g2.json"
+    entries = {}
+    for row in json.loads(path.read_text()).values():
+        if isinstance(row, dict) and "numbers" in row:
+            name = row["key_value_pairs"]["name"]
+            entries[name] = (row["numbers"], row["positions"], row.get("initial_magmoms"))
+    return entries
+
+
 def builtin_names():
     """Names of the built-in molecules: ASE's g2 collection, sorted.
 
     >>> "H2O" in builtin_names()
     True
     """
-    from ase.collections import g2
-
-    return sorted(g2.names)
+    return sorted(_g2_entries())
 
 
 def from_builtin(name):
-    """The molecule ``name`` from ASE's g2 collection (:func:`ase.build.molecule`).
+    """The molecule ``name`` from ASE's g2 collection (as :func:`ase.build.molecule`).
 
     An unknown name raises :class:`ValueError` with close matches.
 
     >>> from_builtin("H2O").get_chemical_formula()
     'H2O'
     """
-    import ase.build
-
-    names = builtin_names()
-    if name not in names:
-        by_lower = {n.lower(): n for n in names}
+    entries = _g2_entries()
+    if name not in entries:
+        by_lower = {n.lower(): n for n in entries}
         close = [by_lower[n] for n in difflib.get_close_matches(str(name).lower(), by_lower, n=5)]
         hint = f"did you mean {', '.join(close)}?" if close else "see builtin_names()"
         raise ValueError(f"unknown built-in molecule {name!r} (ASE g2 collection); {hint}")
-    return ase.build.molecule(name)
+    numbers, positions, magmoms = entries[name]
+    return Atoms(numbers=numbers, positions=positions, magmoms=magmoms)
 
 
 def _parse_symbol(field):
@@ -241,17 +261,11 @@ def close_contacts(atoms, min_distance_angstrom=0.5):
 
     Returns a list of ``(i, j, distance_angstrom)`` with 0-based ``i < j``, sorted.
     """
-    from scipy.spatial import cKDTree
-
-    positions = np.asarray(atoms.positions, dtype=float)
-    pairs = sorted(cKDTree(positions).query_pairs(min_distance_angstrom))
-    contacts = []
-    for i, j in pairs:
-        distance = float(np.linalg.norm(positions[j] - positions[i]))
-        # query_pairs includes the boundary; the threshold itself is not a contact.
-        if distance < min_distance_angstrom:
-            contacts.append((int(i), int(j), distance))
-    return contacts
+    # ASE's all-pairs distances: a molecule's few hundred atoms at most, and no scipy.spatial
+    # import (0.1 s) on every campaign load.
+    distances = atoms.get_all_distances()
+    i, j = np.nonzero(np.triu(distances < min_distance_angstrom, k=1))
+    return [(int(a), int(b), float(distances[a, b])) for a, b in zip(i, j, strict=True)]
 
 
 def _isotope_label_mass(label, symbol, number):

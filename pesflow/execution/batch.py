@@ -90,9 +90,10 @@ class _Walk:
     engine walks keep the state (density, relaxed geometry); :meth:`restart` forgets it.
     """
 
-    def __init__(self, task, threads, max_memory_mb=None):
+    def __init__(self, task, threads, max_memory_mb=None, writer=None):
         from pesflow.engine import EngineSettings, get_engine
         from pesflow.store.point_store import PointStore
+        from pesflow.store.writer import PointWriter
 
         self.task = task
         self.engine = get_engine(task["engine"])
@@ -107,6 +108,11 @@ class _Walk:
             max_memory_mb=int(max_memory_mb or task.get("max_memory_mb", 4000)),
         )
         self.store = PointStore(task["store"])
+        if writer is None or writer.store.root != self.store.root:
+            writer = PointWriter(self.store)
+        else:  # the job's store object: its listing caches serve every walk
+            self.store = writer.store
+        self.writer = writer  # durable writes overlapping the next point's computation
         self.symbols = tuple(task["symbols"])
         self.relax = task.get("relax")
         methods = list(dict.fromkeys(m for p in task["points"] for m in p["keys"]))
@@ -190,27 +196,33 @@ class _Walk:
         # e.g. the CCSD part of a CCSD(T) calculation: kept, it is free
         return point.get("byproduct_keys", {}).get(method)
 
-    def write(self, point, result):
-        """Store ``result`` at once (at its relaxed geometry when it has one)."""
-        from pesflow.store.point_store import make_record
-
-        key = self.key(point, result.method)
-        if key is None:
-            log.warning(
-                "no key planned for %s at walk %d; not stored", result.method, point["walk"]
+    def write(self, point, *results):
+        """Store the ``results`` of one point (each at its relaxed geometry when it has
+        one), durable before the next point's are taken (:class:`PointWriter`)."""
+        records = []
+        for result in results:
+            key = self.key(point, result.method)
+            if key is None:
+                log.warning(
+                    "no key planned for %s at walk %d; not stored", result.method, point["walk"]
+                )
+                continue
+            at = (
+                point["positions"]
+                if result.geometry is None
+                else result.geometry.positions_angstrom
             )
-            return
-        at = point["positions"] if result.geometry is None else result.geometry.positions_angstrom
-        self.store.write(
-            make_record(
-                key=key,
-                positions_angstrom=np.asarray(at, dtype=float).ravel().tolist(),
-                settings_json=json.dumps(self.settings_key(result.method), sort_keys=True),
-                created_unix=time.time(),
-                **self.shared,
-                **result.columns(),
+            records.append(
+                dict(
+                    key=key,
+                    positions_angstrom=np.asarray(at, dtype=float).ravel().tolist(),
+                    settings_json=json.dumps(self.settings_key(result.method), sort_keys=True),
+                    created_unix=time.time(),
+                    **self.shared,
+                    **result.columns(),
+                )
             )
-        )
+        self.writer.write(*records)
 
 
 def _contiguous_runs(computed: list[_Computed], points) -> list[list[_Computed]]:
@@ -280,9 +292,9 @@ def _backward_sweep(walk: _Walk, run: list[_Computed], points, status) -> int:
                     else float("nan"),
                 }
             ]
-            walk.write(point, result)
             if method in point["keys"]:
                 status[point["keys"][method]] = "done" if result.converged else "failed"
+        walk.write(point, *results.values())
         c.results = results
     return improved
 
@@ -325,6 +337,7 @@ def run_batch(
     threads: int = 1,
     continuity: bool = True,
     max_memory_mb: int | None = None,
+    writer=None,
 ) -> dict:
     """Compute every missing point of one batch and write its done marker.
 
@@ -335,11 +348,31 @@ def run_batch(
     threads : PySCF threads for this batch (Snakemake's ``threads``).
     max_memory_mb : memory of the job (Snakemake's ``mem_mb``); PySCF gets 80 % of it.
     continuity : redo suspect segments walking backwards (default True).
+    writer : the job's :class:`~pesflow.store.writer.PointWriter` (its caller closes it);
+        by default the batch has its own, closed and compacted before the marker.
 
     Returns the marker's content: counts of points computed, skipped, failed, improved.
     """
     task = read_task(task_path)
-    walk = _Walk(task, threads, None if max_memory_mb is None else int(0.8 * max_memory_mb))
+    memory = None if max_memory_mb is None else int(0.8 * max_memory_mb)
+    walk = _Walk(task, threads, memory, writer)
+    if walk.writer is writer:
+        return _run_walk(task, walk, continuity, done_path)
+    with walk.writer:
+        marker = _run_walk(task, walk, continuity, None)
+    walk.writer.compact()
+    _write_marker(done_path, marker)
+    return marker
+
+
+def _write_marker(done_path, marker) -> None:
+    if done_path is not None:  # None: one walk of a job, whose marker run_job writes
+        done_path = Path(done_path)
+        done_path.parent.mkdir(parents=True, exist_ok=True)
+        atomic_write(done_path, json.dumps(marker, indent=1), fsync=False)
+
+
+def _run_walk(task, walk, continuity, done_path) -> dict:
     points = task["points"]
     counts = {"computed": 0, "skipped": 0, "failed": 0, "improved": 0}
     status = {}
@@ -347,9 +380,11 @@ def run_batch(
     computed: list[_Computed] = []
     previous_walk = None
     t0 = time.time()
+    walk.writer.flush()  # the job's earlier walks are listed too
+    stored = walk.store.keys()  # one listing, not a look-up per point
     for index, point in enumerate(points):
         wanted = point["keys"]
-        missing = [m for m, k in wanted.items() if k in recompute or not walk.store.has(k)]
+        missing = [m for m, k in wanted.items() if k in recompute or k not in stored]
         counts["skipped"] += len(wanted) - len(missing)
         status.update({k: "cached" for m, k in wanted.items() if m not in missing})
         if not missing:
@@ -363,10 +398,9 @@ def run_batch(
             continue
         results = walk.compute(point, missing)
         previous_walk = point["walk"]
-        for method, result in results.items():
-            if method in wanted and method not in missing:
-                continue
-            walk.write(point, result)
+        fresh = {m: r for m, r in results.items() if m not in wanted or m in missing}
+        walk.write(point, *fresh.values())
+        for method, result in fresh.items():
             if method in wanted:
                 counts["computed"] += 1
                 status[wanted[method]] = "done" if result.converged else "failed"
@@ -384,10 +418,8 @@ def run_batch(
             counts["improved"] += _backward_sweep(walk, run, points, status)
     counts["failed"] = sum(1 for v in status.values() if v == "failed")
     marker = {"batch_id": task["batch_id"], "wall_s": time.time() - t0, **counts, "points": status}
-    if done_path is not None:  # None: one walk of a job, whose marker run_job writes
-        done_path = Path(done_path)
-        done_path.parent.mkdir(parents=True, exist_ok=True)
-        atomic_write(done_path, json.dumps(marker, indent=1), fsync=False)
+    walk.writer.flush()  # every point durable before a marker says so
+    _write_marker(done_path, marker)
     return marker
 
 
@@ -437,22 +469,36 @@ def run_job(
     t0 = time.time()
     counts = {"computed": 0, "skipped": 0, "failed": 0, "improved": 0}
     status, walks = {}, []
+    from pesflow.store.point_store import PointStore
+    from pesflow.store.writer import PointWriter
+
     progress = Path(done_path).parent.parent / "progress" / f"{job['job_id']}.json"
-    for task in job["walks"]:
-        _report_progress(progress, job, task, walks, status)
-        marker = run_batch(task, None, threads, continuity, max_memory_mb)
-        for name in counts:
-            counts[name] += marker[name]
-        status.update(marker["points"])
-        walks.append({"batch_id": marker["batch_id"], "wall_s": marker["wall_s"]})
-        log.info(
-            "walk %s: %d computed, %d failed, %d cached, %.1f s",
-            marker["batch_id"],
-            marker["computed"],
-            marker["failed"],
-            marker["skipped"],
-            marker["wall_s"],
-        )
+    writers = {}  # one PointWriter per store (a job's walks share one)
+    try:
+        for task in job["walks"]:
+            _report_progress(progress, job, task, walks, status)
+            root = read_task(task)["store"]
+            if root not in writers:
+                writers[root] = PointWriter(PointStore(root))
+            writer = writers[root]
+            marker = run_batch(task, None, threads, continuity, max_memory_mb, writer)
+            for name in counts:
+                counts[name] += marker[name]
+            status.update(marker["points"])
+            walks.append({"batch_id": marker["batch_id"], "wall_s": marker["wall_s"]})
+            log.info(
+                "walk %s: %d computed, %d failed, %d cached, %.1f s",
+                marker["batch_id"],
+                marker["computed"],
+                marker["failed"],
+                marker["skipped"],
+                marker["wall_s"],
+            )
+    finally:
+        for writer in writers.values():
+            writer.close()
+    for writer in writers.values():
+        writer.compact()
     _report_progress(progress, job, None, walks, status)
     marker = {
         "batch_id": job["job_id"],

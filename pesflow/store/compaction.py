@@ -104,6 +104,44 @@ def compact(
     return stats
 
 
+def compact_written(store, written: list[tuple[dict, int]]) -> dict:
+    """Move the fragments one writer made into one new part, from the records it holds.
+
+    ``written``: (record, inode) of each fragment written, as :class:`PointWriter` keeps
+    them.  A job calls this at its end so that the run's final :func:`compact` has little
+    left to read; nothing is read back from disk.  Same rules as :func:`compact`: under the
+    compaction lock (skipped when another process holds it), the part is durable before a
+    fragment goes, and a fragment replaced since it was written (another inode) stays.
+    Returns stats: ``skipped`` (None or reason), ``fragments_compacted``, ``part``.
+    """
+    stats = {"skipped": None, "fragments_compacted": 0, "part": None}
+    if not written:
+        stats["skipped"] = "nothing written"
+        return stats
+    with _compaction_lock(store) as locked:
+        if not locked:
+            stats["skipped"] = "another process holds the compaction lock"
+            return stats
+        latest = {}  # a key written twice: its last record
+        for record, inode in written:
+            latest[record["key"]] = (record, inode)
+        part = _new_part_path(store)
+        records = [record for record, _ in latest.values()]
+        _write_part(store, pa.Table.from_pylist(records, schema=POINT_SCHEMA), part)
+        stats["part"] = part
+        removed = 0
+        for key, (_, inode) in latest.items():
+            path = store.fragment_path(key)
+            if _same_inode(path, inode):
+                with contextlib.suppress(FileNotFoundError):
+                    os.unlink(path)
+                    removed += 1
+        if store.fsync:
+            fsync_dir(store.fragments_dir)
+        stats["fragments_compacted"] = removed
+    return stats
+
+
 def _compact_fragments(store, names: list[str], stats: dict) -> None:
     tables, read = [], []
     for name in names:

@@ -24,10 +24,22 @@ def _utc_stamp() -> str:
     return datetime.now(UTC).strftime("%Y%m%dT%H%M%S%fZ")
 
 
-def _write_parquet_atomic(table: pa.Table, path: Path, *, fsync: bool) -> None:
-    """Write ``table`` to ``path`` through a dot-named temp file in the same folder."""
+#: How a one-record fragment is written: plain, without dictionaries or statistics.  Its
+#: few kilobytes gain nothing from them, and zstd's set-up per column made the write four
+#: times slower (1.3 ms against 0.3 ms a point); parts, read many times, keep zstd.
+FRAGMENT_WRITE = {"compression": "none", "use_dictionary": False, "write_statistics": False}
+PART_WRITE = {"compression": "zstd"}
+
+
+def _write_parquet_atomic(
+    table: pa.Table, path: Path, *, fsync: bool, options: dict = PART_WRITE
+) -> int:
+    """Write ``table`` to ``path`` through a dot-named temp file in the same folder; returns
+    the file's inode (kept by the rename), which tells later whether it was replaced."""
     with atomic_path(path, fsync=fsync) as tmp:
-        pq.write_table(table, tmp, compression="zstd")
+        pq.write_table(table, tmp, **options)
+        inode = os.stat(tmp).st_ino
+    return inode
 
 
 def _magic_problem(name, dir_fd: int | None = None) -> tuple[str | None, int | None]:

@@ -57,6 +57,7 @@ import pyarrow.compute as pc
 from pesflow.errors import StoreError
 from pesflow.formats.atomic import atomic_write
 from pesflow.store.files import (
+    FRAGMENT_WRITE,
     _BadFile,
     _content_problem,
     _dedupe_keep_last,
@@ -210,20 +211,21 @@ class PointStore:
         """Path of the fragment file of ``key`` (whether or not it exists)."""
         return self.fragments_dir / f"{_check_key(key)}{_FRAGMENT_SUFFIX}"
 
-    def write(self, record: dict) -> None:
+    def write(self, record: dict) -> int:
         """Make one point record durable as ``fragments/<key>.parquet``.
 
         ``record`` is validated with :func:`make_record` (so defaults are filled).  The file
         is written to a dot-named temp file, fsynced, renamed atomically over any earlier
         fragment of the same key and the folder fsynced: a reader sees the old file or the new
-        one, never a partial one.  Raises :class:`StoreError` when the write fails.
+        one, never a partial one.  Returns the fragment's inode.  Raises
+        :class:`StoreError` when the write fails.
         """
         record = make_record(**record)
         self._ensure_root()
         table = pa.Table.from_pylist([record], schema=POINT_SCHEMA)
         path = self.fragment_path(record["key"])
         try:
-            _write_parquet_atomic(table, path, fsync=self.fsync)
+            return _write_parquet_atomic(table, path, fsync=self.fsync, options=FRAGMENT_WRITE)
         except OSError as exc:
             raise StoreError(f"cannot write point {record['key']} to {path}: {exc}") from exc
 

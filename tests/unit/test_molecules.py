@@ -41,10 +41,17 @@ def test_builtin_names_are_the_g2_collection():
 
 
 def test_from_builtin_is_ase_molecule():
-    water = from_builtin("H2O")
-    reference = ase.build.molecule("H2O")
-    assert water.get_chemical_symbols() == reference.get_chemical_symbols()
-    np.testing.assert_array_equal(water.positions, reference.positions)
+    """Every built-in molecule equals ASE's own ase.build.molecule: atoms, positions and the
+    initial magnetic moments (pesflow reads the collection's data file itself)."""
+    for name in g2.names:
+        got, reference = from_builtin(name), ase.build.molecule(name)
+        assert got.get_chemical_symbols() == reference.get_chemical_symbols(), name
+        np.testing.assert_array_equal(got.positions, reference.positions, err_msg=name)
+        np.testing.assert_array_equal(
+            got.get_initial_magnetic_moments(),
+            reference.get_initial_magnetic_moments(),
+            err_msg=name,
+        )
 
 
 @pytest.mark.parametrize("typo, expected", [("H20", "H2O"), ("h2o", "H2O"), ("C6H5", "C6H6")])

@@ -232,23 +232,28 @@ def check_basis(basis: str, elements) -> None:
 
     >>> check_basis("sto-3g", ["O", "H", "H"])
     """
-    from pyscf.gto import basis as pyscf_basis
-
     if not isinstance(basis, str) or not basis.strip():
         raise EngineSetupError(f"basis must be a non-empty name, got {basis!r}")
     for element in dict.fromkeys(elements):
-        try:
-            with warnings.catch_warnings():
-                # PySCF suggests installing basis-set-exchange for unknown names.
-                warnings.simplefilter("ignore")
-                shells = pyscf_basis.load(basis, element)
-        except pyscf_basis.BasisNotFoundError as exc:
-            if "not found for" not in str(exc):
-                raise EngineSetupError(
-                    f"unknown basis {basis!r} (not in PySCF's library)"
-                ) from None
-            shells = []
-        except (KeyError, ValueError, RuntimeError) as exc:
-            raise EngineSetupError(f"basis {basis!r} for {element}: {exc}") from exc
-        if not shells:
-            raise EngineSetupError(f"basis {basis!r} has no functions for element {element}")
+        _check_element_basis(basis, element)
+
+
+@functools.lru_cache(maxsize=1024)
+def _check_element_basis(basis: str, element: str) -> None:
+    # Cached (a walk checks the same pairs at every point; a load costs ~1 ms); a failure
+    # raises and is not cached.
+    from pyscf.gto import basis as pyscf_basis
+
+    try:
+        with warnings.catch_warnings():
+            # PySCF suggests installing basis-set-exchange for unknown names.
+            warnings.simplefilter("ignore")
+            shells = pyscf_basis.load(basis, element)
+    except pyscf_basis.BasisNotFoundError as exc:
+        if "not found for" not in str(exc):
+            raise EngineSetupError(f"unknown basis {basis!r} (not in PySCF's library)") from None
+        shells = []
+    except (KeyError, ValueError, RuntimeError) as exc:
+        raise EngineSetupError(f"basis {basis!r} for {element}: {exc}") from exc
+    if not shells:
+        raise EngineSetupError(f"basis {basis!r} has no functions for element {element}")
