@@ -313,20 +313,24 @@ def state_symmetries(states: StateSet) -> list[str]:
     space that is not symmetric; an open shell) ``""``.  The ground state of a closed
     shell is totally symmetric.
     """
-    from pyscf import symm
-
     n = len(states.amplitudes) + 1
     if len(states.orbitals) != 1 or states.mol is None or states.mol.spin != 0:
         return [""] * n
     try:
-        mol = _symmetric_copy(states.mol)
-        ovlp = mol.intor_symmetric("int1e_ovlp")
-        (occ, vir), rotated = states.orbitals[0], []
-        for space in (occ, vir):
-            adapted, ids = _adapted_space(mol, ovlp, space)
-            rotated.append((space.T @ ovlp @ adapted, ids))
-    except (ValueError, np.linalg.LinAlgError, RuntimeError):
+        return _labels(states)
+    except Exception:  # a label is a description; it never fails a point
         return [""] * n
+
+
+def _labels(states: StateSet) -> list[str]:
+    from pyscf import symm
+
+    mol = _symmetric_copy(states.mol)
+    ovlp = mol.intor_symmetric("int1e_ovlp")
+    (occ, vir), rotated = states.orbitals[0], []
+    for space in (occ, vir):
+        adapted, ids = _adapted_space(mol, ovlp, space)
+        rotated.append((space.T @ ovlp @ adapted, ids))
     (u_occ, occ_ids), (u_vir, vir_ids) = rotated
     pair = np.bitwise_xor.outer(occ_ids, vir_ids)
     labels = [symm.irrep_id2name(mol.groupname, 0)]
