@@ -202,10 +202,11 @@ def _checked_molecule(name, atoms, spec: MoleculeSpec, loc, err, **extra) -> Mol
                 f"atom {atom} is out of range; this molecule has atoms 1-{n}",
             )
         overrides[atom] = value
-    try:
-        masses = mol.masses_with_isotopes(atoms, overrides or None)
-    except ValueError as exc:
-        raise err(loc + ("isotopes",), str(exc)) from None
+    if overrides:  # checked now, with the spec's location; plain masses on first use
+        try:
+            mol.masses_with_isotopes(atoms, overrides)
+        except ValueError as exc:
+            raise err(loc + ("isotopes",), str(exc)) from None
     fragments = []
     for f, frag in enumerate(spec.fragments or []):
         floc = loc + ("fragments", f)
@@ -245,7 +246,7 @@ def _checked_molecule(name, atoms, spec: MoleculeSpec, loc, err, **extra) -> Mol
         atoms=atoms,
         charge=charge,
         multiplicity=multiplicity,
-        masses_amu=masses,
+        isotopes=overrides,
         fragments=fragments,
         **extra,
     )

@@ -4,6 +4,7 @@
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -40,7 +41,8 @@ class Molecule:
     atoms: Any  # ase.Atoms
     charge: int
     multiplicity: int
-    masses_amu: np.ndarray
+    #: isotope overrides of the spec, 1-based atom number -> mass in dalton or a label
+    isotopes: dict = field(default_factory=dict)
     fragments: list[dict] = field(default_factory=list)
     #: the set (molecule entry) this molecule belongs to, "" for a single molecule
     set_name: str = ""
@@ -62,6 +64,15 @@ class Molecule:
     @property
     def symbols(self) -> tuple[str, ...]:
         return tuple(self.atoms.get_chemical_symbols())
+
+    @functools.cached_property
+    def masses_amu(self) -> np.ndarray:
+        """Atomic masses in dalton (most abundant isotopes, with the overrides); made on
+        first use, since the isotope table's import (PySCF's) costs a campaign load ~0.4 s
+        and only the analysis needs masses."""
+        from pesflow.campaign.molecules import masses_with_isotopes
+
+        return masses_with_isotopes(self.atoms, self.isotopes or None)
 
 
 @dataclass

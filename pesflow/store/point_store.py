@@ -1,7 +1,9 @@
 """Durable Parquet point store: one record per computed point, keyed by its content hash.
 
 A point is one geometry at one level of theory.  Its record (:data:`POINT_SCHEMA`) is made
-durable the moment it is computed, so a batch killed halfway loses only the point in flight.
+durable the moment it is computed, so a batch killed halfway loses only the point in flight
+(a job writes through :class:`~pesflow.store.writer.PointWriter`, one point ahead of its
+computation: the point being computed and the one being written).
 
 Layout under the store root::
 
