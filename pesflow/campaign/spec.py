@@ -407,15 +407,34 @@ class ActiveLabelsSpec(_Strict):
     ao_labels: list[str] = Field(min_length=1)
 
 
+class SolventSpec(_Strict):
+    """An implicit solvent: PySCF's IEF-PCM (``pcm``) or ddCOSMO (``ddcosmo``), around
+    a solvent named in PySCF's solvent table or given by its dielectric constant."""
+
+    model: Literal["pcm", "ddcosmo"]
+    #: a solvent of PySCF's table (pyscf.solvent.smd.solvent_db), e.g. water
+    name: str | None = None
+    #: static dielectric constant (above 1), instead of a name
+    eps: FiniteFloat | None = Field(default=None, gt=1)
+
+    @model_validator(mode="after")
+    def _name_or_eps(self):
+        if (self.name is None) == (self.eps is None):
+            raise PydanticCustomError(
+                "solvent", "give exactly one of name (e.g. water) or eps (e.g. 78.3553)"
+            )
+        return self
+
+
 class LevelSpec(_Strict):
     """Levels of theory: every method with every basis set listed.  A tight-binding
     level (``gfn2-xtb``, ``gfn1-xtb``) has its own basis and is given without one.
 
     Level options (:data:`pesflow.engine.LEVEL_OPTIONS`) apply to every method listed
     that takes them and become part of its name (``casscf(6,6)``,
-    ``tda-b3lyp(singlets=4)``); a method that takes none refuses them.  ``states`` means
-    the roots averaged in the CASSCF for casscf/nevpt2, and the excited states above the
-    ground state for the excited-state methods."""
+    ``tda-b3lyp(singlets=4)``, ``b3lyp-d3bj(pcm:water)``); a method that takes none
+    refuses them.  ``states`` means the roots averaged in the CASSCF for casscf/nevpt2,
+    and the excited states above the ground state for the excited-state methods."""
 
     method: str | list[str]
     basis: str | list[str] | None = None
@@ -431,6 +450,10 @@ class LevelSpec(_Strict):
     #: excited-state methods: number states by energy at each point, or follow each
     #: state's character along the walk
     follow: Literal["energy", "character"] | None = None
+    #: hf and DFT: empirical dispersion correction (pyscf-dispersion), D3(BJ) or D4
+    dispersion: Literal["d3bj", "d4"] | None = None
+    #: hf and DFT: implicit solvent, {model: pcm|ddcosmo, name: water} or {..., eps: 78.4}
+    solvent: SolventSpec | None = None
 
     @field_validator("active", mode="before")
     @classmethod
@@ -449,11 +472,14 @@ class LevelSpec(_Strict):
     def options(self) -> dict:
         """The level options given, by name (as :func:`pesflow.engine.level_method` takes
         them)."""
+        from pesflow.engine import LEVEL_OPTIONS
+
         out = {}
-        for name in ("active", "states", "weights", "spin", "follow"):
+        for name in LEVEL_OPTIONS:
             value = getattr(self, name)
             if value is not None:
-                out[name] = value.model_dump() if isinstance(value, BaseModel) else value
+                is_model = isinstance(value, BaseModel)
+                out[name] = value.model_dump(exclude_none=True) if is_model else value
         return out
 
     #: ``cbs``: one derived level per method, extrapolated to the complete basis set from

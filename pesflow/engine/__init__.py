@@ -69,7 +69,9 @@ MULTIREFERENCE_METHODS = ("casscf", "nevpt2")
 #: ``states`` means two things by method: the number of averaged roots of a
 #: multireference level (casscf/nevpt2, with ``weights``) and the number of excited
 #: states above the ground state of an excited-state level (with ``spin``, ``follow``).
-LEVEL_OPTIONS = ("active", "states", "weights", "spin", "follow")
+#: ``dispersion`` and ``solvent`` apply to hf and DFT levels (b3lyp-d3bj(pcm:water),
+#: see :mod:`pesflow.engine.pyscf.corrections`).
+LEVEL_OPTIONS = ("active", "states", "weights", "spin", "follow", "dispersion", "solvent")
 
 #: Joins a multi-state method's name and a state index in the name of that state's
 #: record (``tda-b3lyp(singlets=3)#2``); state 0 is the ground state.

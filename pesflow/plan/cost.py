@@ -347,7 +347,8 @@ def total_seconds(table: pd.DataFrame, points: pd.DataFrame, sizes, grid_level: 
     pending = points[points["status"] == "pending"]
     hf_levels = set(pending.loc[pending["method"] == "hf", "level"])
     for (mol, method, basis), grp in pending.groupby(["molecule", "method", "basis"]):
-        if method_class(method) in ("hf", "dft") or f"hf/{basis}" not in hf_levels:
+        shares_hf = method_info(method).family == "hf"  # not hf(pcm:water), casscf(6,6)
+        if method_class(method) in ("hf", "dft") or not shares_hf or f"hf/{basis}" not in hf_levels:
             continue
         total -= len(grp) * scf_seconds(sizes.get((mol, basis), Size(50)))
     return max(total, 0.0)

@@ -3,9 +3,9 @@
 A multi-state level (TDA, TDDFT, CIS, EOM-CCSD; :attr:`pesflow.engine.MethodInfo.n_states`)
 has one point per geometry and state; the plan's ``state`` column is the state's index
 by energy at that point (0 the ground state), and each record's ``extra_json["state"]``
-holds its label, excitation energy, oscillator strength and its overlaps with the
-walk's previous point.  Here those become columns, and for a level whose states are
-followed by character the ``state`` column is renumbered into curves
+holds its label, point-group symmetry, excitation energy, oscillator strength and its
+overlaps with the walk's previous point.  Here those become columns, and for a level
+whose states are followed by character the ``state`` column is renumbered into curves
 (:func:`pesflow.analysis.states.follow_states`); ``adiabatic_state`` keeps the index by
 energy.
 """
@@ -21,7 +21,8 @@ from pesflow.analysis.states import follow_states
 from pesflow.engine import method_info
 
 #: Columns added to the points table for the states of multi-state levels.
-STATE_COLUMNS = ["adiabatic_state", "state_label", "excitation_energy_ev", "oscillator_strength"]
+STATE_COLUMNS = ["adiabatic_state", "state_label", "state_symmetry", "excitation_energy_ev",
+                 "oscillator_strength"]  # fmt: skip
 #: Largest difference (angstrom) between a stored neighbour's coordinates and the walk's
 #: previous point for the overlaps to count as a link between them.
 SAME_POSITION_ANGSTROM = 1e-6
@@ -47,6 +48,8 @@ def add_state_columns(frame: pd.DataFrame, plan) -> pd.DataFrame:
     )
     frame["adiabatic_state"] = frame["state"]
     frame["state_label"] = [i.get("label") for i in infos]
+    # point-group label at that geometry (Abelian subgroup), "" where none is reliable
+    frame["state_symmetry"] = [i.get("symmetry") for i in infos]
     frame["excitation_energy_ev"] = [i.get("excitation_energy_ev", np.nan) for i in infos]
     frame["oscillator_strength"] = [i.get("oscillator_strength", np.nan) for i in infos]
     for method in multi:
@@ -136,6 +139,7 @@ def add_state_quantities(summary: pd.DataFrame, plan, scans: pd.DataFrame) -> pd
         return summary
     summary = summary.copy()
     summary["state_label"] = None
+    summary["state_symmetry"] = None
     ids = {(gs.molecule, gs.scan): gs.set_id for gs in plan.geometry_sets}
     for (molecule, scan, level), rows in summary[summary["method"].isin(multi)].groupby(
         ["molecule", "scan", "level"], sort=False
@@ -146,6 +150,8 @@ def add_state_quantities(summary: pd.DataFrame, plan, scans: pd.DataFrame) -> pd
             first = points[points["state"] == row["state"]].sort_values("walk")
             labels = first["state_label"].dropna() if "state_label" in first else []
             summary.at[i, "state_label"] = labels.iloc[0] if len(labels) else None
+            symmetry = first["state_symmetry"].dropna() if "state_symmetry" in first else []
+            summary.at[i, "state_symmetry"] = symmetry.iloc[0] if len(symmetry) else None
         if len(gs.coordinate_kinds) != 1:
             continue
         _excitations(summary, rows, points, gs)

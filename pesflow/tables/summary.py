@@ -86,7 +86,7 @@ def _curve_row(campaign, gs, sub, table, uncertainties=True):
     _diagnose(row, sub, column, kind)
     more = _active_space_flags(sub, column)
     info = method_info(sub["method"].iloc[0])
-    if info.options and np.isfinite(row.get("d_e_ev", np.nan)):
+    if "states" in info.options and np.isfinite(row.get("d_e_ev", np.nan)):
         fragment_energies = options.get("fragment_energies_hartree")
         more.append(_dissociation_note(info, fragment_energies))
         if fragment_energies is not None:

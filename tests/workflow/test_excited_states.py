@@ -91,6 +91,9 @@ def test_followed_curve_keeps_the_sigma_state(campaign):
     assert curve["adiabatic_state"].tolist()[-1] == 5
     extra = json.loads(curve["extra_json"].iloc[1])["state"]
     assert max(extra["neighbour_overlaps"]) > 0.9
+    # a Sigma+ state all along (A1 in PySCF's C2v labels of a linear molecule without
+    # inversion), which symmetry alone says, computed without symmetry at each point
+    assert set(curve["state_symmetry"]) == {"A1"}
 
 
 def test_summary_has_a_row_per_state_with_the_crossing(campaign):

@@ -6,6 +6,8 @@ One module per job:
   :class:`~pesflow.engine.MethodInfo`, basis checks;
 * :mod:`~pesflow.engine.pyscf.scf` - the SCF of one point: build, guess, convergence
   ladder, stability analysis and broken-symmetry guesses;
+* :mod:`~pesflow.engine.pyscf.corrections` - dispersion corrections (pyscf-dispersion)
+  and implicit solvent (IEF-PCM, ddCOSMO) of hf and DFT levels, in the method's name;
 * :mod:`~pesflow.engine.pyscf.correlated` - MP2, CCSD, CCSD(T) and gradient scanners;
 * :mod:`~pesflow.engine.pyscf.engine` - :class:`PySCFEngine` and its walk
   (constrained relaxation through :mod:`pesflow.engine.relax`).

@@ -27,7 +27,7 @@ from pesflow.engine import (
 )
 from pesflow.engine import relax as relaxation
 from pesflow.engine.base import Engine, EngineWalk, error_line
-from pesflow.engine.pyscf import correlated, excited, methods
+from pesflow.engine.pyscf import corrections, correlated, excited, methods
 from pesflow.engine.pyscf.scf import (
     SCF_LABELS,
     build_mole,
@@ -196,6 +196,7 @@ class PySCFWalk(EngineWalk):
                 records.update(self._excited_records(mf, level, record, ccsd, frozen, geometry))
             elif method == family:
                 records[method] = record(method, mf.e_tot, ladder.wall_s)
+                records[method].extra = corrections.energy_parts(mf)  # dispersion, solvent
             elif method == "mp2":
                 step_start = time.perf_counter()
                 try:
@@ -282,6 +283,7 @@ class PySCFWalk(EngineWalk):
             overlaps = excited.state_overlaps(previous, states)
         self.excited[method] = states
         closed = mf.mol.spin == 0 and np.asarray(mf.mo_occ).ndim == 1
+        symmetries = excited.state_symmetries(states)  # "" where none is reliable
         out = {}
         for k, name in enumerate(names):
             ok = bool(states.converged[k])
@@ -291,6 +293,7 @@ class PySCFWalk(EngineWalk):
                 "index": k,
                 "label": level.label(k, closed),
                 "spin": ("singlet" if k == 0 else level.spin) if closed else "",
+                "symmetry": symmetries[k],
                 "excitation_energy_ev": float(
                     (states.energies_hartree[k] - states.energies_hartree[0]) * HARTREE_TO_EV
                 ),
@@ -392,7 +395,7 @@ class PySCFWalk(EngineWalk):
         record = self.compute(reached, [method])[method]
         relaxation.finish_info(info, constraints, reached)
         record.wall_s = info["wall_s"]
-        record.extra = {"relaxation": info}
+        record.extra = {**record.extra, "relaxation": info}
         record.geometry = reached
         if not converged:
             reason = f"geometry optimisation did not converge in {relaxation.RELAX_MAX_STEPS} steps"

@@ -12,7 +12,8 @@ with the neighbour's, see :mod:`pesflow.analysis.states`).
 One point gives one record per state (:func:`pesflow.engine.state_record`): state 0
 is the ground state (the SCF, or the CCSD under EOM-CCSD), states 1..n the excited
 states in order of energy.  Each record's ``extra["state"]`` holds its index, label,
-spin, excitation energy, oscillator strength (length gauge; 0 for triplets, NaN for
+spin, point-group symmetry (:func:`state_symmetries`; ``""`` where not reliable),
+excitation energy, oscillator strength (length gauge; 0 for triplets, NaN for
 EOM-CCSD, which PySCF gives no transition moments for) and, for the excited states,
 the overlaps of its excitation with each excited state of the previous point of the
 walk and that point's positions (so that the analysis can check it is the neighbour
@@ -54,6 +55,9 @@ DAVIDSON_MAX_CYCLE = 200
 #: default 1e-5; tighter than 1e-7 the solver stalls on near-linear dependence, as
 #: measured here on LiH/6-31G at 1.6 A with 1e-8).
 DAVIDSON_TOLERANCE_HARTREE = 1e-7
+#: Share of a state's amplitude weight (and of an orbital's norm) that one irrep must
+#: hold for the state (orbital) to be labelled by it (:func:`state_symmetries`).
+SYMMETRY_WEIGHT = 0.99
 #: Largest relative residual of a converged TDA/TDDFT root (its energy is then right to
 #: about the residual squared, far below 1e-8 hartree).
 MAX_RESIDUAL = 1e-4
@@ -289,6 +293,94 @@ def run_eom(mycc, level: ExcitedLevel) -> StateSet:
         orbitals=_spin_blocks(mycc._scf, mask=mask),
         mol=mycc._scf.mol,
     )
+
+
+def state_symmetries(states: StateSet) -> list[str]:
+    """The point-group label of each state (ground state first) of a closed-shell
+    reference, in the largest Abelian subgroup PySCF labels orbitals in (D2h and its
+    subgroups; C2v for a linear molecule without inversion, D2h with it); ``""`` where
+    no label is reliable.
+
+    The molecule's point group at this geometry is PySCF's (``Mole.build`` with
+    symmetry, which keeps the orientation).  A state's symmetry does not depend on the
+    orbitals chosen within the occupied and the virtual space, so both spaces are
+    re-expressed in symmetry-adapted orbitals (:func:`_adapted_space`; this also sorts
+    out degenerate orbitals that the calculation without symmetry mixed), the
+    amplitudes rotated into them, and an excitation i->a given the irrep of the
+    product (XOR of PySCF's Abelian irrep ids).  A state is labelled when
+    :data:`SYMMETRY_WEIGHT` of its amplitude weight lies in one irrep; otherwise (a
+    degenerate pair of states mixed by the calculation, whose irrep is not Abelian; a
+    space that is not symmetric; an open shell) ``""``.  The ground state of a closed
+    shell is totally symmetric.
+    """
+    n = len(states.amplitudes) + 1
+    if len(states.orbitals) != 1 or states.mol is None or states.mol.spin != 0:
+        return [""] * n
+    try:
+        return _labels(states)
+    except Exception:  # a label is a description; it never fails a point
+        return [""] * n
+
+
+def _labels(states: StateSet) -> list[str]:
+    from pyscf import symm
+
+    mol = _symmetric_copy(states.mol)
+    ovlp = mol.intor_symmetric("int1e_ovlp")
+    (occ, vir), rotated = states.orbitals[0], []
+    for space in (occ, vir):
+        adapted, ids = _adapted_space(mol, ovlp, space)
+        rotated.append((space.T @ ovlp @ adapted, ids))
+    (u_occ, occ_ids), (u_vir, vir_ids) = rotated
+    pair = np.bitwise_xor.outer(occ_ids, vir_ids)
+    labels = [symm.irrep_id2name(mol.groupname, 0)]
+    for (x,) in states.amplitudes:
+        weight = (u_occ.T @ np.asarray(x, dtype=float) @ u_vir) ** 2
+        shares = {int(k): float(weight[pair == k].sum()) for k in np.unique(pair)}
+        best = max(shares, key=shares.get)
+        good = shares[best] >= SYMMETRY_WEIGHT * float(weight.sum())
+        labels.append(symm.irrep_id2name(mol.groupname, best) if good else "")
+    return labels
+
+
+def _symmetric_copy(mol):
+    # The same molecule with PySCF's point group (orientation and AO basis unchanged).
+    sym = mol.copy()
+    sym.symmetry = True
+    sym.build()
+    subgroup = {"Dooh": "D2h", "Coov": "C2v"}.get(sym.groupname)
+    if subgroup is not None:
+        sym.symmetry = subgroup
+        sym.build()
+    return sym
+
+
+def _adapted_space(mol, ovlp, orbitals, tolerance=1e-4):
+    """Symmetry-adapted orthonormal orbitals spanning the same space as ``orbitals``
+    (columns), and the Abelian irrep id of each; ValueError when the space is not a sum
+    of irreps (a mixed eigenvalue, or a count that does not add up).
+
+    For each irrep, with B its symmetry-adapted AO combinations (``mol.symm_orb``), the
+    orbitals of the space in that irrep are the solutions of
+    B^T S P S B v = lambda B^T S B v with lambda = 1, P = C C^T the space's projector.
+    """
+    import scipy.linalg
+
+    projected = ovlp @ orbitals
+    columns, ids = [], []
+    for irrep, basis in zip(mol.irrep_id, mol.symm_orb):
+        if basis.shape[1] == 0:
+            continue
+        inside = basis.T @ projected
+        values, vectors = scipy.linalg.eigh(inside @ inside.T, basis.T @ ovlp @ basis)
+        if np.any((values > tolerance) & (values < 1 - tolerance)):
+            raise ValueError("the orbital space is not symmetric")
+        keep = values >= 1 - tolerance
+        columns.append(basis @ vectors[:, keep])
+        ids += [int(irrep) % 10] * int(keep.sum())  # % 10: PySCF's D2h-subgroup id
+    if len(ids) != orbitals.shape[1]:
+        raise ValueError("the orbital space is not symmetric")
+    return np.hstack(columns), np.asarray(ids, dtype=int)
 
 
 def state_overlaps(previous: StateSet, current: StateSet) -> np.ndarray:

@@ -24,6 +24,7 @@ import numpy as np
 
 from pesflow.engine import EngineSettings, Geometry
 from pesflow.engine.base import error_line
+from pesflow.engine.pyscf import corrections
 from pesflow.errors import EngineSetupError
 
 #: Damping factor and iteration budget factor of the "damped" rung.
@@ -143,7 +144,8 @@ def build_mole(geometry: Geometry, basis: str, settings: EngineSettings):
 
 
 def build_scf(mol, family: str, kind: str, settings: EngineSettings):
-    """The (not yet run) SCF object of an scf family ("hf" or a functional) and a
+    """The (not yet run) SCF object of an scf family ("hf" or a functional, either with
+    its dispersion and solvent, :mod:`~pesflow.engine.pyscf.corrections`) and a
     reference kind (restricted, unrestricted, restricted-open)."""
     from pyscf import dft, scf
 
@@ -155,9 +157,10 @@ def build_scf(mol, family: str, kind: str, settings: EngineSettings):
         ("dft", "unrestricted"): dft.uks.UKS,
         ("dft", "restricted-open"): dft.roks.ROKS,
     }
+    level = corrections.parse(family) or corrections.ScfLevel(family)
     mf = classes[family_kind(family), kind](mol)
-    if family != "hf":
-        mf.xc = family
+    if level.base != "hf":
+        mf.xc = level.core  # a dispersion suffix is PySCF's own: b3lyp-d3bj
         mf.grids.level = settings.dft_grid_level
     mf.conv_tol = settings.scf_energy_tolerance_hartree
     mf.max_cycle = settings.scf_max_iterations
@@ -171,7 +174,7 @@ def build_scf(mol, family: str, kind: str, settings: EngineSettings):
     if handle is not None:
         handle.close()
     mf.chkfile = None
-    return mf
+    return corrections.build(mf, level)
 
 
 def prepare_guess(guess, mf):
@@ -413,7 +416,9 @@ def converge_scf(geometry, basis, family, kind, settings: EngineSettings, guess=
 
 
 def family_kind(family):
-    return "hf" if family == "hf" else "dft"
+    """``hf`` for a Hartree-Fock family (with or without corrections), else ``dft``."""
+    level = corrections.parse(family)
+    return "hf" if (level.base if level else family) == "hf" else "dft"
 
 
 def _is_spin_pair_scf(mf):
