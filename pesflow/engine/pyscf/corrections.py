@@ -25,6 +25,7 @@ PySCF is imported inside the functions.
 
 from __future__ import annotations
 
+import difflib
 import functools
 import math
 import re
@@ -157,8 +158,10 @@ def dielectric(name: str) -> float:
     try:
         return float(table[_normalise(name)][5])
     except KeyError:
+        close = difflib.get_close_matches(_normalise(name), list(table), n=3)
+        hint = f" (did you mean {', '.join(close)}?)" if close else ""
         raise EngineSetupError(
-            f"unknown solvent {name!r}; use a name from PySCF's solvent table "
+            f"unknown solvent {name!r}{hint}; use a name from PySCF's solvent table "
             "(pyscf.solvent.smd.solvent_db: water, methanol, acetonitrile, "
             "dimethylsulfoxide, benzene, ...) or give eps"
         ) from None
