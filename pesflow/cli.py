@@ -331,10 +331,13 @@ def _print_status(
 def _print_refinement(campaign) -> None:
     """One verdict line per refined curve (targets met, budget spent, ...)."""
     from pesflow.execution.refinement import report_tables
-    from pesflow.report.refinement import refinement_verdicts
 
     tables = report_tables(campaign)
-    for line in refinement_verdicts(tables[0]) if tables is not None else ():
+    if tables is None:  # no refined scan: nothing to say, and no report modules to import
+        return
+    from pesflow.report.refinement import refinement_verdicts
+
+    for line in refinement_verdicts(tables[0]):
         console.print(f"adaptive refinement: {line}", markup=False, soft_wrap=True)
 
 
