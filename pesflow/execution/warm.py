@@ -11,12 +11,15 @@ shared, not taken again).  :meth:`WarmSnakemake.cancel` (nothing to compute, or 
 closes the socket and the child ends without having run anything.
 
 The child runs ``snakemake.cli.main(argv)``, the function ``python -m snakemake`` runs, so
-the two ways of starting Snakemake are the same process from then on.
+the two ways of starting Snakemake are the same process from then on, up to its exit: the
+child does not wait for the timer thread Snakemake's scheduler may leave behind (about a
+second at the end of every run).
 """
 
 from __future__ import annotations
 
 import json
+import logging
 import os
 import socket
 import subprocess
@@ -91,8 +94,18 @@ def main(argv=None) -> int:
     # lock_fd stays open (not inherited by the jobs) until this process ends: the run lock
     args = json.loads(message)
     sys.argv = ["snakemake", *args]
-    snakemake.cli.main(args)  # exits with Snakemake's status
-    return 0
+    try:
+        snakemake.cli.main(args)  # ends with SystemExit(Snakemake's status)
+        code = 0
+    except SystemExit as done:
+        code = done.code if isinstance(done.code, int) else (0 if done.code is None else 1)
+    # Snakemake's work is done and logged.  Its scheduler may leave a threading.Timer (the
+    # job rate limiter's re-evaluation, about a second) that a normal exit waits for; the
+    # log handlers and streams are flushed here and the process ends without that wait.
+    logging.shutdown()
+    sys.stdout.flush()
+    sys.stderr.flush()
+    os._exit(code)
 
 
 if __name__ == "__main__":

@@ -64,3 +64,20 @@ def test_the_child_holds_the_run_lock_while_its_workflow_runs(tmp_path):
     assert proc.wait(timeout=120) == 0
     assert (tmp_path / "done.txt").exists()
     RunLock(tmp_path / "run.lock").acquire().release()  # free once Snakemake has ended
+
+
+def test_the_child_ends_with_snakemakes_status_when_a_job_fails(tmp_path):
+    (tmp_path / "Snakefile").write_text('rule broken:\n    output: "x.txt"\n    shell: "exit 3"\n')
+    expected = subprocess.run(
+        [sys.executable, "-m", "snakemake", "-c1", "--directory", str(tmp_path / "plain")]
+        + ["--snakefile", str(tmp_path / "Snakefile")],
+        capture_output=True,
+    ).returncode
+    lock = RunLock(tmp_path / "run.lock").acquire()
+    warm = WarmSnakemake(snakemake_env())
+    argv = ["-c1", "--directory", str(tmp_path), "--snakefile", str(tmp_path / "Snakefile")]
+    with open(tmp_path / "log", "w") as log:
+        proc = warm.start(argv, log.fileno(), lock.fd)
+    assert proc.wait(timeout=120) == expected != 0
+    assert "Error in rule broken" in (tmp_path / "log").read_text()
+    lock.release()
