@@ -14,6 +14,14 @@ from importlib import resources
 
 import numpy as np
 
+from pesflow.report.formatting import (
+    fmt_dev,
+    fmt_ratio,
+    fmt_seconds,
+    fmt_value,
+    fmt_value_u,
+    scan_label,
+)
 from pesflow.report.markup import (
     Markup,
     data_number,
@@ -25,19 +33,9 @@ from pesflow.report.markup import (
     td,
     th,
 )
+from pesflow.report.section_tables import STATIONARY_EXPLAIN, stationary_tables
 from pesflow.report.stats import closest_levels
-from pesflow.report.tables import (
-    QUANTITY,
-    STATIONARY_EXPLAIN,
-    ReportData,
-    fmt_dev,
-    fmt_ratio,
-    fmt_seconds,
-    fmt_value,
-    fmt_value_u,
-    scan_label,
-    stationary_tables,
-)
+from pesflow.report.tables import QUANTITY, ReportData
 
 #: Longest lists of points written out in the page (the CSV files always list all of them).
 _MAX_LISTED_PER_CURVE = 40
