@@ -292,7 +292,7 @@ def run_campaign(campaign, plan, store, *, on_refine=None, **options) -> RunResu
         if on_refine is not None:
             on_refine(decided)
         plan = expand(campaign)
-        more = _run_round(campaign, plan, store, **{**options, "retry_failed": False})
+        more = _run_round(campaign, plan, store, **{**options, "retry_failed": False, "warm": None})
         more.to_compute += result.to_compute
         more.jobs += result.jobs
         more.quarantined = result.quarantined + more.quarantined
@@ -312,6 +312,7 @@ def _run_round(
     retry_failed=False,
     on_start=None,
     on_progress=None,
+    warm=None,
 ) -> RunResult:
     """Compute what is missing of ``plan`` (one round of ``pesflow run``).
 
@@ -321,6 +322,8 @@ def _run_round(
         retry_failed: compute again the points stored as failed.
         on_start: called as ``on_start(to_compute, jobs, cached)`` before Snakemake starts.
         on_progress: called with a :class:`Progress` while it runs.
+        warm: a :class:`~pesflow.execution.warm.WarmSnakemake` to run Snakemake in (it
+            has imported Snakemake already); unused when nothing is to be computed.
 
     Raises :class:`~pesflow.errors.RunError` when another run of the campaign is alive.
     Every finished point is in the store whatever happens; the result says what is left.
@@ -355,6 +358,8 @@ def _run_round(
         )
         pending = set(plan.points["key"]) - done
         result = RunResult(len(pending), len(plan.points) - len(pending), len(jobs))
+        if warm is not None and not jobs:
+            warm.cancel()  # nothing to run in it: stop its import now
         if jobs:
             if on_start is not None:
                 on_start(len(pending), len(jobs), result.cached)
@@ -365,7 +370,7 @@ def _run_round(
             _import_in_background("pesflow.tables.summary")  # used at the end; cores idle now
             costs = _point_costs(plan, pending, sizes or {})
             watch = _watcher(store, pending, on_progress, wd, costs, cores or os.cpu_count() or 1)
-            outcome = runner.run_snakemake(wd, config, options, lock, on_poll=watch)
+            outcome = runner.run_snakemake(wd, config, options, lock, on_poll=watch, warm=warm)
             result.interrupted, result.stalled = outcome.interrupted, outcome.stalled
             result.returncode, result.log_path = outcome.returncode, outcome.log_path
         if store.exists():

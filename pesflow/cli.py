@@ -369,6 +369,18 @@ def cmd_status(args) -> int:
 
 
 def cmd_run(args) -> int:
+    from pesflow.execution.driver import snakemake_env
+    from pesflow.execution.warm import WarmSnakemake
+
+    # Snakemake imports itself in a child while the campaign loads and plans (~0.8 s).
+    warm = WarmSnakemake(snakemake_env(args.threads_per_batch))
+    try:
+        return _run(args, warm)
+    finally:
+        warm.cancel()  # nothing to compute, or an error: the child ends unused
+
+
+def _run(args, warm) -> int:
     from pesflow import api
     from pesflow.units import format_duration as fmt_duration
 
@@ -431,6 +443,7 @@ def cmd_run(args) -> int:
             retry_failed=args.retry_failed,
             on_start=on_start,
             on_progress=on_progress,
+            warm=warm,
             on_refine=lambda r: console.print(
                 f"adaptive refinement: {r.added} points added (pesflow report shows why)"
             ),

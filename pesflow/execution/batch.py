@@ -96,6 +96,7 @@ class _Walk:
         from pesflow.store.writer import PointWriter
 
         self.task = task
+        self._settings_json = {}
         self.engine = get_engine(task["engine"])
         if self.engine.version != task["engine_version"]:
             raise RuntimeError(
@@ -158,6 +159,12 @@ class _Walk:
             key = {**key, "ghosts": list(self.task["ghosts"])}
         return key
 
+    def settings_json(self, method) -> str:
+        """The stored ``settings_json`` of ``method``'s records (the same at every point)."""
+        if method not in self._settings_json:
+            self._settings_json[method] = json.dumps(self.settings_key(method), sort_keys=True)
+        return self._settings_json[method]
+
     def relax_point(self, point, method):
         """The relaxed record of ``method`` at ``point``'s scan values, from the
         neighbour's relaxed geometry (the planned rigid geometry at a walk's start)."""
@@ -216,7 +223,7 @@ class _Walk:
                 dict(
                     key=key,
                     positions_angstrom=np.asarray(at, dtype=float).ravel().tolist(),
-                    settings_json=json.dumps(self.settings_key(result.method), sort_keys=True),
+                    settings_json=self.settings_json(result.method),
                     created_unix=time.time(),
                     **self.shared,
                     **result.columns(),

@@ -219,8 +219,16 @@ class RunLock:
             self.fd = None
 
 
+def snakemake_env(threads_per_batch: int = 1) -> dict:
+    """Snakemake's environment (and so its jobs'): this one, with ``OMP_NUM_THREADS`` set to
+    the threads of a batch unless the user set it."""
+    env = dict(os.environ)
+    env.setdefault("OMP_NUM_THREADS", str(threads_per_batch))
+    return env
+
+
 def snakemake_command(wd: Path, config_path: Path, options: RunOptions) -> list[str]:
-    """The Snakemake command line for a run."""
+    """The Snakemake command line for a run: ``python -m snakemake`` and its arguments."""
     wf = workflow_dir()
     cmd = [
         sys.executable,
@@ -341,10 +349,13 @@ def run_snakemake(
     lock: RunLock,
     on_poll=None,
     poll_s: float = 0.5,
+    warm=None,
 ) -> RunOutcome:
     """Run Snakemake to the end, calling ``on_poll()`` every ``poll_s`` seconds.
 
-    Signals to this process are forwarded to Snakemake as SIGINT.
+    Signals to this process are forwarded to Snakemake as SIGINT.  ``warm``: a
+    :class:`~pesflow.execution.warm.WarmSnakemake` started earlier with
+    :func:`snakemake_env`, used when it is still there.
     """
     logs = wd / "logs"
     logs.mkdir(parents=True, exist_ok=True)
@@ -356,16 +367,17 @@ def run_snakemake(
     with open(log_path, "w") as log:
         _clear_stale_snakemake_locks(wd, config_path, log)
         log.flush()
-        env = dict(os.environ)
-        env.setdefault("OMP_NUM_THREADS", str(options.threads_per_batch))
-        proc = subprocess.Popen(
-            snakemake_command(wd, config_path, options),
-            stdout=log,
-            stderr=subprocess.STDOUT,
-            stdin=subprocess.DEVNULL,
-            env=env,
-            pass_fds=(lock.fd,),
-        )
+        cmd = snakemake_command(wd, config_path, options)
+        proc = None if warm is None else warm.start(cmd[3:], log.fileno(), lock.fd)
+        if proc is None:
+            proc = subprocess.Popen(
+                cmd,
+                stdout=log,
+                stderr=subprocess.STDOUT,
+                stdin=subprocess.DEVNULL,
+                env=snakemake_env(options.threads_per_batch),
+                pass_fds=(lock.fd,),
+            )
 
         def forward(signum, frame):
             interrupted["flag"] = True

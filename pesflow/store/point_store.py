@@ -222,7 +222,10 @@ class PointStore:
         one, never a partial one.  Returns the fragment's inode.  Raises
         :class:`StoreError` when the write fails.
         """
-        record = make_record(**record)
+        return self.write_checked(make_record(**record))
+
+    def write_checked(self, record: dict) -> int:
+        """:meth:`write` of a record that :func:`make_record` made already."""
         self._ensure_root()
         table = pa.Table.from_pylist([record], schema=POINT_SCHEMA)
         path = self.fragment_path(record["key"])

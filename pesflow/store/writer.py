@@ -62,7 +62,7 @@ class PointWriter:
                     return
             try:
                 for record in records:
-                    inode = self.store.write(record)
+                    inode = self.store.write_checked(record)  # checked in write()
                     self.written.append((record, inode))
             except BaseException as exc:  # raised in the caller's thread
                 self._error = exc
