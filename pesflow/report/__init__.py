@@ -190,7 +190,7 @@ def terminal_summary(campaign, summary: pd.DataFrame, console, *, paths=None, po
     from rich.table import Table
     from rich.text import Text
 
-    from pesflow.report.tables import fmt_dev, fmt_seconds, fmt_value
+    from pesflow.report.formatting import fmt_dev, fmt_seconds, fmt_value
 
     if points is None:
         points = pd.DataFrame(

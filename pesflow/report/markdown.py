@@ -14,19 +14,11 @@ import re
 
 import numpy as np
 
+from pesflow.report.formatting import fmt_dev, fmt_seconds, fmt_value, fmt_value_u, scan_label
 from pesflow.report.refinement import refinement_markdown
+from pesflow.report.section_tables import STATIONARY_EXPLAIN, stationary_tables
 from pesflow.report.stats import closest_levels
-from pesflow.report.tables import (
-    QUANTITY,
-    STATIONARY_EXPLAIN,
-    ReportData,
-    fmt_dev,
-    fmt_seconds,
-    fmt_value,
-    fmt_value_u,
-    scan_label,
-    stationary_tables,
-)
+from pesflow.report.tables import QUANTITY, ReportData
 
 #: Characters Markdown would read as markup in user text: a backslash before ASCII punctuation,
 #: ``|``, ``<`` opening a tag (``<b``, ``</``, ``<!``, ``<?``), ``&`` opening an entity.

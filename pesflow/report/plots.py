@@ -316,7 +316,7 @@ def curve_plot(lines, styles, *, xlabel, unit, title, reference_level=None) -> F
 
 @dataclass
 class SurfaceGrid:
-    """One level's 2-D scan on its grid (see :func:`pesflow.report.tables.surface_grid`)."""
+    """One level's 2-D scan on its grid (see :func:`pesflow.report.curve_points.surface_grid`)."""
 
     level: str
     q1: np.ndarray
@@ -635,7 +635,7 @@ def _scan_levels(data, molecule, scan) -> list[str]:
 
 
 def _curve_lines(campaign, points, data, molecule, scan) -> list[CurveLine]:
-    from pesflow.report.tables import curve_arrays
+    from pesflow.report.curve_points import curve_arrays
 
     kind = campaign.scans[scan].coordinates[0].kind
     lines = []
@@ -659,7 +659,7 @@ def _curve_lines(campaign, points, data, molecule, scan) -> list[CurveLine]:
 
 
 def _surface_grids(campaign, points, data, molecule, scan) -> list[SurfaceGrid]:
-    from pesflow.report.tables import surface_grid
+    from pesflow.report.curve_points import surface_grid
 
     units = [KINDS[c.kind].unit for c in campaign.scans[scan].coordinates]
     grids = []

@@ -13,8 +13,8 @@ from __future__ import annotations
 import pandas as pd
 
 from pesflow.analysis.quantities import QUANTITY
+from pesflow.report.formatting import fmt_value_u
 from pesflow.report.markup import Markup, join, table, tag, td, th
-from pesflow.report.tables import fmt_value_u
 
 EXPLAIN = (
     "Scans with refine start from their coarse grid; after each round the curve is analysed "

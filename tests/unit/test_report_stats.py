@@ -16,8 +16,9 @@ import pandas as pd
 import pytest
 
 from pesflow.analysis.derived import ONE_D_FLAG, RESTRICTED_FLAG
+from pesflow.report.section_tables import cardinal_number
 from pesflow.report.stats import closest_levels, error_statistics, level_statistics
-from pesflow.report.tables import cardinal_number, split_flags
+from pesflow.report.tables import split_flags
 
 
 def test_error_statistics_hand_computed():

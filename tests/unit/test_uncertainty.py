@@ -22,7 +22,7 @@ from pesflow.analysis.derived import SUMMARY_COLUMNS, summarize_curve, summarize
 from pesflow.analysis.flags import flags_from_records
 from pesflow.analysis.quantities import CURVE_COLUMNS, UNCERTAIN, uncertainty_column
 from pesflow.analysis.vibration import harmonic_wavenumber_cm1
-from pesflow.report.tables import fmt_value_u
+from pesflow.report.formatting import fmt_value_u
 from pesflow.tables.summary import add_deviations
 from pesflow.units import BOHR_ANGSTROM, HARTREE_TO_CM1, convert_energy
 

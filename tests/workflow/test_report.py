@@ -23,7 +23,8 @@ import pytest
 from pesflow.campaign import load_campaign
 from pesflow.plan.expand import expand
 from pesflow.report import build_report, terminal_summary
-from pesflow.report.tables import QUANTITY, fmt_dev, split_flags
+from pesflow.report.formatting import fmt_dev
+from pesflow.report.tables import QUANTITY, split_flags
 from pesflow.store.point_store import PointStore
 from pesflow.tables.points import points_table
 from pesflow.tables.summary import summary_table

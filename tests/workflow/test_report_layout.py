@@ -21,8 +21,8 @@ import pytest
 from pesflow.campaign import load_campaign
 from pesflow.plan.expand import expand
 from pesflow.report import CLOSEST_MARK, build_report, terminal_summary
+from pesflow.report.formatting import fmt_seconds
 from pesflow.report.html import SECTIONS
-from pesflow.report.tables import fmt_seconds
 from pesflow.store.point_store import PointStore
 from pesflow.tables.points import points_table
 from pesflow.tables.summary import summary_table
