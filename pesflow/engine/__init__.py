@@ -283,8 +283,10 @@ class EngineSettings:
             value = getattr(self, name)
             key[key_name] = list(value) if isinstance(value, tuple) else value
         if method is not None:
-            applies = method_info(method).settings
-            key = {name: value for name, value in key.items() if name in applies}
+            info = method_info(method)
+            key = {name: value for name, value in key.items() if name in info.settings}
+            if info.libraries:  # only such methods: every other key stays as it was
+                key["libraries"] = dict(info.libraries)
         return key
 
     @classmethod

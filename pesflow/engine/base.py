@@ -63,6 +63,10 @@ class MethodInfo:
             ``separate`` (each fragment computed on its own at this level) or
             ``asymptote`` (no fragment has a consistent counterpart of this level, e.g.
             an active space given by counts: D_e from the curve's last point).
+        libraries: ``(package, version)`` of further libraries its energies depend on
+            beyond the engine itself (the dispersion package of a ``-d3bj`` level); part
+            of every key of its points (:meth:`EngineSettings.key_dict`), so that a new
+            release with other parameters never reuses a point computed by the old one.
     """
 
     name: str
@@ -81,6 +85,7 @@ class MethodInfo:
     options: tuple[str, ...] = ()
     follow_states: bool = False
     fragments: str = "separate"
+    libraries: tuple[tuple[str, str], ...] = ()
 
 
 class Engine:

@@ -6,6 +6,7 @@ tests/integration/test_engine_corrections.py.  Dielectric constants named here a
 PySCF's (``pyscf.solvent.smd.solvent_db``, the Minnesota Solvent Descriptor Database).
 """
 
+import importlib.metadata
 import textwrap
 from pathlib import Path
 
@@ -104,6 +105,21 @@ def test_every_level_has_its_own_keys_and_plain_keys_stay(tmp_path):
     assert row["key"] == keys.point_key(
         symbols, positions, charge, multiplicity, "hf", "sto-3g", settings, "pyscf", "2.14.0"
     )
+
+    # A dispersion-corrected level's keys also hold the version of pyscf-dispersion (its
+    # D3/D4 code and parameters are not PySCF's): a new release never reuses its points.
+    installed = importlib.metadata.version("pyscf-dispersion")
+    for method in ("hf-d3bj", "b3lyp-d3bj", "b3lyp-d4(ddcosmo:eps=35.688)"):
+        settings = campaign.engine_settings("stretch").key_dict(method)
+        assert settings["libraries"] == {"pyscf-dispersion": installed}
+        row = scan[scan["method"] == method].iloc[0]
+        symbols, positions, charge, multiplicity = plan.geometry(row["set_id"], row["walk"])
+        args = (symbols, positions, charge, multiplicity, method, "sto-3g")
+        assert row["key"] == keys.point_key(*args, settings, "pyscf", "2.14.0")
+        older = {**settings, "libraries": {"pyscf-dispersion": "0.0.1"}}
+        assert row["key"] != keys.point_key(*args, older, "pyscf", "2.14.0")
+    for method in ("hf", "b3lyp", "hf(pcm:water)"):
+        assert "libraries" not in campaign.engine_settings("stretch").key_dict(method)
 
 
 def refused(tmp_path, capsys, level, *expected):

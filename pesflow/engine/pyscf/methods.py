@@ -84,8 +84,13 @@ def method_info(name: str) -> MethodInfo | None:
     corrected = corrections.parse(compact)
     if corrected is not None and corrected.base == "hf":  # hf-d3bj, hf(pcm:water)
         _check_dispersion_package(corrected.dispersion, name)
-        info = method_info("hf")
-        return _solvent_cost(replace(info, name=corrected.name, family=corrected.name), corrected)
+        info = replace(
+            method_info("hf"),
+            name=corrected.name,
+            family=corrected.name,
+            libraries=_dispersion_libraries(corrected),
+        )
+        return _solvent_cost(info, corrected)
     if compact in _WAVEFUNCTION:
         order, weight, exponent, prefactor, gradients, byproducts = _WAVEFUNCTION[compact]
         dropped = ("grid_level",) if compact != "hf" else ("grid_level", "frozen_core")
@@ -109,7 +114,19 @@ def method_info(name: str) -> MethodInfo | None:
         settings=tuple(s for s in _ALL_SETTINGS if s != "frozen_core"),
         options=corrections.LEVEL_OPTIONS,
     )  # fmt: skip
-    return _solvent_cost(info, corrected) if corrected is not None else info
+    if corrected is None:
+        return info
+    return _solvent_cost(replace(info, libraries=_dispersion_libraries(corrected)), corrected)
+
+
+def _dispersion_libraries(level) -> tuple[tuple[str, str], ...]:
+    # The D3/D4 parameters and code come with pyscf-dispersion, not with PySCF: its
+    # version keys the points of a dispersion-corrected level.
+    if not level.dispersion:
+        return ()
+    import importlib.metadata
+
+    return (("pyscf-dispersion", importlib.metadata.version("pyscf-dispersion")),)
 
 
 def _solvent_cost(info: MethodInfo, level) -> MethodInfo:
