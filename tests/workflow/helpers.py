@@ -41,6 +41,22 @@ def pesflow(*args, check=None, timeout=900, cwd=None):
     return proc
 
 
+def run_and_export(folder, spec_text, *, report=False):
+    """Write ``spec_text`` as ``folder/campaign.yaml``, run it on one core and export its
+    points and summary; with ``report``, build the report too.  Returns the points and the
+    summary as DataFrames."""
+    import pandas as pd
+
+    spec = folder / "campaign.yaml"
+    spec.write_text(spec_text)
+    pesflow("run", str(spec), "--cores", "1", check=0, cwd=folder)
+    pesflow("export", str(spec), "-o", "points.csv", check=0, cwd=folder)
+    pesflow("export", str(spec), "-o", "summary.csv", "--what", "summary", check=0, cwd=folder)
+    if report:
+        pesflow("report", str(spec), check=0, cwd=folder)
+    return pd.read_csv(folder / "points.csv"), pd.read_csv(folder / "summary.csv")
+
+
 def direct_energy(row):
     """The same point computed directly with PySCF (RHF/UHF, then MP2 if asked).
 

@@ -13,10 +13,9 @@ correlation, Karton-Martin two-point HF), then the points table:
 import math
 
 import numpy as np
-import pandas as pd
 import pytest
 
-from tests.workflow.helpers import pesflow
+from tests.workflow.helpers import run_and_export
 
 pytestmark = [pytest.mark.workflow, pytest.mark.integration]
 
@@ -39,14 +38,7 @@ LABEL = "mp2/cbs(cc-pvdz,cc-pvtz)"
 
 @pytest.fixture(scope="module")
 def points(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("cbs")
-    spec = folder / "campaign.yaml"
-    spec.write_text(SPEC)
-    pesflow("run", str(spec), "--cores", "1", check=0, cwd=folder)
-    pesflow("export", str(spec), "-o", "points.csv", check=0, cwd=folder)
-    summary = pesflow("export", str(spec), "-o", "summary.csv", "--what", "summary", cwd=folder)
-    assert summary.returncode == 0, summary.stderr
-    return pd.read_csv(folder / "points.csv"), pd.read_csv(folder / "summary.csv")
+    return run_and_export(tmp_path_factory.mktemp("cbs"), SPEC)
 
 
 def _by_level(table, level):

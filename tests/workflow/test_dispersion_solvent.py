@@ -16,11 +16,10 @@ and the report, checked against:
 """
 
 import numpy as np
-import pandas as pd
 import pytest
 
 from pesflow.units import convert_energy
-from tests.workflow.helpers import pesflow
+from tests.workflow.helpers import run_and_export
 
 pytestmark = [pytest.mark.workflow, pytest.mark.integration]
 
@@ -54,14 +53,7 @@ store: store
 @pytest.fixture(scope="module")
 def tables(tmp_path_factory):
     folder = tmp_path_factory.mktemp("dispersion")
-    spec = folder / "campaign.yaml"
-    spec.write_text(SPEC)
-    pesflow("run", str(spec), "--cores", "1", check=0, cwd=folder)
-    pesflow("export", str(spec), "-o", "points.csv", check=0, cwd=folder)
-    pesflow("export", str(spec), "-o", "summary.csv", "--what", "summary", check=0, cwd=folder)
-    report = pesflow("report", str(spec), cwd=folder)
-    assert report.returncode == 0, report.stderr
-    return pd.read_csv(folder / "points.csv"), pd.read_csv(folder / "summary.csv"), folder
+    return (*run_and_export(folder, SPEC, report=True), folder)
 
 
 def _curve(points, level):
