@@ -41,20 +41,22 @@ def pesflow(*args, check=None, timeout=900, cwd=None):
     return proc
 
 
-def run_and_export(folder, spec_text, *, report=False):
-    """Write ``spec_text`` as ``folder/campaign.yaml``, run it on one core and export its
-    points and summary; with ``report``, build the report too.  Returns the points and the
-    summary as DataFrames."""
+def run_and_export(folder, spec_text, *, cores=1, report=False, suffix="csv"):
+    """Write ``spec_text`` as ``folder/campaign.yaml``, run it on ``cores`` cores and
+    export its points and summary (``suffix``: csv or parquet); with ``report``, build the
+    report into ``folder/report``.  Returns the points and the summary as DataFrames."""
     import pandas as pd
 
     spec = folder / "campaign.yaml"
     spec.write_text(spec_text)
-    pesflow("run", str(spec), "--cores", "1", check=0, cwd=folder)
-    pesflow("export", str(spec), "-o", "points.csv", check=0, cwd=folder)
-    pesflow("export", str(spec), "-o", "summary.csv", "--what", "summary", check=0, cwd=folder)
+    pesflow("run", str(spec), "--cores", str(cores), check=0, cwd=folder, timeout=1200)
+    for what in ("points", "summary"):
+        out = str(folder / f"{what}.{suffix}")
+        pesflow("export", str(spec), "--what", what, "-o", out, check=0, cwd=folder)
     if report:
-        pesflow("report", str(spec), check=0, cwd=folder)
-    return pd.read_csv(folder / "points.csv"), pd.read_csv(folder / "summary.csv")
+        pesflow("report", str(spec), "-o", str(folder / "report"), check=0, cwd=folder)
+    read = pd.read_csv if suffix == "csv" else pd.read_parquet
+    return read(folder / f"points.{suffix}"), read(folder / f"summary.{suffix}")
 
 
 def direct_energy(row):

@@ -145,6 +145,6 @@ def test_water_dimer_against_s22_and_the_summary(tables):
         float(convert_energy(s["well_depth_cp_kcal_mol"] / 627.509474, "cm-1")), rel=1e-6
     )
     assert s["bsse_at_min_kcal_mol"] > 0
-    report = folder / "results" / "counterpoise-run" / "report"
+    report = folder / "report"
     assert (report / "figures" / "interaction-water_dimer-curve.png").stat().st_size > 1000
     assert "Counterpoise-corrected interaction curves" in (report / "report.html").read_text()

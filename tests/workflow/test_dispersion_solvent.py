@@ -110,5 +110,5 @@ def test_solvated_point_equals_pyscf_and_names_show_everywhere(tables):
     assert row["key"] != gas["key"]
     levels = set(summary["level"])
     assert {"b3lyp-d3bj/def2-svp", "b3lyp/def2-svp"} <= levels
-    html = (folder / "results" / "dispersion-solvent" / "report" / "report.html").read_text()
+    html = (folder / "report" / "report.html").read_text()
     assert "b3lyp-d3bj/def2-svp" in html and "hf(pcm:water)/sto-3g" in html

@@ -10,10 +10,9 @@ Pi pair near 2.79 A is the one measured in
 import json
 
 import numpy as np
-import pandas as pd
 import pytest
 
-from tests.workflow.helpers import pesflow
+from tests.workflow.helpers import run_and_export
 
 pytestmark = [pytest.mark.workflow, pytest.mark.integration]
 
@@ -41,21 +40,8 @@ BY_ENERGY = "cis(singlets=7)/6-31g"
 @pytest.fixture(scope="module")
 def campaign(tmp_path_factory):
     folder = tmp_path_factory.mktemp("excited")
-    spec = folder / "campaign.yaml"
-    spec.write_text(SPEC)
-    runs = (
-        ["run", str(spec), "--cores", "2"],
-        ["export", str(spec), "--what", "summary", "-o", str(folder / "summary.parquet")],
-        ["export", str(spec), "-o", str(folder / "points.parquet")],
-        ["report", str(spec), "-o", str(folder / "report")],
-    )
-    for args in runs:
-        pesflow(*args, check=0, timeout=1200)
-    return {
-        "summary": pd.read_parquet(folder / "summary.parquet"),
-        "points": pd.read_parquet(folder / "points.parquet"),
-        "report": folder / "report",
-    }
+    points, summary = run_and_export(folder, SPEC, cores=2, report=True, suffix="parquet")
+    return {"summary": summary, "points": points, "report": folder / "report"}
 
 
 def test_every_state_is_a_row_and_equals_direct_pyscf(campaign):

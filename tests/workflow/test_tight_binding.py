@@ -13,7 +13,7 @@ import pytest
 from ase import Atoms
 
 from pesflow.units import BOHR_ANGSTROM
-from tests.workflow.helpers import direct_energy, pesflow
+from tests.workflow.helpers import direct_energy, run_and_export
 
 pytestmark = [pytest.mark.workflow, pytest.mark.integration]
 
@@ -46,21 +46,8 @@ store: store
 @pytest.fixture(scope="module")
 def campaign(tmp_path_factory):
     folder = tmp_path_factory.mktemp("tight-binding")
-    spec = folder / "campaign.yaml"
-    spec.write_text(SPEC)
-    runs = (
-        ["run", str(spec), "--cores", "2"],
-        ["export", str(spec), "--what", "summary", "-o", str(folder / "summary.parquet")],
-        ["export", str(spec), "-o", str(folder / "points.parquet")],
-        ["report", str(spec), "-o", str(folder / "report")],
-    )
-    for args in runs:
-        pesflow(*args, check=0, timeout=1200)
-    return {
-        "summary": pd.read_parquet(folder / "summary.parquet"),
-        "points": pd.read_parquet(folder / "points.parquet"),
-        "report": folder / "report",
-    }
+    points, summary = run_and_export(folder, SPEC, cores=2, report=True, suffix="parquet")
+    return {"summary": summary, "points": points, "report": folder / "report"}
 
 
 def tblite_energy(row):
