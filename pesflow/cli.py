@@ -368,6 +368,25 @@ def cmd_status(args) -> int:
     return EXIT_FAILED if n_failed else EXIT_OK
 
 
+#: Width of the progress bar on a terminal of 100 columns or more (a quarter below).
+_BAR_WIDTH = 40
+
+
+def _room(counts: str, eta: str) -> int:
+    """Columns left for the running walks after the rest of the progress line (the word,
+    the bar, the counts, the elapsed time, the ETA and the spaces between them)."""
+    bar = _BAR_WIDTH if console.width >= 100 else _BAR_WIDTH // 4
+    used = len("points") + bar + len(counts) + len("0:00:00") + len(f"ETA {eta}") + 5
+    return console.width - used - 1
+
+
+def _fit(text: str, room: int) -> str:
+    """``text`` cut to ``room`` characters with an ellipsis (empty when there is none)."""
+    if len(text) <= room:
+        return text
+    return text[: room - 1] + "…" if room > 1 else ""
+
+
 def cmd_run(args) -> int:
     from pesflow.execution.driver import snakemake_env
     from pesflow.execution.warm import WarmSnakemake
@@ -389,7 +408,7 @@ def _run(args, warm) -> int:
     store = _store(campaign)
     progress = Progress(
         TextColumn("[bold]points"),
-        BarColumn(),
+        BarColumn(bar_width=_BAR_WIDTH if console.width >= 100 else _BAR_WIDTH // 4),
         TextColumn(
             "{task.fields[done]} done, {task.fields[failed]} failed, {task.fields[left]} left"
         ),
@@ -414,6 +433,8 @@ def _run(args, warm) -> int:
         shown = "; ".join(p.running[:3]) + (
             f" (+{len(p.running) - 3})" if len(p.running) > 3 else ""
         )
+        counts = f"{p.finished - p.failed} done, {p.failed} failed, {p.total - p.finished} left"
+        running = _fit(f"running: {shown}" if shown else "", _room(counts, eta or "-"))
         progress.update(
             state["task"],
             completed=p.finished,
@@ -421,7 +442,7 @@ def _run(args, warm) -> int:
             failed=p.failed,
             left=p.total - p.finished,
             eta=eta or "-",
-            running=escape(f"running: {shown}") if shown else "",
+            running=escape(running),
         )
         if not console.is_terminal and time.monotonic() - state["printed"] > 30:
             state["printed"] = time.monotonic()
