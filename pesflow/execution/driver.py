@@ -26,6 +26,7 @@ from __future__ import annotations
 import fcntl
 import json
 import os
+import shutil
 import signal
 import subprocess
 import sys
@@ -138,16 +139,28 @@ def task_dict(plan, batch, store_root, recompute=()) -> dict:
     }
 
 
-def job_dict(plan, job, store_root, recompute=()) -> dict:
-    """The task file content of one job: the task of each of its walks, run in order."""
+def job_dict(plan, job, store_root, recompute=(), share=None) -> dict:
+    """The task file content of one job: the task of each of its walks, run in order.
+
+    ``share`` (a local run): the job's walks are shared with the run's other jobs
+    (:class:`pesflow.execution.batch.WorkSharing`); they are then ordered by estimated
+    work, the longest first, so that the last ones, which an idle job takes over, are
+    the shortest.
+    """
     from pesflow.execution.batch import JOB_FORMAT, JOB_VERSION
 
-    return {
+    batches = job.batches
+    if share is not None:
+        batches = sorted(batches, key=lambda b: -b.weight)
+    content = {
         "format": JOB_FORMAT,
         "version": JOB_VERSION,
         "job_id": job.job_id,
-        "walks": [task_dict(plan, batch, store_root, recompute) for batch in job.batches],
+        "walks": [task_dict(plan, batch, store_root, recompute) for batch in batches],
     }
+    if share is not None:
+        content["share"] = share
+    return content
 
 
 def write_tasks(plan, jobs, store_root, wd: Path, options: RunOptions, recompute=()):
@@ -166,10 +179,15 @@ def write_tasks(plan, jobs, store_root, wd: Path, options: RunOptions, recompute
     (wd / "done").mkdir(parents=True, exist_ok=True)
     for stale in (wd / "progress").glob("*.json"):  # the display of an earlier run
         stale.unlink(missing_ok=True)
+    # Claims of an earlier run (one run at a time: the run lock is held).
+    shutil.rmtree(wd / "claims", ignore_errors=True)
+    share = None
+    if not options.profile and len(jobs) > 1:  # local jobs share their walks
+        share = {"claims": str(wd / "claims"), "jobs": [j.job_id for j in jobs]}
     for job in jobs:
         atomic_write(
             wd / "tasks" / f"{job.job_id}.json",
-            json.dumps(job_dict(plan, job, store_root, recompute)),
+            json.dumps(job_dict(plan, job, store_root, recompute, share)),
         )
         marker = wd / "done" / f"{job.job_id}.json"
         if marker.exists():

@@ -210,6 +210,33 @@ def test_shared_scf_equals_plain_pyscf_step_by_step(engine):
     assert ccsd_t.step_wall_s >= ccsd.step_wall_s > 0
 
 
+def test_a_moved_molecule_is_the_one_pyscf_builds_from_scratch():
+    """Along a walk the molecule is PySCF's own ``set_geom_`` of the first point's
+    (the basis is parsed once); every integral table must equal a fresh ``gto.M``."""
+    from pesflow.engine.pyscf.scf import build_mole
+
+    settings = EngineSettings()
+    for symbols, ghosts, basis in [
+        (WATER_SYMBOLS, (), "cc-pvdz"),
+        (("O", "H", "H"), (1, 2), "aug-cc-pvdz"),  # ghost atoms (counterpoise)
+        (("I", "H"), (), "def2-svp"),  # an effective core potential
+    ]:
+        start = np.array(WATER_ANGSTROM[: len(symbols)])
+        first = build_mole(Geometry(symbols, start, ghosts=ghosts), basis, settings)
+        for scale in (1.07, 0.93):
+            geometry = Geometry(symbols, start * scale, ghosts=ghosts)
+            moved = build_mole(geometry, basis, settings)
+            names = [f"ghost-{s}" if i in ghosts else s for i, s in enumerate(symbols)]
+            plain = plain_mole(Geometry(tuple(names), geometry.positions_angstrom), basis)
+            for table in ("_atm", "_bas", "_env", "_ecpbas"):
+                assert np.array_equal(getattr(moved, table), getattr(plain, table)), table
+            assert moved.energy_nuc() == plain.energy_nuc()
+            moved._env[:] = 0.0  # a caller editing its molecule reaches no other
+        assert build_mole(
+            Geometry(symbols, start, ghosts=ghosts), basis, settings
+        ).energy_nuc() == (first.energy_nuc())
+
+
 def test_ccsd_failure_is_recorded_on_its_records_only(engine, monkeypatch):
     # Two CCSD iterations cannot reach 1e-10: the failure belongs to ccsd and ccsd(t).
     monkeypatch.setattr(correlated_module, "CCSD_MAX_CYCLE", 2)

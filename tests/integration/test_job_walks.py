@@ -59,3 +59,89 @@ def test_a_single_walk_task_file_still_runs(tmp_path):
     path, _ = _task(tmp_path, np.linspace(0.9, 1.0, 3))
     marker = batch.run_job(path, tmp_path / "done.json")
     assert marker["computed"] == 3 and "walks" not in marker
+
+
+def _shared_jobs(tmp_path, walks_of):
+    """Job files of one local run whose walks are shared (as write_tasks makes them)."""
+    tasks_dir = tmp_path / "tasks"
+    tasks_dir.mkdir()
+    share = {"claims": str(tmp_path / "claims"), "jobs": sorted(walks_of)}
+    paths, tasks = {}, {}
+    for job_id, walks in sorted(walks_of.items()):
+        tasks[job_id] = []
+        for i, distances in enumerate(walks):
+            folder = tmp_path / f"{job_id}-w{i}"
+            folder.mkdir()
+            _, task = _task(folder, distances)
+            task["batch_id"] = f"{job_id}-walk-{i}"
+            task["store"] = str(tmp_path / "store")
+            tasks[job_id].append(task)
+        job = {"format": batch.JOB_FORMAT, "version": batch.JOB_VERSION, "job_id": job_id}
+        paths[job_id] = tasks_dir / f"{job_id}.json"
+        paths[job_id].write_text(json.dumps({**job, "walks": tasks[job_id], "share": share}))
+    return paths, tasks
+
+
+def test_a_job_takes_over_the_walks_other_started_jobs_have_not_begun(tmp_path):
+    """Two jobs of one run: the first to finish runs the other's remaining walks, the
+    last walk first; each point is computed once, by one of them, and stored once."""
+    paths, tasks = _shared_jobs(
+        tmp_path,
+        {
+            "job001-a": [np.linspace(0.85, 0.95, 3)],
+            "job002-b": [np.linspace(1.0, 1.1, 3), np.linspace(1.2, 1.3, 3)],
+        },
+    )
+    # job002 has started (e.g. it is computing its first walk on the other core)
+    (tmp_path / "claims").mkdir()
+    (tmp_path / "claims" / "job002-b.started").touch()
+    first = batch.run_job(paths["job001-a"], tmp_path / "done" / "job001-a.json")
+    assert first["computed"] == 9 and first["taken_over"] == 2
+    assert [w["batch_id"] for w in first["walks"]] == [
+        "job001-a-walk-0",
+        "job002-b-walk-1",  # the other job's last (shortest) walk first
+        "job002-b-walk-0",
+    ]
+    second = batch.run_job(paths["job002-b"], tmp_path / "done" / "job002-b.json")
+    assert second["computed"] == 0 and second["walks"] == [] and second["taken_over"] == 0
+    store = PointStore(tmp_path / "store")
+    table = store.load().to_pandas()
+    assert len(table) == 9 and table["key"].is_unique
+    for job_tasks in tasks.values():
+        for task in job_tasks:
+            for point in task["points"]:
+                r = float(np.linalg.norm(np.subtract(*point["positions"])))
+                record = store.get(point["keys"]["hf"])
+                assert record["energy_hartree"] == pytest.approx(_rhf(r), abs=1e-8)
+
+
+def test_a_job_not_yet_started_keeps_its_walks(tmp_path):
+    """While another job of the run has not started, Snakemake will start it on the core
+    a finished job frees: nothing is taken from it."""
+    paths, _ = _shared_jobs(
+        tmp_path,
+        {"job001-a": [np.linspace(0.85, 0.95, 2)], "job002-b": [np.linspace(1.0, 1.1, 2)]},
+    )
+    first = batch.run_job(paths["job001-a"], tmp_path / "done" / "job001-a.json")
+    assert first["computed"] == 2 and first["taken_over"] == 0
+    second = batch.run_job(paths["job002-b"], tmp_path / "done" / "job002-b.json")
+    assert second["computed"] == 2 and second["taken_over"] == 0
+
+
+def test_a_job_run_again_takes_back_its_own_claims(tmp_path):
+    """A job that failed after claiming a walk (here: the claim is there, no point is
+    stored) runs it when Snakemake runs the job again; another job's claim it leaves."""
+    paths, _ = _shared_jobs(
+        tmp_path,
+        {
+            "job001-a": [np.linspace(0.85, 0.95, 2), np.linspace(1.0, 1.1, 2)],
+            "job002-b": [np.linspace(1.2, 1.3, 2)],
+        },
+    )
+    claims = tmp_path / "claims"
+    claims.mkdir()
+    (claims / "job001-a-walk-0.claim").write_text("job001-a")
+    (claims / "job001-a-walk-1.claim").write_text("job002-b")
+    marker = batch.run_job(paths["job001-a"], tmp_path / "done" / "job001-a.json")
+    assert [w["batch_id"] for w in marker["walks"]] == ["job001-a-walk-0"]
+    assert marker["computed"] == 2

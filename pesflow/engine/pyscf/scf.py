@@ -124,13 +124,44 @@ def build_mole(geometry: Geometry, basis: str, settings: EngineSettings):
     >>> mol.nao_nr()
     2
     """
+    positions = np.asarray(geometry.positions_angstrom, dtype=float)
+    # a ghost atom (counterpoise) is PySCF's "ghost-X": basis functions, no nucleus
+    symbols = [f"ghost-{s}" if i in geometry.ghosts else s for i, s in enumerate(geometry.symbols)]
+    same = (tuple(symbols), basis, geometry.charge, geometry.spin, settings.max_memory_mb)
+    template = _MOLE_TEMPLATES.get(same)
+    if template is not None and positions.shape == (len(symbols), 3):
+        # PySCF's own way of moving the atoms (its gradient scanners use it): a copy
+        # with new coordinates, the parsed and normalised basis kept.  Parsing the
+        # basis file again is ~1.5 ms a point for water in cc-pVDZ, as much as a
+        # small molecule's whole SCF cycle; the result is the same to the last bit.
+        return _own_arrays(template.set_geom_(positions, unit="Angstrom", inplace=False))
+    mol = _new_mole(symbols, positions, basis, geometry, settings)
+    if len(_MOLE_TEMPLATES) >= _MOLE_TEMPLATES_KEPT:
+        _MOLE_TEMPLATES.pop(next(iter(_MOLE_TEMPLATES)))
+    _MOLE_TEMPLATES[same] = _own_arrays(mol.copy(deep=False))
+    return mol
+
+
+def _own_arrays(mol):
+    """``mol`` with its own integral tables (a shallow copy shares them; a caller that
+    edits them in place, e.g. PySCF's ``set_geom_`` or ``set_nuc_mod``, must not reach
+    the template or another point's molecule)."""
+    for name in ("_atm", "_bas", "_env", "_ecpbas"):
+        setattr(mol, name, getattr(mol, name).copy())
+    return mol
+
+
+#: Built molecules by (symbols, basis, charge, spin, memory): a walk's next point is
+#: the template moved (:func:`build_mole`).  A few are kept (a job runs walks in turn).
+_MOLE_TEMPLATES: dict = {}
+_MOLE_TEMPLATES_KEPT = 8
+
+
+def _new_mole(symbols, positions, basis, geometry, settings):
     from pyscf import gto
 
     mol = gto.Mole()
-    positions = geometry.positions_angstrom
-    # a ghost atom (counterpoise) is PySCF's "ghost-X": basis functions, no nucleus
-    symbols = [f"ghost-{s}" if i in geometry.ghosts else s for i, s in enumerate(geometry.symbols)]
-    mol.atom = [(s, tuple(xyz)) for s, xyz in zip(symbols, positions, strict=True)]
+    mol.atom = [(s, tuple(xyz)) for s, xyz in zip(symbols, positions.tolist(), strict=True)]
     mol.unit = "Angstrom"
     mol.basis = basis
     mol.charge = geometry.charge
