@@ -1,7 +1,5 @@
 """``python -m pesflow`` runs the command line."""
 
-import sys
+from pesflow.cli import console_main
 
-from pesflow.cli import main
-
-sys.exit(main())
+console_main()

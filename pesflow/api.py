@@ -292,7 +292,12 @@ def run_campaign(campaign, plan, store, *, on_refine=None, **options) -> RunResu
         if on_refine is not None:
             on_refine(decided)
         plan = expand(campaign)
-        more = _run_round(campaign, plan, store, **{**options, "retry_failed": False, "warm": None})
+        more = _run_round(
+            campaign,
+            plan,
+            store,
+            **{**options, "retry_failed": False, "warm": None, "on_ended": None},
+        )
         more.to_compute += result.to_compute
         more.jobs += result.jobs
         more.quarantined = result.quarantined + more.quarantined
@@ -313,6 +318,7 @@ def _run_round(
     on_start=None,
     on_progress=None,
     warm=None,
+    on_ended=None,
 ) -> RunResult:
     """Compute what is missing of ``plan`` (one round of ``pesflow run``).
 
@@ -324,6 +330,9 @@ def _run_round(
         on_progress: called with a :class:`Progress` while it runs.
         warm: a :class:`~pesflow.execution.warm.WarmSnakemake` to run Snakemake in (it
             has imported Snakemake already); unused when nothing is to be computed.
+        on_ended: called once when every job of the round has ended (its points are all
+            in the store) while Snakemake may still be winding down
+            (:func:`pesflow.execution.driver.run_snakemake`).
 
     Raises :class:`~pesflow.errors.RunError` when another run of the campaign is alive.
     Every finished point is in the store whatever happens; the result says what is left.
@@ -370,7 +379,9 @@ def _run_round(
             _import_in_background("pesflow.tables.summary")  # used at the end; cores idle now
             costs = _point_costs(plan, pending, sizes or {})
             watch = _watcher(store, pending, on_progress, wd, costs, cores or os.cpu_count() or 1)
-            outcome = runner.run_snakemake(wd, config, options, lock, on_poll=watch, warm=warm)
+            outcome = runner.run_snakemake(
+                wd, config, options, lock, on_poll=watch, warm=warm, on_ended=on_ended
+            )
             result.interrupted, result.stalled = outcome.interrupted, outcome.stalled
             result.returncode, result.log_path = outcome.returncode, outcome.log_path
         if store.exists():

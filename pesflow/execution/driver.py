@@ -38,6 +38,8 @@ from pesflow.errors import RunError
 from pesflow.formats.atomic import atomic_write
 
 GRACE_S = 20.0
+#: How often the done markers are listed while an ``on_ended`` callback waits (seconds).
+ENDED_LOOK_S = 0.05
 #: Seconds Snakemake may go on after every batch has ended before the run is stopped as
 #: stuck: longer than the SLURM executor plugin's longest pause between status checks
 #: (180 s).  ``PESFLOW_STALL_GRACE_S`` overrides it.
@@ -345,9 +347,11 @@ class _AllBatchesEnded:
         self.since = None
         self.next_look = 0.0
 
-    def overdue(self) -> bool:
+    def overdue(self, look_now: bool = False) -> bool:
+        """True when every batch ended more than ``grace_s`` ago; ``look_now``: list the
+        markers now rather than every ``look_every_s``."""
         now = time.monotonic()
-        if now >= self.next_look:  # one directory listing every look_every_s at most
+        if look_now or now >= self.next_look:  # a directory listing every look_every_s
             self.next_look = now + self.look_every_s
             try:
                 ended = self.wanted <= set(os.listdir(self.done_dir))
@@ -368,12 +372,15 @@ def run_snakemake(
     on_poll=None,
     poll_s: float = 0.5,
     warm=None,
+    on_ended=None,
 ) -> RunOutcome:
     """Run Snakemake to the end, calling ``on_poll()`` every ``poll_s`` seconds.
 
     Signals to this process are forwarded to Snakemake as SIGINT.  ``warm``: a
     :class:`~pesflow.execution.warm.WarmSnakemake` started earlier with
-    :func:`snakemake_env`, used when it is still there.
+    :func:`snakemake_env`, used when it is still there.  ``on_ended()`` is called once,
+    within :data:`ENDED_LOOK_S`, when every batch has written its done marker (every
+    point of the run is then in the store) while Snakemake may still be winding down.
     """
     logs = wd / "logs"
     logs.mkdir(parents=True, exist_ok=True)
@@ -407,14 +414,21 @@ def run_snakemake(
         previous = {
             s: signal.signal(s, forward) for s in (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
         }
+        next_poll = time.monotonic() + poll_s
         try:
             while True:
                 try:
-                    rc = proc.wait(timeout=poll_s)
+                    rc = proc.wait(timeout=ENDED_LOOK_S if on_ended is not None else poll_s)
                     break
                 except subprocess.TimeoutExpired:
                     pass
-                if on_poll is not None:
+                if on_ended is not None and batches:
+                    ended.overdue(look_now=True)
+                    if ended.since is not None:
+                        on_ended()
+                        on_ended = None
+                if on_poll is not None and time.monotonic() >= next_poll:
+                    next_poll = time.monotonic() + poll_s
                     on_poll()
                 if not stalled and batches and ended.overdue():
                     stalled = True  # stop it as on SIGINT (and kill it after GRACE_S)

@@ -23,17 +23,28 @@ from pesflow.store.records import (
     is_point_key,
 )
 
+#: How long a job's end-of-job compaction waits for another holder of the lock (seconds):
+#: two jobs of a run ending together each write their part in a fraction of a second;
+#: skipping would leave a job's fragments for the run's end to read back one by one.
+WRITTEN_LOCK_WAIT_S = 30.0
+
 
 @contextlib.contextmanager
-def _compaction_lock(store):
-    """Yield True while holding ``locks/compact.lock``, False when another holder has it."""
+def _compaction_lock(store, wait_s: float = 0.0):
+    """Yield True while holding ``locks/compact.lock``, False when another holder has it
+    (after waiting up to ``wait_s`` seconds for it)."""
     fd = os.open(store.locks_dir / "compact.lock", os.O_RDWR | os.O_CREAT, 0o644)
     try:
-        try:
-            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except BlockingIOError:
-            yield False
-            return
+        deadline = time.monotonic() + wait_s
+        while True:
+            try:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+                break
+            except BlockingIOError:
+                if time.monotonic() >= deadline:
+                    yield False
+                    return
+                time.sleep(0.02)
         try:
             yield True
         finally:
@@ -110,15 +121,16 @@ def compact_written(store, written: list[tuple[dict, int]]) -> dict:
     ``written``: (record, inode) of each fragment written, as :class:`PointWriter` keeps
     them.  A job calls this at its end so that the run's final :func:`compact` has little
     left to read; nothing is read back from disk.  Same rules as :func:`compact`: under the
-    compaction lock (skipped when another process holds it), the part is durable before a
-    fragment goes, and a fragment replaced since it was written (another inode) stays.
+    compaction lock (waited for up to :data:`WRITTEN_LOCK_WAIT_S`, then skipped), the part
+    is durable before a fragment goes, and a fragment replaced since it was written
+    (another inode) stays.
     Returns stats: ``skipped`` (None or reason), ``fragments_compacted``, ``part``.
     """
     stats = {"skipped": None, "fragments_compacted": 0, "part": None}
     if not written:
         stats["skipped"] = "nothing written"
         return stats
-    with _compaction_lock(store) as locked:
+    with _compaction_lock(store, WRITTEN_LOCK_WAIT_S) as locked:
         if not locked:
             stats["skipped"] = "another process holds the compaction lock"
             return stats

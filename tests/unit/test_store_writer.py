@@ -51,6 +51,34 @@ def test_compact_moves_the_fragments_into_one_part_without_reading_them(tmp_path
         assert_records_equal(got[record["key"]], record)
 
 
+def test_compact_waits_for_another_job_compacting_at_the_same_moment(tmp_path):
+    """Two jobs of a run that end together: the second waits for the first's lock instead
+    of leaving its fragments for the run's end to read back one by one."""
+    store = PointStore(tmp_path / "store")
+    writer = PointWriter(store)
+    for i in range(4):
+        writer.write(point_record(i))
+    holder = textwrap.dedent(
+        f"""
+        import fcntl, sys, time
+        fh = open({str(store.locks_dir / "compact.lock")!r}, "a")
+        fcntl.flock(fh, fcntl.LOCK_EX)
+        print("locked", flush=True)
+        time.sleep(0.5)
+        """
+    )
+    store._ensure_root()
+    proc = subprocess.Popen([sys.executable, "-c", holder], stdout=subprocess.PIPE, text=True)
+    try:
+        assert proc.stdout.readline().strip() == "locked"
+        stats = writer.compact()
+    finally:
+        proc.wait(timeout=30)
+        proc.stdout.close()
+    assert stats["skipped"] is None and stats["fragments_compacted"] == 4
+    assert fragment_files(store) == [] and len(store._part_names()) == 1
+
+
 def test_a_fragment_rewritten_by_another_writer_is_kept(tmp_path):
     store = PointStore(tmp_path / "store")
     first, other = point_record(1), point_record(1, energy_hartree=-2.5)

@@ -176,6 +176,83 @@ def test_failed_point_is_recorded_and_exit_code_is_1(tmp_path):
     assert "2 failed" in status.stdout or "1 failed" in status.stdout
 
 
+#: 7 molecules x 2 levels = 14 status rows: more than the run prints one by one, so it
+#: shows the rows that need attention, with the analysis warnings found while Snakemake
+#: winds down.  The H2 range (1.0-1.4 angstrom) misses its minimum (0.74 angstrom,
+#: Huber & Herzberg 1979): a warning to list.
+LARGE = """\
+campaign: wf-large
+molecules:
+  h2: {builtin: H2}
+  lih: {builtin: LiH}
+  hf: {builtin: HF}
+  hcl: {builtin: HCl}
+  f2: {builtin: F2}
+  co: {builtin: CO}
+  n2: {builtin: N2}
+scans:
+  far:
+    molecules: [h2]
+    coordinates:
+      - {type: distance, atoms: [1, 2], from: 1.0, to: 1.4, points: 5}
+  near:
+    molecules: [lih, hf, hcl, f2, co, n2]
+    coordinates:
+      - {type: distance, atoms: [1, 2], from: 0.9, to: 1.6, points: 5}
+levels:
+  - {method: [hf, mp2], basis: sto-3g}
+store: store
+"""
+
+
+def test_a_large_run_lists_the_rows_with_warnings(tmp_path):
+    """The run's table of rows that need attention holds the warning counts the analysis
+    gives afterwards (pesflow.api.warning_counts on the finished store)."""
+    from pesflow import api
+    from pesflow.plan.expand import expand
+
+    spec = tmp_path / "large.yaml"
+    spec.write_text(LARGE)
+    run = pesflow("run", str(spec), "--cores", "2", check=0)
+    lines = run.stdout.splitlines()
+    start = next(i for i, line in enumerate(lines) if "rows that need attention" in line)
+    end = next(i for i, line in enumerate(lines) if "molecule x level rows" in line)
+    cells = [[c.strip() for c in line.split("│")[1:-1]] for line in lines[start:end]]
+    shown = {(c[0], c[1]): int(c[5]) for c in cells if len(c) == 6 and c[5].isdigit()}
+
+    campaign = api.load(spec).campaign
+    counts = api.warning_counts(campaign, expand(campaign), PointStore(tmp_path / "store"))
+    expected = {
+        (r.molecule, r.level): int(r.warnings) for r in counts.itertuples() if r.warnings > 0
+    }
+    assert shown == expected
+    assert ("h2", "hf/sto-3g") in shown
+
+
+def test_on_ended_is_called_once_with_every_point_stored(tmp_path):
+    """``on_ended`` (the run's early analysis) fires once, and only when the store holds
+    every point of the run."""
+    from pesflow import api
+    from pesflow.plan.expand import expand
+
+    spec = tmp_path / "small.yaml"
+    spec.write_text(SMALL_CAMPAIGN.format(name="wf-ended"))
+    loaded = api.load(spec)
+    plan = expand(loaded.campaign)
+    store = PointStore(tmp_path / "store")
+    seen = []
+    keys = set(plan.points["key"])
+    result = api.run_campaign(
+        loaded.campaign,
+        plan,
+        store,
+        cores=2,
+        on_ended=lambda: seen.append(keys <= PointStore(tmp_path / "store").keys()),
+    )
+    assert result.returncode == 0
+    assert seen == [True]
+
+
 def test_second_run_of_same_campaign_is_refused(tmp_path):
     from pesflow.errors import RunError
     from pesflow.execution.driver import RunLock
