@@ -113,6 +113,17 @@ def stored_energies(store_root: Path) -> dict:
     return dict(zip(table["key"], table["energy_hartree"], strict=True))
 
 
+def idle_at_end(run_dir: Path, cores: int = 2) -> tuple[float, int]:
+    """Core-seconds idle at the end of a pesflow run and walks taken over between jobs.
+
+    From the jobs' done markers: the last ``cores`` jobs to end, each core idle from its
+    job's end to the last job's end (the markers' modification times)."""
+    markers = list((run_dir / "results").glob("*/.pesflow/workflow/done/*.json"))
+    ends = sorted(p.stat().st_mtime for p in markers)[-cores:]
+    taken = sum(json.loads(p.read_text()).get("taken_over", 0) for p in markers)
+    return (sum(ends[-1] - t for t in ends) if ends else 0.0), taken
+
+
 class FirstPoint:
     """Notes when the first point file appears under a store (polled every 50 ms)."""
 
@@ -141,7 +152,7 @@ def compare(name, work, spec_text, repeats, first_point=False):
     method_of = {key: k.split("|")[1].split("/")[0] for k, key in key_of.items()}
     script, pesflow = "careful script (2 processes)", "pesflow run --cores 2"
     runs = {script: [], pesflow: []}
-    firsts, worst = [], {}
+    firsts, worst, idle = [], {}, []
     for r in range(repeats):
         order = (script, pesflow) if r % 2 == 0 else (pesflow, script)
         for side in order:
@@ -155,6 +166,7 @@ def compare(name, work, spec_text, repeats, first_point=False):
                 energies = stored_energies(run_dir / "store")
                 if tick is not None and tick.at is not None:
                     firsts.append(tick.at)
+                idle.append(idle_at_end(run_dir))
             else:
                 out = folder / f"script-{r}.json"
                 cmd = [PYTHON, str(Path(__file__).with_name("careful_script.py")), str(walks)]
@@ -162,9 +174,15 @@ def compare(name, work, spec_text, repeats, first_point=False):
                 got = json.loads(out.read_text())["energies"]
                 energies = {key_of[k]: e for k, e in got.items() if k in key_of}
             runs[side].append((m, energies))
+            extra = ""
+            if side == pesflow:
+                extra = (
+                    f"; a core idle {idle[-1][0]:.2f} s at the end, "
+                    f"{idle[-1][1]} walks taken over between jobs"
+                )
             print(
                 f"  ({name}) repeat {r + 1}: {side}: {m.wall_s:.1f} s wall, {m.cpu_s:.1f} s CPU "
-                f"(load average {m.load_before:.1f} before)",
+                f"(load average {m.load_before:.1f} before){extra}",
                 flush=True,
             )
     reference = runs[script][0][1]
@@ -187,6 +205,8 @@ def compare(name, work, spec_text, repeats, first_point=False):
         "pesflow_range": [m.wall_s for m, _ in runs[pesflow]],
         "ratio": wall[pesflow] / wall[script],
         "first_point_s": median(firsts) if firsts else None,
+        "idle_at_end_core_s": median([i for i, _ in idle]),
+        "taken_over": [t for _, t in idle],
         "max_energy_diff_hartree": worst,
         "load_average": [m.load_before for s in runs for m, _ in runs[s]],
     }
@@ -320,6 +340,7 @@ def main(argv=None) -> int:
         print(
             f"({name}) largest energy differences between the sides: {diffs} hartree; "
             f"CPU s script {res['script_cpu_s']:.1f}, pesflow {res['pesflow_cpu_s']:.1f}; "
+            f"pesflow's cores idle at the end {res['idle_at_end_core_s']:.2f} core-s (median); "
             f"load average before the runs {min(loads):.1f}-{max(loads):.1f}"
         )
     write_result(
