@@ -18,6 +18,7 @@ campaign that is running raises :class:`~pesflow.errors.RunError`).  The command
 
 from __future__ import annotations
 
+import sys
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -26,6 +27,8 @@ import pandas as pd
 
 #: During a run, fragments are compacted into a part after this many new points.
 COMPACT_EVERY_POINTS = 2000
+#: Seconds into a run after which the end's analysis modules are imported on a thread.
+PREWARM_AFTER_S = 3.0
 
 #: Meaning of the ``source`` column of :func:`plan_levels` (and the ``from`` column of
 #: ``pesflow plan``).
@@ -353,8 +356,9 @@ def _run_round(
         target_job_s = options.target_job_s or (
             packing.TARGET_JOB_S_CLUSTER if options.profile else packing.TARGET_JOB_S_LOCAL
         )
-        weights = walk_seconds = sizes = None
+        weights = walk_seconds = sizes = starter = None
         if not plan.points["key"].isin(done).all():  # no PySCF import for a cached run
+            starter = _job_starter(options)  # imports PySCF for the jobs from now on
             sizes = cost.molecule_sizes(campaign)
             weights, walk_seconds = cost.size_weights(sizes), cost.walk_seconds(plan, sizes)
         jobs = packing.plan_jobs(
@@ -374,9 +378,14 @@ def _run_round(
                 on_start(len(pending), len(jobs), result.cached)
             wd = runner.workdir(campaign)
             config = runner.write_tasks(
-                plan, jobs, campaign.store_path, wd, options, recompute=recompute
+                plan,
+                jobs,
+                campaign.store_path,
+                wd,
+                options,
+                recompute=recompute,
+                starter=None if starter is None else starter.address,
             )
-            _import_in_background("pesflow.tables.summary")  # used at the end; cores idle now
             costs = _point_costs(plan, pending, sizes or {})
             watch = _watcher(store, pending, on_progress, wd, costs, cores or os.cpu_count() or 1)
             outcome = runner.run_snakemake(
@@ -387,10 +396,24 @@ def _run_round(
         if store.exists():
             store.compact()
     finally:
+        if starter is not None:
+            starter.stop()
         lock.release()
     result.status, result.failed_points, _ = status_of(campaign, plan, store)
     result.quarantined = quarantined + list(store.last_quarantined)
     return result
+
+
+def _job_starter(options):
+    """The run's :class:`~pesflow.execution.starter.JobStarter`: local runs, unless
+    ``PESFLOW_JOB_STARTER=0``; None on a cluster (jobs start on other machines)."""
+    from pesflow.execution import driver as runner
+    from pesflow.execution import starter
+
+    if options.profile or not starter.enabled() or not sys.platform.startswith("linux"):
+        return None
+    threads = options.threads_per_batch
+    return starter.JobStarter(threads, runner.snakemake_env(threads))
 
 
 def _import_in_background(module: str) -> None:
@@ -463,6 +486,11 @@ def _watcher(store, pending, on_progress, wd, costs, cores):
         now = time.monotonic()
         if not force and now < timing["next"]:
             return
+        if not timing.get("prewarmed") and now - start > PREWARM_AFTER_S:
+            # the end's summary (warning counts) finds its analysis modules (SciPy's among
+            # them, ~0.6 s) imported; not at the start, where the jobs' imports need the cores
+            timing["prewarmed"] = True
+            _import_in_background("pesflow.tables.summary")
         if store.exists():
             new = (store.keys() & pending) - seen
             seen.update(new)

@@ -165,11 +165,12 @@ def job_dict(plan, job, store_root, recompute=(), share=None) -> dict:
     return content
 
 
-def write_tasks(plan, jobs, store_root, wd: Path, options: RunOptions, recompute=()):
+def write_tasks(plan, jobs, store_root, wd: Path, options: RunOptions, recompute=(), starter=None):
     """Write one task file per job and the Snakemake config; clear stale done markers.
 
     ``jobs`` are :class:`pesflow.plan.batches.Job` objects; a plain
-    :class:`~pesflow.plan.expand.Batch` is taken as a job of one walk.
+    :class:`~pesflow.plan.expand.Batch` is taken as a job of one walk.  ``starter``: the
+    address of the run's :class:`~pesflow.execution.starter.JobStarter` (local runs).
     """
     from pesflow.plan.batches import Job
 
@@ -201,6 +202,7 @@ def write_tasks(plan, jobs, store_root, wd: Path, options: RunOptions, recompute
         "threads_per_batch": options.threads_per_batch,
         "mem_mb_per_batch": options.mem_mb_per_batch,
         "runtime_min_per_batch": options.runtime_min_per_batch,
+        "job_starter": starter or "",
     }
     path = wd / "config.json"
     atomic_write(path, json.dumps(config, indent=1))

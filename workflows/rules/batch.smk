@@ -13,9 +13,11 @@ rule batch:
     threads: get_threads()
     params:
         python=PYTHON,
+        starter=get_starter_option(),
     resources:
         mem_mb=get_mem_mb(),
         runtime=get_runtime_min(),
     shell:
-        'OMP_NUM_THREADS={threads} "{params.python}" -m pesflow.execution.batch {input.task} {output.done} '
+        'OMP_NUM_THREADS={threads} "{params.python}" -m pesflow.execution.jobstart {params.starter} '
+        "{input.task} {output.done} "
         "--threads {threads} --max-memory-mb {resources.mem_mb} > {log} 2>&1"

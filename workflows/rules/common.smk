@@ -24,3 +24,9 @@ def get_mem_mb():
 
 def get_runtime_min():
     return int(config["runtime_min_per_batch"])
+
+
+def get_starter_option():
+    """``--starter ADDRESS`` of a local run's job starter (pesflow/execution/starter.py)."""
+    address = config.get("job_starter") or ""
+    return f"--starter {address}" if address else ""
