@@ -118,29 +118,49 @@ def serve(listener: socket.socket, threads: int, parent: int) -> None:
     """The starter: import, then fork a child for each job that asks on ``listener``, as
     long as its parent ``parent`` (``pesflow run``) lives."""
     _preload()
-    signal.signal(signal.SIGCHLD, signal.SIG_IGN)  # the children are reaped by the kernel
+    # Ended by JobStarter.stop (SIGTERM): the children are reaped first, so that their CPU
+    # time is counted in this process's and so in pesflow run's (benchmarks read it).
+    signal.signal(signal.SIGTERM, lambda signum, frame: sys.exit(0))
     listener.settimeout(PARENT_CHECK_S)
-    while os.getppid() == parent:  # ends when pesflow run is gone
+    try:
+        while os.getppid() == parent:  # ends when pesflow run is gone
+            _reap()
+            try:
+                conn, _ = listener.accept()
+            except TimeoutError:
+                continue
+            _start_job(listener, conn, threads)
+    finally:
+        _reap()
+
+
+def _reap() -> None:
+    """Collect the children (jobs) that have ended."""
+    while True:
         try:
-            conn, _ = listener.accept()
-        except TimeoutError:
-            continue
-        conn.settimeout(None)
-        try:
-            message, fds, _, _ = socket.recv_fds(conn, MAX_REQUEST, 2)
-            request = json.loads(message)
-        except (OSError, ValueError):
-            conn.close()
-            continue
+            pid, _ = os.waitpid(-1, os.WNOHANG)
+        except ChildProcessError:
+            return
+        if pid == 0:
+            return
+
+
+def _start_job(listener: socket.socket, conn: socket.socket, threads: int) -> None:
+    """Read one job's request from ``conn`` and fork its child (or refuse it)."""
+    conn.settimeout(None)
+    fds = []
+    try:
+        message, fds, _, _ = socket.recv_fds(conn, MAX_REQUEST, 2)
+        request = json.loads(message)
         if request.get("threads") != threads or len(fds) != 2:
-            conn.sendall(json.dumps({"refused": f"this starter runs {threads} threads"}).encode())
-            conn.close()
-            for fd in fds:
-                os.close(fd)
-            continue
-        if os.fork() == 0:
+            refusal = {"refused": f"this starter runs {threads} threads"}
+            conn.sendall(json.dumps(refusal).encode())
+        elif os.fork() == 0:
             listener.close()
             _child(conn, fds, request)  # never returns
+    except (OSError, ValueError):
+        pass
+    finally:
         conn.close()
         for fd in fds:
             os.close(fd)

@@ -145,3 +145,21 @@ def test_the_starter_ends_with_the_run(tmp_path):
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
     pid = int(out.stdout.split()[0])
     assert _wait_gone(pid, timeout_s=30)
+
+
+def test_the_jobs_cpu_time_is_counted_in_the_run_that_started_them(tmp_path):
+    """Benchmarks (and a user's ``time pesflow run``) read the CPU time of a run's child
+    processes: the forked jobs' time must reach it through the starter."""
+    import resource
+
+    task, _ = _task(tmp_path, np.linspace(0.8, 1.2, 40))
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    started = JobStarter(1, dict(os.environ, OMP_NUM_THREADS="1"))
+    t0 = time.process_time()
+    code = jobstart.hand_over(started.address, [str(task), str(tmp_path / "d"), "--threads", "1"])
+    assert code == 0 and time.process_time() - t0 < 0.5  # the work was not done here
+    started.stop()
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    job_cpu = json.loads((tmp_path / "d").read_text())["wall_s"]  # one thread: CPU ~ wall
+    counted = (after.ru_utime + after.ru_stime) - (before.ru_utime + before.ru_stime)
+    assert counted >= 0.8 * job_cpu
