@@ -113,15 +113,18 @@ def stored_energies(store_root: Path) -> dict:
     return dict(zip(table["key"], table["energy_hartree"], strict=True))
 
 
-def idle_at_end(run_dir: Path, cores: int = 2) -> tuple[float, int]:
-    """Core-seconds idle at the end of a pesflow run and walks taken over between jobs.
+def idle_at_end(run_dir: Path, cores: int = 2) -> tuple[float, int, float]:
+    """Core-seconds idle at the end of a pesflow run, walks taken over between jobs, and
+    seconds the jobs waited for their store writes (summed over the jobs).
 
     From the jobs' done markers: the last ``cores`` jobs to end, each core idle from its
     job's end to the last job's end (the markers' modification times)."""
     markers = list((run_dir / "results").glob("*/.pesflow/workflow/done/*.json"))
     ends = sorted(p.stat().st_mtime for p in markers)[-cores:]
-    taken = sum(json.loads(p.read_text()).get("taken_over", 0) for p in markers)
-    return (sum(ends[-1] - t for t in ends) if ends else 0.0), taken
+    content = [json.loads(p.read_text()) for p in markers]
+    taken = sum(m.get("taken_over", 0) for m in content)
+    waited = sum(m.get("store_wait_s", 0.0) for m in content)
+    return (sum(ends[-1] - t for t in ends) if ends else 0.0), taken, waited
 
 
 class FirstPoint:
@@ -178,7 +181,8 @@ def compare(name, work, spec_text, repeats, first_point=False):
             if side == pesflow:
                 extra = (
                     f"; a core idle {idle[-1][0]:.2f} s at the end, "
-                    f"{idle[-1][1]} walks taken over between jobs"
+                    f"{idle[-1][1]} walks taken over between jobs, "
+                    f"jobs waited {idle[-1][2]:.2f} s for the store"
                 )
             print(
                 f"  ({name}) repeat {r + 1}: {side}: {m.wall_s:.1f} s wall, {m.cpu_s:.1f} s CPU "
@@ -205,8 +209,9 @@ def compare(name, work, spec_text, repeats, first_point=False):
         "pesflow_range": [m.wall_s for m, _ in runs[pesflow]],
         "ratio": wall[pesflow] / wall[script],
         "first_point_s": median(firsts) if firsts else None,
-        "idle_at_end_core_s": median([i for i, _ in idle]),
-        "taken_over": [t for _, t in idle],
+        "idle_at_end_core_s": median([i for i, _, _ in idle]),
+        "taken_over": [t for _, t, _ in idle],
+        "store_wait_s": [w for _, _, w in idle],
         "max_energy_diff_hartree": worst,
         "load_average": [m.load_before for s in runs for m, _ in runs[s]],
     }

@@ -588,6 +588,7 @@ def run_job(
     finally:
         for writer in writers.values():
             writer.close()
+    waited = sum(writer.waited_s for writer in writers.values())
     for writer in writers.values():
         writer.compact()
     _report_progress(progress, job, None, walks, status)
@@ -597,6 +598,7 @@ def run_job(
         **counts,
         "walks": walks,
         "taken_over": 0 if sharing is None else sharing.taken_over,
+        "store_wait_s": waited,
         "points": status,
     }
     done_path = Path(done_path)
@@ -625,7 +627,7 @@ def main(argv=None) -> int:
     marker = run_job(args.task, args.done, threads=args.threads, max_memory_mb=args.max_memory_mb)
     log.info(
         "batch %s: %d computed, %d failed, %d cached, %d improved walking back, "
-        "%d walks taken over from other jobs, %.1f s",
+        "%d walks taken over from other jobs, %.1f s (%.2f s of it waiting for the store)",
         marker["batch_id"],
         marker["computed"],
         marker["failed"],
@@ -633,6 +635,7 @@ def main(argv=None) -> int:
         marker["improved"],
         marker.get("taken_over", 0),
         marker["wall_s"],
+        marker.get("store_wait_s", 0.0),
     )
     return 0
 

@@ -24,6 +24,7 @@ almost nothing.
 from __future__ import annotations
 
 import threading
+import time
 
 from pesflow.store.records import make_record
 
@@ -41,6 +42,9 @@ class PointWriter:
         self._pending: list[dict] | None = None
         self._error: BaseException | None = None
         self._closed = False
+        #: seconds the caller waited for the previous point to be durable (a slow disk
+        #: shows here: the job's log reports it)
+        self.waited_s = 0.0
         self._cond = threading.Condition()
         self._thread = threading.Thread(target=self._run, name="pesflow-point-writer", daemon=True)
         self._thread.start()
@@ -82,7 +86,9 @@ class PointWriter:
         """Queue the records of one point (validated here, in the caller's thread) once the
         previous point's are durable; raises the error of a failed earlier write."""
         checked = [make_record(**record) for record in records]
+        start = time.perf_counter()
         self._wait_idle()
+        self.waited_s += time.perf_counter() - start
         if self._closed:
             raise RuntimeError("PointWriter is closed")
         if not checked:
