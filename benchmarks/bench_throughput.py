@@ -186,7 +186,8 @@ def compare(name, work, spec_text, repeats, first_point=False):
                 )
             print(
                 f"  ({name}) repeat {r + 1}: {side}: {m.wall_s:.1f} s wall, {m.cpu_s:.1f} s CPU "
-                f"(load average {m.load_before:.1f} before){extra}",
+                f"({m.sys_s:.1f} s of it system, {m.minor_faults / 1e6:.2f} M page faults; "
+                f"load average {m.load_before:.1f} before){extra}",
                 flush=True,
             )
     reference = runs[script][0][1]

@@ -40,6 +40,10 @@ class Measured:
     cpu_s: float = 0.0
     #: 1-minute load average of the machine just before the child started
     load_before: float = 0.0
+    #: of ``cpu_s``, the seconds spent in the kernel (system time)
+    sys_s: float = 0.0
+    #: minor page faults of the child and every process it waited for
+    minor_faults: int = 0
 
 
 def run_child(cmd, cwd=None, env=None, timeout_s=3600, on_tick=None) -> Measured:
@@ -92,6 +96,8 @@ def run_child(cmd, cwd=None, env=None, timeout_s=3600, on_tick=None) -> Measured
         text,
         cpu_s=usage.ru_utime + usage.ru_stime,
         load_before=load_before,
+        sys_s=usage.ru_stime,
+        minor_faults=usage.ru_minflt,
     )
 
 
