@@ -446,6 +446,9 @@ def _run(args, warm) -> int:
         TextColumn("{task.fields[running]}"),
         console=console,
         transient=False,
+        # the figures change when the store is polled (every 0.5 s): redrawing at rich's
+        # default 10 Hz costs the driver CPU that the jobs' cores lose
+        refresh_per_second=2,
     )
     state = {"task": None, "start": time.monotonic(), "printed": time.monotonic()}
 
