@@ -55,7 +55,9 @@ class JobStarter:
         # An abstract socket (Linux): no file to clean up, no path-length limit.
         self.address = f"pesflow-starter-{os.getpid()}-{uuid.uuid4().hex[:12]}"
         env = dict(os.environ if env is None else env)
-        env.setdefault("OMP_NUM_THREADS", str(self.threads))
+        # as the job's command line sets it (workflows/rules/batch.smk), whatever the
+        # caller's environment says: OpenMP reads it once, before the fork
+        env["OMP_NUM_THREADS"] = str(self.threads)
         # Bound here, before the starter runs: a job that connects while the starter is
         # still importing waits in the backlog rather than finding no socket.
         listener = _listen(self.address)

@@ -163,3 +163,16 @@ def test_the_jobs_cpu_time_is_counted_in_the_run_that_started_them(tmp_path):
     job_cpu = json.loads((tmp_path / "d").read_text())["wall_s"]  # one thread: CPU ~ wall
     counted = (after.ru_utime + after.ru_stime) - (before.ru_utime + before.ru_stime)
     assert counted >= 0.8 * job_cpu
+
+
+def test_a_forked_job_has_the_threads_its_command_line_asks_for():
+    """The job's command sets OMP_NUM_THREADS to its threads (workflows/rules/batch.smk);
+    the starter, whose children inherit its OpenMP setting, must have them too, whatever
+    the environment of pesflow run says."""
+    started = JobStarter(2, dict(os.environ, OMP_NUM_THREADS="1"))
+    try:
+        with open(f"/proc/{started.proc.pid}/environ", "rb") as fh:
+            pairs = [item.split(b"=", 1) for item in fh.read().split(b"\0") if b"=" in item]
+        assert dict(pairs)[b"OMP_NUM_THREADS"] == b"2"
+    finally:
+        started.stop()
