@@ -103,17 +103,18 @@ def test_a_starter_of_another_thread_count_leaves_the_job_to_the_command(tmp_pat
     assert code is None and not (tmp_path / "d").exists()
 
 
-def _long_task(tmp_path):
-    # enough points that the job is still running when it is stopped
-    return _task(tmp_path, np.linspace(0.7, 3.0, 400))
-
-
-def test_sigterm_to_the_command_stops_the_forked_job(tmp_path, starter):
-    task, _ = _long_task(tmp_path)
+def _long_job_running(tmp_path, starter):
+    """A job's command handed to ``starter`` with enough points (400) that its job is
+    still computing when it is stopped; returns the command's process and the job's pid."""
+    task, _ = _task(tmp_path, np.linspace(0.7, 3.0, 400))
     log = tmp_path / "job.log"
     args = ["--starter", starter.address, str(task), str(tmp_path / "done.json")]
     proc = _client(args, tmp_path, log)
-    pid = _forked_pid(log)
+    return proc, _forked_pid(log)
+
+
+def test_sigterm_to_the_command_stops_the_forked_job(tmp_path, starter):
+    proc, pid = _long_job_running(tmp_path, starter)
     proc.send_signal(signal.SIGTERM)
     assert proc.wait(timeout=30) != 0
     assert _wait_gone(pid)
@@ -121,11 +122,7 @@ def test_sigterm_to_the_command_stops_the_forked_job(tmp_path, starter):
 
 
 def test_a_killed_command_leaves_no_job_running(tmp_path, starter):
-    task, _ = _long_task(tmp_path)
-    log = tmp_path / "job.log"
-    args = ["--starter", starter.address, str(task), str(tmp_path / "done.json")]
-    proc = _client(args, tmp_path, log)
-    pid = _forked_pid(log)
+    proc, pid = _long_job_running(tmp_path, starter)
     proc.kill()
     proc.wait(timeout=30)
     assert _wait_gone(pid)  # it noticed its client was gone and stopped

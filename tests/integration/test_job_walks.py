@@ -16,21 +16,32 @@ from tests.integration.test_batch_walk import _rhf, _task
 pytestmark = pytest.mark.integration
 
 
-def _job(tmp_path, walks):
+def _walk_tasks(tmp_path, walks, prefix=""):
+    """One HF walk task per list of distances, ids ``<prefix>walk-<i>``, one store."""
     tasks = []
     for i, distances in enumerate(walks):
-        folder = tmp_path / f"w{i}"
+        folder = tmp_path / f"{prefix}w{i}"
         folder.mkdir()
         _, task = _task(folder, distances)
-        task["batch_id"] = f"walk-{i}"
+        task["batch_id"] = f"{prefix}walk-{i}"
         task["store"] = str(tmp_path / "store")
-        task["molecule"] = "hydrogen_fluoride"
         tasks.append(task)
-    job = {"format": batch.JOB_FORMAT, "version": batch.JOB_VERSION, "job_id": "job001-t"}
-    path = tmp_path / "tasks" / "job001-t.json"
-    path.parent.mkdir()
-    path.write_text(json.dumps({**job, "walks": tasks}))
-    return path, tasks
+    return tasks
+
+
+def _write_job(path, job_id, tasks, **extra):
+    """A job file of ``tasks`` (``extra``: e.g. the run's ``share``)."""
+    path.parent.mkdir(exist_ok=True)
+    job = {"format": batch.JOB_FORMAT, "version": batch.JOB_VERSION, "job_id": job_id}
+    path.write_text(json.dumps({**job, "walks": tasks, **extra}))
+    return path
+
+
+def _job(tmp_path, walks):
+    tasks = _walk_tasks(tmp_path, walks)
+    for task in tasks:
+        task["molecule"] = "hydrogen_fluoride"
+    return _write_job(tmp_path / "tasks" / "job001-t.json", "job001-t", tasks), tasks
 
 
 def test_job_runs_each_walk_and_writes_one_marker(tmp_path):
@@ -63,22 +74,12 @@ def test_a_single_walk_task_file_still_runs(tmp_path):
 
 def _shared_jobs(tmp_path, walks_of):
     """Job files of one local run whose walks are shared (as write_tasks makes them)."""
-    tasks_dir = tmp_path / "tasks"
-    tasks_dir.mkdir()
     share = {"claims": str(tmp_path / "claims"), "jobs": sorted(walks_of)}
     paths, tasks = {}, {}
     for job_id, walks in sorted(walks_of.items()):
-        tasks[job_id] = []
-        for i, distances in enumerate(walks):
-            folder = tmp_path / f"{job_id}-w{i}"
-            folder.mkdir()
-            _, task = _task(folder, distances)
-            task["batch_id"] = f"{job_id}-walk-{i}"
-            task["store"] = str(tmp_path / "store")
-            tasks[job_id].append(task)
-        job = {"format": batch.JOB_FORMAT, "version": batch.JOB_VERSION, "job_id": job_id}
-        paths[job_id] = tasks_dir / f"{job_id}.json"
-        paths[job_id].write_text(json.dumps({**job, "walks": tasks[job_id], "share": share}))
+        tasks[job_id] = _walk_tasks(tmp_path, walks, prefix=f"{job_id}-")
+        path = tmp_path / "tasks" / f"{job_id}.json"
+        paths[job_id] = _write_job(path, job_id, tasks[job_id], share=share)
     return paths, tasks
 
 
