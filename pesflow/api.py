@@ -391,6 +391,7 @@ def _run_round(
             outcome = runner.run_snakemake(
                 wd, config, options, lock, on_poll=watch, warm=warm, on_ended=on_ended
             )
+            watch(force=True)  # the display's last figures are the run's final ones
             result.interrupted, result.stalled = outcome.interrupted, outcome.stalled
             result.returncode, result.log_path = outcome.returncode, outcome.log_path
         if store.exists():

@@ -240,7 +240,7 @@ def test_on_ended_is_called_once_with_every_point_stored(tmp_path):
     loaded = api.load(spec)
     plan = expand(loaded.campaign)
     store = PointStore(tmp_path / "store")
-    seen = []
+    seen, shown = [], []
     keys = set(plan.points["key"])
     result = api.run_campaign(
         loaded.campaign,
@@ -248,9 +248,12 @@ def test_on_ended_is_called_once_with_every_point_stored(tmp_path):
         store,
         cores=2,
         on_ended=lambda: seen.append(keys <= PointStore(tmp_path / "store").keys()),
+        on_progress=shown.append,
     )
     assert result.returncode == 0
     assert seen == [True]
+    # the progress display ends on the run's final figures, not a poll's older ones
+    assert (shown[-1].finished, shown[-1].total) == (len(keys), len(keys))
 
 
 def test_second_run_of_same_campaign_is_refused(tmp_path):
