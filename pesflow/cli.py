@@ -393,7 +393,7 @@ def cmd_run(args) -> int:
     from pesflow.execution.warm import WarmSnakemake
 
     # Snakemake imports itself in a child while the campaign loads and plans (~0.8 s).
-    warm = WarmSnakemake(snakemake_env(args.threads_per_batch))
+    warm = WarmSnakemake(snakemake_env(args.threads_per_batch), local=not args.profile)
     try:
         return _run(args, warm)
     finally:

@@ -219,8 +219,15 @@ def _stop_without_client(conn: socket.socket) -> None:
 
 def main(argv=None) -> int:
     fd, threads, parent = (int(a) for a in (argv or sys.argv[1:])[:3])
-    serve(socket.socket(fileno=fd), threads, parent)
-    return 0
+    try:
+        serve(socket.socket(fileno=fd), threads, parent)
+    except SystemExit:  # JobStarter.stop: the children are reaped
+        pass
+    # Without the interpreter's tear-down of PySCF, pandas and pyarrow (~0.15 s), which
+    # pesflow run would wait for at its end.
+    sys.stdout.flush()
+    sys.stderr.flush()
+    os._exit(0)
 
 
 if __name__ == "__main__":

@@ -27,6 +27,30 @@ import sys
 
 #: Largest command line the child reads (bytes of JSON).
 _MAX_MESSAGE = 1 << 20
+#: The child's flag for a run on this machine: Snakemake's own executors only.
+_LOCAL = "--local"
+
+
+def _builtin_executors_only() -> None:
+    """Make Snakemake's executor registry hold only its own executors (local, dryrun,
+    touch), not the installed executor plugins.
+
+    Snakemake imports every installed ``snakemake_executor_plugin_*`` when it starts, and
+    the SLURM plugin then asks ``scontrol show config`` (a 10 s time-out where SLURM's
+    client tools are installed but no controller answers) and imports pandas (~0.3 s).
+    A local run uses none of them.  Must run before ``snakemake.cli`` is imported.
+    """
+    from snakemake_interface_executor_plugins.registry import ExecutorPluginRegistry
+
+    def collect_plugins(self):
+        from snakemake.executors import dryrun, local, touch
+
+        self.plugins = {}
+        self.register_plugin("local", local)
+        self.register_plugin("dryrun", dryrun)
+        self.register_plugin("touch", touch)
+
+    ExecutorPluginRegistry.collect_plugins = collect_plugins
 
 
 class WarmSnakemake:
@@ -36,12 +60,15 @@ class WarmSnakemake:
     through it, of every job).
     """
 
-    def __init__(self, env: dict | None = None):
+    def __init__(self, env: dict | None = None, *, local: bool = False):
         self.started = False
         self._sock, child = socket.socketpair()
+        argv = [sys.executable, "-m", "pesflow.execution.warm", str(child.fileno())]
+        if local and not (env if env is not None else os.environ).get("SNAKEMAKE_PROFILE"):
+            argv.append(_LOCAL)
         try:
             self.proc = subprocess.Popen(
-                [sys.executable, "-m", "pesflow.execution.warm", str(child.fileno())],
+                argv,
                 pass_fds=(child.fileno(),),
                 stdin=subprocess.DEVNULL,
                 stdout=subprocess.DEVNULL,
@@ -78,10 +105,41 @@ class WarmSnakemake:
         self.proc.wait()
 
 
+#: What Snakemake imports only once it runs pesflow's workflow (its source cache's URI
+#: parsing, the config schema's validation), measured as the modules new in
+#: ``sys.modules`` after a run: imported while the parent plans instead.
+_RUN_IMPORTS = ("smart_open", "jsonschema", "snakemake.storage", "graphlib", "packaging.version")
+
+
+def _prewarm() -> None:
+    """Do before the command line comes what Snakemake does first with every command line:
+    build its argument parser, which collects its plugin registries (the report plugins'
+    imports Snakemake's report package; ~0.16 s), and import :data:`_RUN_IMPORTS` (~0.12 s).
+    The registries are kept, so ``snakemake.cli.main`` finds them collected.  Only a head
+    start: anything that fails here is left for Snakemake to do (and report) itself."""
+    import importlib
+
+    import snakemake.cli
+
+    try:
+        snakemake.cli.get_argument_parser()
+    except Exception:
+        pass
+    for name in _RUN_IMPORTS:
+        try:
+            importlib.import_module(name)
+        except Exception:
+            pass
+
+
 def main(argv=None) -> int:
-    fd = int((argv or sys.argv[1:])[0])
-    sock = socket.socket(fileno=fd)
+    argv = argv or sys.argv[1:]
+    sock = socket.socket(fileno=int(argv[0]))
+    if _LOCAL in argv[1:]:
+        _builtin_executors_only()
     import snakemake.cli  # the slow part, done while the parent plans
+
+    _prewarm()
 
     message, fds, _, _ = socket.recv_fds(sock, _MAX_MESSAGE, 2)
     sock.close()

@@ -156,6 +156,7 @@ def test_the_jobs_cpu_time_is_counted_in_the_run_that_started_them(tmp_path):
     code = jobstart.hand_over(started.address, [str(task), str(tmp_path / "d"), "--threads", "1"])
     assert code == 0 and time.process_time() - t0 < 0.5  # the work was not done here
     started.stop()
+    assert started.proc.returncode == 0  # stopped, not killed after its grace time
     after = resource.getrusage(resource.RUSAGE_CHILDREN)
     job_cpu = json.loads((tmp_path / "d").read_text())["wall_s"]  # one thread: CPU ~ wall
     counted = (after.ru_utime + after.ru_stime) - (before.ru_utime + before.ru_stime)

@@ -7,6 +7,8 @@ it was handed as long as it runs.
 
 from __future__ import annotations
 
+import importlib.util
+import os
 import subprocess
 import sys
 import textwrap
@@ -81,3 +83,46 @@ def test_the_child_ends_with_snakemakes_status_when_a_job_fails(tmp_path):
     assert proc.wait(timeout=120) == expected != 0
     assert "Error in rule broken" in (tmp_path / "log").read_text()
     lock.release()
+
+
+def _fake_slurm_tools(tmp_path):
+    """``scontrol``, ``sacct`` and ``squeue`` that only note that they were asked (a SLURM
+    plugin loaded by Snakemake asks ``scontrol show config``; where no controller answers,
+    that costs a 10 s time-out)."""
+    bin_dir = tmp_path / "bin"
+    bin_dir.mkdir()
+    asked = tmp_path / "asked.txt"
+    for tool in ("scontrol", "sacct", "squeue"):
+        script = bin_dir / tool
+        script.write_text(f'#!/bin/sh\necho "{tool} $*" >> "{asked}"\n')
+        script.chmod(0o755)
+    env = snakemake_env()
+    env["PATH"] = f"{bin_dir}{os.pathsep}{env['PATH']}"
+    env.pop("SNAKEMAKE_PROFILE", None)
+    return env, asked
+
+
+def _run_warm(tmp_path, env, local):
+    (tmp_path / "Snakefile").write_text(
+        'rule one:\n    output: "done.txt"\n    shell: "touch {output}"\n'
+    )
+    (tmp_path / "done.txt").unlink(missing_ok=True)
+    lock = RunLock(tmp_path / "run.lock").acquire()
+    warm = WarmSnakemake(env, local=local)
+    argv = ["--snakefile", str(tmp_path / "Snakefile"), "--directory", str(tmp_path), "-c1"]
+    with open(tmp_path / "log", "w") as log:
+        proc = warm.start(argv, log.fileno(), lock.fd)
+    lock.release()
+    assert proc.wait(timeout=120) == 0, (tmp_path / "log").read_text()
+    assert (tmp_path / "done.txt").exists()
+
+
+def test_a_local_child_runs_the_workflow_without_loading_executor_plugins(tmp_path):
+    env, asked = _fake_slurm_tools(tmp_path)
+    _run_warm(tmp_path, env, local=True)
+    assert not asked.exists()  # no plugin asked SLURM anything
+    if importlib.util.find_spec("snakemake_executor_plugin_slurm") is not None:
+        # the same child for a cluster profile loads the plugins, which ask SLURM: the
+        # check above would have seen it
+        _run_warm(tmp_path, env, local=False)
+        assert "scontrol" in asked.read_text()
