@@ -16,11 +16,10 @@ import pyarrow as pa
 from pesflow.formats.atomic import TMP_PREFIX, fsync_dir
 from pesflow.store.files import _dedupe_keep_last, _same_inode, _utc_stamp, _write_parquet_atomic
 from pesflow.store.records import (
-    _FRAGMENT_SUFFIX,
     _PART_PREFIX,
     COLUMNS,
     POINT_SCHEMA,
-    is_point_key,
+    fragment_keys,
 )
 
 #: How long a job's end-of-job compaction waits for another holder of the lock (seconds):
@@ -115,11 +114,11 @@ def compact(
     return stats
 
 
-def compact_written(store, written: list[tuple[dict, int]]) -> dict:
+def compact_written(store, written: list[tuple[list[dict], Path, int]]) -> dict:
     """Move the fragments one writer made into one new part, from the records it holds.
 
-    ``written``: (record, inode) of each fragment written, as :class:`PointWriter` keeps
-    them.  A job calls this at its end so that the run's final :func:`compact` has little
+    ``written``: (records, path, inode) of each fragment written, as :class:`PointWriter`
+    keeps them.  A job calls this at its end so that the run's final :func:`compact` has little
     left to read; nothing is read back from disk.  Same rules as :func:`compact`: under the
     compaction lock (waited for up to :data:`WRITTEN_LOCK_WAIT_S`, then skipped), the part
     is durable before a fragment goes, and a fragment replaced since it was written
@@ -135,15 +134,14 @@ def compact_written(store, written: list[tuple[dict, int]]) -> dict:
             stats["skipped"] = "another process holds the compaction lock"
             return stats
         latest = {}  # a key written twice: its last record
-        for record, inode in written:
-            latest[record["key"]] = (record, inode)
+        for records, _, _ in written:
+            latest.update((record["key"], record) for record in records)
         part = _new_part_path(store)
-        records = [record for record, _ in latest.values()]
+        records = list(latest.values())
         _write_part(store, pa.Table.from_pylist(records, schema=POINT_SCHEMA), part)
         stats["part"] = part
         removed = 0
-        for key, (_, inode) in latest.items():
-            path = store.fragment_path(key)
+        for _, path, inode in written:
             if _same_inode(path, inode):
                 with contextlib.suppress(FileNotFoundError):
                     os.unlink(path)
@@ -158,7 +156,7 @@ def _compact_fragments(store, names: list[str], stats: dict) -> None:
     tables, read = [], []
     for name in names:
         path = store.fragments_dir / name
-        if not is_point_key(name[: -len(_FRAGMENT_SUFFIX)]):
+        if fragment_keys(name) is None:
             store.quarantine(path, "fragment file name is not a point key")
             continue
         table, inode = store._read_or_quarantine(path, COLUMNS)

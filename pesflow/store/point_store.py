@@ -8,7 +8,10 @@ computation: the point being computed and the one being written).
 Layout under the store root::
 
     ROOT/STORE.json                       {"format": "pesflow-store", "schema_version": 1}
-    ROOT/fragments/<key>.parquet          one point per file, written atomically
+    ROOT/fragments/<key>[+<key>...].parquet
+                                          the records of one point (one geometry: a
+                                          method or state each) per file, named by
+                                          their keys in row order, written atomically
     ROOT/parts/part-<utc>-<uuid>.parquet  compacted files, many records each
     ROOT/quarantine/                      corrupt files, each with a ``<name>.txt`` reason beside it
     ROOT/locks/compact.lock               fcntl lock held during compaction
@@ -79,7 +82,10 @@ from pesflow.store.records import (
     POINT_SCHEMA,
     SCHEMA_VERSION,
     STORE_FORMAT,
+    MAX_FRAGMENT_KEYS,
     _check_key,
+    fragment_keys,
+    fragment_name,
     is_point_key,
     make_record,
 )
@@ -226,13 +232,26 @@ class PointStore:
 
     def write_checked(self, record: dict) -> int:
         """:meth:`write` of a record that :func:`make_record` made already."""
+        return self.write_point([record])[0][1]
+
+    def write_point(self, records: Sequence[dict]) -> list[tuple[Path, int]]:
+        """Make the records of one point (made by :func:`make_record`, distinct keys)
+        durable in one fragment, ``fragments/<key>+<key>....parquet`` (up to
+        :data:`~pesflow.store.records.MAX_FRAGMENT_KEYS` keys a file; more take more
+        files), written as :meth:`write` writes one.  One file instead of one per record
+        halves a cheap point's store cost.  Returns ``(path, inode)`` of each file."""
         self._ensure_root()
-        table = pa.Table.from_pylist([record], schema=POINT_SCHEMA)
-        path = self.fragment_path(record["key"])
-        try:
-            return _write_parquet_atomic(table, path, fsync=self.fsync, options=FRAGMENT_WRITE)
-        except OSError as exc:
-            raise StoreError(f"cannot write point {record['key']} to {path}: {exc}") from exc
+        out = []
+        for start in range(0, len(records), MAX_FRAGMENT_KEYS):
+            chunk = records[start : start + MAX_FRAGMENT_KEYS]
+            path = self.fragments_dir / fragment_name(r["key"] for r in chunk)
+            table = pa.Table.from_pylist(chunk, schema=POINT_SCHEMA)
+            try:
+                inode = _write_parquet_atomic(table, path, fsync=self.fsync, options=FRAGMENT_WRITE)
+            except OSError as exc:
+                raise StoreError(f"cannot write point {chunk[0]['key']} to {path}: {exc}") from exc
+            out.append((path, inode))
+        return out
 
     # ------------------------------------------------------------ listing
 
@@ -276,8 +295,9 @@ class PointStore:
                     if name[0] == "." or not name.endswith(_FRAGMENT_SUFFIX):
                         continue
                     inode = entry.inode()
+                    names_keys = fragment_keys(name)
                     if checked.get(name) != inode:
-                        if not is_point_key(name[:-8]):
+                        if names_keys is None:
                             bad.append((name, inode, "fragment file name is not a point key"))
                             continue
                         problem, inode = _magic_problem(name, dir_fd)
@@ -287,7 +307,7 @@ class PointStore:
                             bad.append((name, inode, problem))
                             continue
                     ok[name] = inode
-                    keys.add(name[:-8])
+                    keys.update(names_keys)
         finally:
             os.close(dir_fd)
         self._fragment_ok = ok
@@ -363,6 +383,8 @@ class PointStore:
             if problem is None:
                 return True
             self._quarantine_if_same(path, inode, problem)
+        if key in self._valid_fragment_keys():  # in a fragment of a whole point
+            return True
         return any(key in keys for keys in self._load_part_keys().values())
 
     # ------------------------------------------------------------ reading
@@ -404,7 +426,9 @@ class PointStore:
             vanished = False
             # Fragments are listed before parts: see the module docstring.
             fragment_names = [
-                n for n in self._fragment_names() if wanted is None or n[:-8] in wanted
+                n
+                for n in self._fragment_names()
+                if wanted is None or not wanted.isdisjoint(fragment_keys(n) or ())
             ]
             part_names = self._part_names()
             if wanted is not None:
@@ -427,6 +451,8 @@ class PointStore:
                 if table is _VANISHED:
                     vanished = True
                 elif table is not None:
+                    if wanted is not None and table.num_rows > 1:  # a point's other records
+                        table = table.filter(pc.is_in(table.column("key"), pa.array(wanted)))
                     fragment_tables[name] = table
             if not vanished:
                 break
@@ -457,11 +483,18 @@ class PointStore:
 
     @staticmethod
     def _fragment_content_problem(path: Path, table: pa.Table) -> str | None:
-        key = path.name[: -len(_FRAGMENT_SUFFIX)]
-        if table.num_rows != 1:
-            return f"fragment holds {table.num_rows} rows, expected 1"
-        if table.column("key")[0].as_py() != key:
-            return f"fragment holds key {table.column('key')[0].as_py()!r}, not its file name"
+        keys = fragment_keys(path.name)
+        if keys is None:
+            return "fragment file name is not a point key"
+        if table.num_rows != len(keys):
+            return f"fragment holds {table.num_rows} rows, expected {len(keys)}"
+        held = table.column("key").to_pylist()
+        if held != keys:
+            return (
+                f"fragment holds key {held[0]!r}, not its file name"
+                if len(held) == 1
+                else (f"fragment holds keys {held}, not those of its file name")
+            )
         return None
 
     def status_table(

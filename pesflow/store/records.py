@@ -73,6 +73,37 @@ def is_point_key(key) -> bool:
     return isinstance(key, str) and _KEY_RE.fullmatch(key) is not None
 
 
+#: A fragment file holds the records of one point (one geometry: a record per method or
+#: state computed there), named by their keys joined with this, in row order.
+FRAGMENT_KEY_SEP = "+"
+#: Keys in one fragment's name at most: 6 x 33 characters, the suffix and the temporary
+#: name's prefix and random tail (atomic writes) stay under the 255-byte name limit of
+#: common filesystems.  A point with more records takes more files.
+MAX_FRAGMENT_KEYS = 6
+
+
+def fragment_name(keys) -> str:
+    """The file name of a fragment holding the records of ``keys``, in that order."""
+    keys = list(keys)
+    if not 1 <= len(keys) <= MAX_FRAGMENT_KEYS or len(set(keys)) != len(keys):
+        raise ValueError(f"a fragment holds 1-{MAX_FRAGMENT_KEYS} distinct keys, got {keys}")
+    return FRAGMENT_KEY_SEP.join(_check_key(k) for k in keys) + _FRAGMENT_SUFFIX
+
+
+def fragment_keys(name: str) -> list[str] | None:
+    """The keys a fragment file name holds, in row order; None when ``name`` is not a
+    fragment's name.  A one-key name is the key itself (as every fragment was named
+    before fragments held a whole point)."""
+    if not name.endswith(_FRAGMENT_SUFFIX):
+        return None
+    keys = name[: -len(_FRAGMENT_SUFFIX)].split(FRAGMENT_KEY_SEP)
+    if len(keys) > MAX_FRAGMENT_KEYS or len(set(keys)) != len(keys):
+        return None
+    if not all(_KEY_RE.fullmatch(k) for k in keys):
+        return None
+    return keys
+
+
 def _check_key(key) -> str:
     if not is_point_key(key):
         raise ValueError(f"point key must be 32 lowercase hex digits [0-9a-f]{{32}}, got {key!r}")

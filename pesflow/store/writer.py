@@ -33,12 +33,14 @@ class PointWriter:
     """Durable point writes of one job, one point ahead of the caller (see module doc).
 
     ``store``: the :class:`~pesflow.store.point_store.PointStore` written to.
-    ``written``: (record, inode) of every fragment written so far, in order.
+    ``written``: (records, path, inode) of every fragment written so far, in order (one
+    fragment holds the records of one point; a point of more than
+    :data:`~pesflow.store.records.MAX_FRAGMENT_KEYS` records takes more).
     """
 
     def __init__(self, store):
         self.store = store
-        self.written: list[tuple[dict, int]] = []
+        self.written: list[tuple[list[dict], object, int]] = []
         self._pending: list[dict] | None = None
         self._error: BaseException | None = None
         self._closed = False
@@ -65,9 +67,8 @@ class PointWriter:
                 if records is None:  # closed, nothing left
                     return
             try:
-                for record in records:
-                    inode = self.store.write_checked(record)  # checked in write()
-                    self.written.append((record, inode))
+                for path, inode in self.store.write_point(records):  # checked in write()
+                    self.written.append((records, path, inode))
             except BaseException as exc:  # raised in the caller's thread
                 self._error = exc
             with self._cond:

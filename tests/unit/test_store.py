@@ -22,6 +22,7 @@ import pytest
 
 from pesflow.errors import StoreError
 from pesflow.store.point_store import POINT_SCHEMA, SCHEMA_VERSION, PointStore, make_record
+from pesflow.store.records import MAX_FRAGMENT_KEYS, fragment_keys, fragment_name
 
 
 def point_key(label) -> str:
@@ -507,3 +508,63 @@ def test_keys_of_20000_fragments_and_a_part(tmp_path):
     (store.fragments_dir / f"{late}.parquet").write_bytes(data[: len(data) // 2])
     assert store.keys() == want
     assert [p.name for p, _ in store.last_quarantined] == [f"{late}.parquet"]
+
+
+# ---------------------------------------------------------------- fragments of a point
+
+
+def test_fragment_names_round_trip_and_refuse_what_is_not_a_key_list():
+    keys = [point_key(f"k{i}") for i in range(3)]
+    name = fragment_name(keys)
+    assert name == "+".join(keys) + ".parquet"
+    assert fragment_keys(name) == keys
+    assert fragment_keys(keys[0] + ".parquet") == [keys[0]]  # a one-record fragment
+    for bad in (
+        "+".join(keys) + ".txt",
+        keys[0] + "+" + keys[0] + ".parquet",  # one key twice
+        keys[0] + "+XYZ.parquet",
+        "+".join(point_key(f"m{i}") for i in range(MAX_FRAGMENT_KEYS + 1)) + ".parquet",
+    ):
+        assert fragment_keys(bad) is None, bad
+    with pytest.raises(ValueError):
+        fragment_name([])
+    # the longest name fits the 255-byte file-name limit of ext4, XFS and NFS, also as the
+    # temporary name it is written under (".tmp-<name stem>-<32 hex digits><suffix>")
+    longest = fragment_name([point_key(f"n{i}") for i in range(MAX_FRAGMENT_KEYS)])
+    assert len(".tmp-") + len(longest) + 33 <= 255
+
+
+def test_a_point_of_many_records_is_stored_whole_and_read_by_key(tmp_path):
+    store = PointStore(tmp_path / "store")
+    records = [make_record(**point_record(i)) for i in range(MAX_FRAGMENT_KEYS + 2)]
+    written = store.write_point(records)
+    assert [p.name for p, _ in written] == [
+        fragment_name(r["key"] for r in records[:MAX_FRAGMENT_KEYS]),
+        fragment_name(r["key"] for r in records[MAX_FRAGMENT_KEYS:]),
+    ]
+    assert store.keys() == {r["key"] for r in records}
+    second = records[1]["key"]  # not the first key of its file's name
+    assert store.has(second) and second in store
+    only = store.load(keys=[second]).to_pylist()
+    assert len(only) == 1
+    assert_records_equal(only[0], records[1])
+    got = {row["key"]: row for row in store.load().to_pylist()}
+    for record in records:
+        assert_records_equal(got[record["key"]], record)
+    assert store.verify() == []
+    stats = store.compact()
+    assert stats["fragments_compacted"] == 2 and fragment_files(store) == []
+    assert store.keys() == {r["key"] for r in records}
+
+
+def test_a_point_fragment_whose_rows_differ_from_its_name_is_quarantined(tmp_path):
+    store = PointStore(tmp_path / "store")
+    a, b, c = (make_record(**point_record(i)) for i in range(3))
+    store.write_point([a, b])
+    real = store.fragments_dir / fragment_name([a["key"], b["key"]])
+    wrong = store.fragments_dir / fragment_name([a["key"], c["key"]])  # rows hold a and b
+    real.rename(wrong)
+    assert store.load().num_rows == 0
+    assert [(p.name, r) for p, r in store.last_quarantined] == [
+        (wrong.name, f"fragment holds keys {[a['key'], b['key']]}, not those of its file name")
+    ]

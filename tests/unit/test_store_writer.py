@@ -12,6 +12,7 @@ import sys
 import textwrap
 from pathlib import Path
 
+import pyarrow.parquet as pq
 import pytest
 
 from pesflow.errors import StoreError
@@ -28,8 +29,13 @@ def test_every_point_handed_over_is_durable_after_close(tmp_path):
     with PointWriter(store) as writer:
         for i in range(0, 12, 2):  # two records (two levels) per point
             writer.write(records[i], records[i + 1])
-    assert [r["key"] for r, _ in writer.written] == [r["key"] for r in records]
-    assert len(fragment_files(store)) == 12
+    # one fragment per point, named by its records' keys in row order
+    pairs = [[records[i]["key"], records[i + 1]["key"]] for i in range(0, 12, 2)]
+    assert [[r["key"] for r in recs] for recs, _, _ in writer.written] == pairs
+    assert fragment_files(store) == sorted("+".join(pair) + ".parquet" for pair in pairs)
+    for pair in pairs:
+        rows = pq.read_table(store.fragments_dir / ("+".join(pair) + ".parquet"))
+        assert rows.column("key").to_pylist() == pair
     got = {row["key"]: row for row in store.load().to_pylist()}
     for record in records:
         assert_records_equal(got[record["key"]], record)
