@@ -171,21 +171,54 @@ def from_xyz_text(text):
     return Atoms(symbols=symbols, positions=positions)
 
 
+def _plain_xyz_frame(text: str):
+    """The first frame of plain XYZ text (atom count, comment, ``symbol x y z`` lines) as
+    :class:`ase.Atoms`, or None when it is anything else (extended XYZ with its own
+    ``Properties=`` column layout, extra columns, a malformed line): :func:`from_file`
+    then reads it with ASE."""
+    lines = text.splitlines()
+    head = lines[0].split() if lines else []
+    if len(head) != 1 or not head[0].isdigit() or int(head[0]) < 1:
+        return None
+    count = int(head[0])
+    if len(lines) < count + 2 or "properties=" in lines[1].lower():
+        return None
+    symbols, positions = [], []
+    for number, line in enumerate(lines[2 : count + 2], start=3):
+        try:
+            symbol, xyz = _parse_atom_line(line, number)
+        except ValueError:
+            return None
+        symbols.append(symbol)
+        positions.append(xyz)
+    return Atoms(symbols=symbols, positions=positions)
+
+
 def from_file(path):
-    """A molecule from an ``.xyz`` or ``.extxyz`` file (read with :func:`ase.io.read`).
+    """A molecule from an ``.xyz`` or ``.extxyz`` file.
 
     Only the first frame of a multi-frame file is read, and only its elements and
-    positions (angstrom) are kept.  A missing or unreadable file raises
-    :class:`ValueError` naming the path.
+    positions (angstrom) are kept.  A plain ``.xyz`` file (atom count, comment line,
+    ``symbol x y z`` lines) is read directly; anything else with :func:`ase.io.read`
+    (extended XYZ), whose import costs about half a second (``ase.io`` imports SciPy's
+    integrators) on every command that loads the campaign.  A missing or unreadable file
+    raises :class:`ValueError` naming the path.
     """
-    import ase.io
-
     path = Path(path)
     suffix = path.suffix.lower()
     if suffix not in (".xyz", ".extxyz"):
         raise ValueError(f"{path}: unsupported file type {path.suffix!r}; allowed: .xyz, .extxyz")
     if not path.is_file():
         raise ValueError(f"{path}: no such file")
+    if suffix == ".xyz":
+        try:
+            atoms = _plain_xyz_frame(path.read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError):
+            atoms = None  # ASE reports it
+        if atoms is not None:
+            return atoms
+    import ase.io
+
     try:
         frame = ase.io.read(path, index=0, format="extxyz")
     except Exception as exc:  # ASE raises many types for a bad file; report one.

@@ -6,6 +6,9 @@ nuclear masses) and the NIST table of isotope masses.
 """
 
 import io
+import subprocess
+import sys
+from pathlib import Path
 
 import ase.build
 import ase.io
@@ -27,6 +30,8 @@ from pesflow.campaign.molecules import (
     masses_with_isotopes,
     multiplicity_problem,
 )
+
+REPO = Path(__file__).resolve().parents[2]
 
 WATER_XYZ = "O 0.0 0.0 0.119262\nH 0.0 0.763239 -0.477047\nH 0.0 -0.763239 -0.477047"
 
@@ -133,6 +138,42 @@ def test_files_written_by_ase(tmp_path, suffix, fmt):
     atoms = from_file(path)  # first frame only
     assert atoms.get_chemical_symbols() == ethanol.get_chemical_symbols()
     np.testing.assert_allclose(atoms.positions, ethanol.positions, atol=1e-7)
+
+
+def test_plain_xyz_files_read_directly_give_what_ase_reads(tmp_path):
+    """A plain XYZ file is read without ASE's reader (whose import costs ~0.5 s on every
+    campaign load); the reference is ase.io.read of the same file."""
+    shipped = sorted((REPO / "configs" / "geometries").glob("*.xyz"))
+    hand = tmp_path / "two-frames.xyz"
+    hand.write_text(
+        "3\nwater, then a second frame that is not read\n"
+        "O 0.0 0.0 0.1173\nH 0.0 0.7572 -0.4692\nH 0.0 -0.7572 -0.4692\n"
+        "2\nsecond\nH 0 0 0\nH 0 0 0.74\n"
+    )
+    assert shipped
+    for path in [*shipped, hand]:
+        want = ase.io.read(path, index=0, format="extxyz")
+        got = from_file(path)
+        assert got.get_chemical_symbols() == want.get_chemical_symbols(), path
+        np.testing.assert_allclose(got.positions, want.positions, atol=1e-12)
+    code = (
+        "import sys; from pesflow.campaign.molecules import from_file; "
+        f"from_file({str(hand)!r}); print('ase.io' in sys.modules)"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "False"
+
+
+def test_extended_xyz_with_its_own_column_order_is_read_by_ase(tmp_path):
+    """A comment line with ``Properties=`` may put the columns in another order: such a
+    file goes to ASE's reader, which follows it (positions first here)."""
+    path = tmp_path / "reordered.xyz"
+    path.write_text(
+        "2\nProperties=pos:R:3:species:S:1 energy=-1.0\n0.0 0.0 0.0 H\n0.0 0.0 0.74 H\n"
+    )
+    atoms = from_file(path)
+    assert atoms.get_chemical_symbols() == ["H", "H"]
+    np.testing.assert_allclose(atoms.positions[1], [0.0, 0.0, 0.74])
 
 
 def test_missing_file_names_the_path(tmp_path):
