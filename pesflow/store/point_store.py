@@ -130,8 +130,8 @@ class PointStore:
         self.last_quarantined: list[tuple[Path, str]] = []
         self._checked = False
         self._ready = False
-        # fragment name -> inode of the file that passed the cheap check
-        self._fragment_ok: dict[str, int] = {}
+        # fragment name -> (inode, keys) of the file that passed the cheap check
+        self._fragment_ok: dict[str, tuple[int, list[str]]] = {}
         # part name -> ((size, mtime_ns), frozenset of keys)
         self._part_keys: dict[str, tuple[tuple, frozenset]] = {}
         self._check_root()
@@ -295,8 +295,11 @@ class PointStore:
                     if name[0] == "." or not name.endswith(_FRAGMENT_SUFFIX):
                         continue
                     inode = entry.inode()
-                    names_keys = fragment_keys(name)
-                    if checked.get(name) != inode:
+                    cached = checked.get(name)
+                    if cached is not None and cached[0] == inode:
+                        names_keys = cached[1]
+                    else:
+                        names_keys = fragment_keys(name)
                         if names_keys is None:
                             bad.append((name, inode, "fragment file name is not a point key"))
                             continue
@@ -306,7 +309,7 @@ class PointStore:
                         if problem:
                             bad.append((name, inode, problem))
                             continue
-                    ok[name] = inode
+                    ok[name] = (inode, names_keys)
                     keys.update(names_keys)
         finally:
             os.close(dir_fd)
